@@ -1,0 +1,75 @@
+"""What every command shares: consoles, error reporting, list parsing, output formats."""
+
+from __future__ import annotations
+
+import json
+import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
+from enum import Enum
+from typing import Any
+
+import typer
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+from fewshot.errors import FewshotError, InvalidInput
+
+out = Console(highlight=False, soft_wrap=True)
+err = Console(stderr=True, highlight=False, soft_wrap=True)
+
+STATE = {"debug": False}
+
+
+class TableOrJson(str, Enum):
+    table = "table"
+    json = "json"
+
+
+@contextmanager
+def reporting() -> Iterator[None]:
+    """Turn a :class:`FewshotError` into its message on stderr and exit status 2.
+
+    With ``fewshot --debug`` the exception propagates with its traceback.
+    """
+    try:
+        yield
+    except FewshotError as exc:
+        if STATE["debug"]:
+            raise
+        err.print(f"[bold red]error:[/] {exc}", markup=True, highlight=False)
+        raise typer.Exit(2) from None
+
+
+def int_list(text: str, *, option: str) -> tuple[int, ...]:
+    """Parse ``"1,3,5"`` into integers; a bad item is an error naming ``option``."""
+    items = [t.strip() for t in text.split(",") if t.strip()]
+    if not items:
+        raise InvalidInput(f"{option} needs a comma-separated list of whole numbers, e.g. 1,3,5.")
+    values = []
+    for t in items:
+        try:
+            values.append(int(t))
+        except ValueError:
+            raise InvalidInput(
+                f"{option} must be whole numbers separated by commas, e.g. 1,3,5. Got {t!r} in {text!r}."
+            ) from None
+    return tuple(values)
+
+
+def print_json(data: Any) -> None:
+    """Write ``data`` as indented JSON to stdout, with no markup or wrapping."""
+    sys.stdout.write(json.dumps(data, indent=2) + "\n")
+
+
+def progress() -> Progress:
+    """A progress bar on stderr that shows only on a terminal."""
+    return Progress(
+        TextColumn("{task.description}"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeElapsedColumn(),
+        console=err,
+        transient=True,
+        disable=not err.is_terminal,
+    )

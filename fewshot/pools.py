@@ -1,0 +1,230 @@
+"""Read pool files (CSV, JSONL, Parquet) into ids and columns, with clear errors.
+
+A pool is read once as bytes: its SHA-256 is the pool digest a manifest records,
+and the same bytes are parsed, so the digest always describes what was drawn from.
+Every column is read as text (so ids such as ``007`` or ``NA`` survive as
+written); :meth:`Pool.numeric` converts a ranking column on demand.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from fewshot.errors import PoolError
+from fewshot.sampling import check_ids
+
+__all__ = ["Pool", "read_pool", "read_id_list", "file_digest", "POOL_FORMATS"]
+
+POOL_FORMATS = {".csv": "csv", ".jsonl": "jsonl", ".ndjson": "jsonl", ".parquet": "parquet"}
+
+
+@dataclass(frozen=True)
+class Pool:
+    """The episodes of a pool file.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+        Where it was read from.
+    format : str
+        ``"csv"``, ``"jsonl"`` or ``"parquet"``.
+    digest : str
+        SHA-256 hex of the file's bytes.
+    id_column : str
+        The column holding episode ids.
+    ids : tuple of str
+        The episode ids, in file order.
+    frame : pandas.DataFrame
+        Every column, as text (``None`` where a value is missing).
+    """
+
+    path: Path
+    format: str
+    digest: str
+    id_column: str
+    ids: tuple[str, ...]
+    frame: pd.DataFrame = field(repr=False, compare=False)
+
+    @property
+    def rows(self) -> int:
+        """The number of episodes (data rows) in the file."""
+        return len(self.ids)
+
+    def column(self, name: str, *, option: str = "column") -> list[str]:
+        """A column's values as text; ``option`` names the setting that asked for it."""
+        self._require(name, option)
+        return [("" if v is None else str(v)) for v in self.frame[name].tolist()]
+
+    def numeric(self, name: str, *, option: str = "--rank-by") -> np.ndarray:
+        """A column converted to floats; non-numeric text is an error naming the row."""
+        self._require(name, option)
+        raw = self.frame[name]
+        values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+        bad = np.flatnonzero(np.isnan(values) & raw.notna().to_numpy() & (raw != "").to_numpy())
+        if bad.size:
+            j = int(bad[0])
+            raise PoolError(
+                f"{self.path}: column {name!r} ({option}) must be numeric, but "
+                f"{self._where(j)} holds {raw.iloc[j]!r} ({bad.size} non-numeric value(s) in all)."
+            )
+        return values
+
+    def _require(self, name: str, option: str) -> None:
+        if name not in self.frame.columns:
+            raise PoolError(
+                f"{self.path}: no column {name!r} ({option}). "
+                f"Columns found: {', '.join(map(str, self.frame.columns))}."
+            )
+
+    def _where(self, j: int) -> str:
+        return f"line {j + 2}" if self.format == "csv" else (
+            f"line {j + 1}" if self.format == "jsonl" else f"row {j + 1}"
+        )
+
+
+def file_digest(path: Path) -> str:
+    """SHA-256 hex of a file's bytes."""
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def read_pool(path: str | Path, id_column: str = "id") -> Pool:
+    """Read a pool file; the format follows the suffix (.csv, .jsonl/.ndjson, .parquet).
+
+    Raises
+    ------
+    PoolError
+        When the file is missing, not UTF-8, malformed, empty, lacks the id
+        column, or holds empty or duplicate ids.
+    """
+    p = Path(path)
+    fmt = POOL_FORMATS.get(p.suffix.lower())
+    if fmt is None:
+        raise PoolError(
+            f"{p}: unknown pool format {p.suffix or '(no suffix)'!r}. "
+            "Use a .csv, .jsonl (or .ndjson) or .parquet file."
+        )
+    try:
+        data = p.read_bytes()
+    except FileNotFoundError:
+        raise PoolError(f"{p}: pool file not found. Check the path.") from None
+    except OSError as exc:
+        raise PoolError(f"{p}: cannot read the pool file ({exc.strerror}).") from None
+    digest = hashlib.sha256(data).hexdigest()
+    if fmt == "parquet":
+        frame = _parse_parquet(p, data)
+    else:
+        text = _decode(p, data)
+        frame = _parse_csv(p, text) if fmt == "csv" else _parse_jsonl(p, text)
+    if frame.empty:
+        raise PoolError(f"{p}: the pool has no episodes. Add rows or pick another file.")
+    if id_column not in frame.columns:
+        raise PoolError(
+            f"{p}: no id column {id_column!r}. Columns found: "
+            f"{', '.join(map(str, frame.columns))}. Name the id column with --id-column."
+        )
+    raw_ids = frame[id_column]
+    missing = np.flatnonzero(raw_ids.isna().to_numpy() | (raw_ids == "").to_numpy())
+    if missing.size:
+        first = Pool(p, fmt, digest, id_column, (), frame)._where(int(missing[0]))
+        raise PoolError(
+            f"{p}: {missing.size} episode(s) have an empty id in column {id_column!r}, "
+            f"first at {first}. Every episode needs an id."
+        )
+    try:
+        ids = check_ids(raw_ids.tolist(), where=f"{p}: column {id_column!r}")
+    except ValueError as exc:
+        raise PoolError(str(exc)) from None
+    return Pool(p, fmt, digest, id_column, tuple(ids), frame)
+
+
+def _decode(p: Path, data: bytes) -> str:
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        raise PoolError(
+            f"{p}: line {line} is not valid UTF-8 (byte 0x{data[exc.start]:02x}). "
+            "Save the file as UTF-8."
+        ) from None
+    return text[1:] if text.startswith("\ufeff") else text
+
+
+def _parse_csv(p: Path, text: str) -> pd.DataFrame:
+    if not text.strip():
+        raise PoolError(f"{p}: the file is empty. A pool CSV needs a header and rows.")
+    try:
+        frame = pd.read_csv(
+            io.StringIO(text), dtype=str, keep_default_na=False, na_values=[], skipinitialspace=False
+        )
+    except pd.errors.ParserError as exc:
+        raise PoolError(f"{p}: malformed CSV ({exc}). Fix the quoted or extra fields.") from None
+    frame.columns = [str(c) for c in frame.columns]
+    return frame
+
+
+def _parse_jsonl(p: Path, text: str) -> pd.DataFrame:
+    rows: list[dict[str, object]] = []
+    for n, line in enumerate(text.splitlines(), 1):
+        if not line.strip():
+            continue
+        try:
+            obj = json.loads(line)
+        except json.JSONDecodeError as exc:
+            raise PoolError(f"{p}: line {n} is not valid JSON ({exc.msg}).") from None
+        if not isinstance(obj, dict):
+            raise PoolError(f"{p}: line {n} must be a JSON object, got {type(obj).__name__}.")
+        rows.append({k: _text(v) for k, v in obj.items()})
+    if not rows:
+        raise PoolError(f"{p}: the file is empty. A pool JSONL file needs one object a line.")
+    return pd.DataFrame.from_records(rows).astype(object).where(lambda f: f.notna(), None)
+
+
+def _text(value: object) -> str | None:
+    """A JSON value as text: strings as they are, anything else in its JSON spelling."""
+    if value is None:
+        return None
+    if isinstance(value, str):
+        return value
+    return json.dumps(value, sort_keys=True)
+
+
+def _parse_parquet(p: Path, data: bytes) -> pd.DataFrame:
+    try:
+        import pyarrow  # noqa: F401
+    except ImportError:
+        raise PoolError(
+            f"{p}: reading Parquet needs pyarrow. Install it with: pip install 'fewshot[parquet]'."
+        ) from None
+    try:
+        frame = pd.read_parquet(io.BytesIO(data))
+    except Exception as exc:  # pyarrow raises many types for a damaged file
+        raise PoolError(f"{p}: not a readable Parquet file ({exc}).") from None
+    frame.columns = [str(c) for c in frame.columns]
+    out = frame.astype(object).where(frame.notna(), None)
+    for col in out.columns:
+        out[col] = [None if v is None else (v if isinstance(v, str) else str(v)) for v in out[col]]
+    return out
+
+
+def read_id_list(path: str | Path, *, what: str = "id list") -> list[str]:
+    """Read a text file of ids, one a line; blank lines are skipped, CR LF accepted."""
+    p = Path(path)
+    try:
+        data = p.read_bytes()
+    except FileNotFoundError:
+        raise PoolError(f"{p}: {what} not found. Check the path.") from None
+    except OSError as exc:
+        raise PoolError(f"{p}: cannot read the {what} ({exc.strerror}).") from None
+    text = _decode(p, data)
+    return [line.rstrip("\r") for line in text.split("\n") if line.strip()]
