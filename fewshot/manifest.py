@@ -67,7 +67,11 @@ def manifest_dict(draw: TaskDraw) -> dict[str, Any]:
             if d.strata_counts:
                 entry["strata"] = dict(d.strata_counts[n])
             subsets[str(n)] = entry
-        seeds[str(d.seed)] = {"order": list(d.order), "reserve": list(d.reserve), "subsets": subsets}
+        seeds[str(d.seed)] = {
+            "order": list(d.order),
+            "reserve": list(d.reserve),
+            "subsets": subsets,
+        }
     return {
         "format": MANIFEST_FORMAT,
         "format_version": MANIFEST_VERSION,
@@ -214,7 +218,9 @@ def load_manifest(path: str | Path) -> Manifest:
     try:
         text = p.read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise ManifestError(f"{p}: manifest not found. Check the path, or run `fewshot draw`.") from None
+        raise ManifestError(
+            f"{p}: manifest not found. Check the path, or run `fewshot draw`."
+        ) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise ManifestError(f"{p}: cannot read the manifest ({exc}).") from None
     try:
@@ -222,7 +228,7 @@ def load_manifest(path: str | Path) -> Manifest:
     except json.JSONDecodeError as exc:
         raise ManifestError(f"{p}: line {exc.lineno} is not valid JSON ({exc.msg}).") from None
     if not isinstance(data, dict) or data.get("format") != MANIFEST_FORMAT:
-        raise ManifestError(f"{p}: not a fewshot manifest (no \"format\": \"{MANIFEST_FORMAT}\").")
+        raise ManifestError(f'{p}: not a fewshot manifest (no "format": "{MANIFEST_FORMAT}").')
     version = data.get("format_version")
     if not isinstance(version, int) or version > MANIFEST_VERSION:
         raise ManifestError(

@@ -2,8 +2,9 @@
 
 A pool is read once as bytes: its SHA-256 is the pool digest a manifest records,
 and the same bytes are parsed, so the digest always describes what was drawn from.
-Every column is read as text (so ids such as ``007`` or ``NA`` survive as
-written); :meth:`Pool.numeric` converts a ranking column on demand.
+Ids are read as text (so ids such as ``007`` or ``NA`` survive as written);
+:meth:`Pool.column` and :meth:`Pool.numeric` give other columns as text or
+numbers when a setting asks for them.
 """
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from fewshot.errors import PoolError
-from fewshot.sampling import check_ids
+from fewshot.sampling import hash_ids, repeated_ids
 
 __all__ = ["Pool", "read_pool", "read_id_list", "file_digest", "POOL_FORMATS"]
 
@@ -42,7 +43,7 @@ class Pool:
     ids : tuple of str
         The episode ids, in file order.
     frame : pandas.DataFrame
-        Every column, as text (``None`` where a value is missing).
+        Every column of the file (the id column as text).
     """
 
     path: Path
@@ -51,6 +52,7 @@ class Pool:
     id_column: str
     ids: tuple[str, ...]
     frame: pd.DataFrame = field(repr=False, compare=False)
+    hashes: np.ndarray = field(repr=False, compare=False, default_factory=lambda: np.empty(0))
 
     @property
     def rows(self) -> int:
@@ -84,8 +86,10 @@ class Pool:
             )
 
     def _where(self, j: int) -> str:
-        return f"line {j + 2}" if self.format == "csv" else (
-            f"line {j + 1}" if self.format == "jsonl" else f"row {j + 1}"
+        return (
+            f"line {j + 2}"
+            if self.format == "csv"
+            else (f"line {j + 1}" if self.format == "jsonl" else f"row {j + 1}")
         )
 
 
@@ -124,8 +128,12 @@ def read_pool(path: str | Path, id_column: str = "id") -> Pool:
     if fmt == "parquet":
         frame = _parse_parquet(p, data)
     else:
-        text = _decode(p, data)
-        frame = _parse_csv(p, text) if fmt == "csv" else _parse_jsonl(p, text)
+        text = _decode(p, data)  # checks UTF-8 and names the line that is not
+        if fmt == "csv":
+            body = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
+            frame = _parse_csv(p, text, body, id_column)
+        else:
+            frame = _parse_jsonl(p, text)
     if frame.empty:
         raise PoolError(f"{p}: the pool has no episodes. Add rows or pick another file.")
     if id_column not in frame.columns:
@@ -133,19 +141,36 @@ def read_pool(path: str | Path, id_column: str = "id") -> Pool:
             f"{p}: no id column {id_column!r}. Columns found: "
             f"{', '.join(map(str, frame.columns))}. Name the id column with --id-column."
         )
-    raw_ids = frame[id_column]
-    missing = np.flatnonzero(raw_ids.isna().to_numpy() | (raw_ids == "").to_numpy())
-    if missing.size:
-        first = Pool(p, fmt, digest, id_column, (), frame)._where(int(missing[0]))
+    ids = _checked_ids(p, fmt, frame[id_column], id_column)
+    hashes = hash_ids(ids)
+    dupes = repeated_ids(ids, hashes)
+    if dupes:
+        shown = ", ".join(repr(d) for d in dupes[:5])
         raise PoolError(
-            f"{p}: {missing.size} episode(s) have an empty id in column {id_column!r}, "
-            f"first at {first}. Every episode needs an id."
+            f"{p}: column {id_column!r}: {len(dupes)} id(s) appear more than once, e.g. {shown}. "
+            "Ids must be unique; remove or rename the duplicates."
         )
-    try:
-        ids = check_ids(raw_ids.tolist(), where=f"{p}: column {id_column!r}")
-    except ValueError as exc:
-        raise PoolError(str(exc)) from None
-    return Pool(p, fmt, digest, id_column, tuple(ids), frame)
+    return Pool(p, fmt, digest, id_column, ids, frame, hashes)
+
+
+def _checked_ids(p: Path, fmt: str, raw: pd.Series, id_column: str) -> tuple[str, ...]:
+    """The id column as strings, checked with vectorised pandas (the pool may be large)."""
+    text = raw if pd.api.types.is_string_dtype(raw) else raw.astype(str)
+    text = text.where(raw.notna(), "")
+    where = Pool(p, fmt, "", id_column, (), pd.DataFrame())._where
+    empty = np.flatnonzero((text == "").to_numpy())
+    if empty.size:
+        raise PoolError(
+            f"{p}: {empty.size} episode(s) have an empty id in column {id_column!r}, "
+            f"first at {where(int(empty[0]))}. Every episode needs an id."
+        )
+    broken = np.flatnonzero(text.str.contains("[\r\n]", regex=True).to_numpy())
+    if broken.size:
+        raise PoolError(
+            f"{p}: the id at {where(int(broken[0]))} contains a line break; id files hold one id "
+            "a line. Remove line breaks from ids."
+        )
+    return tuple(text.tolist())
 
 
 def _decode(p: Path, data: bytes) -> str:
@@ -160,13 +185,16 @@ def _decode(p: Path, data: bytes) -> str:
     return text[1:] if text.startswith("\ufeff") else text
 
 
-def _parse_csv(p: Path, text: str) -> pd.DataFrame:
+def _parse_csv(p: Path, text: str, body: bytes, id_column: str) -> pd.DataFrame:
     if not text.strip():
         raise PoolError(f"{p}: the file is empty. A pool CSV needs a header and rows.")
     try:
-        frame = pd.read_csv(
-            io.StringIO(text), dtype=str, keep_default_na=False, na_values=[], skipinitialspace=False
-        )
+        # Ids must stay text exactly as written ("007", "NA"). Inference keeps text as text and
+        # is several times faster than asking for a str column, so ask only when the id column
+        # was inferred as numbers. Other columns are converted when a setting needs them.
+        frame = pd.read_csv(io.BytesIO(body), na_filter=False)
+        if id_column in frame.columns and not pd.api.types.is_string_dtype(frame[id_column]):
+            frame = pd.read_csv(io.BytesIO(body), na_filter=False, dtype={id_column: str})
     except pd.errors.ParserError as exc:
         raise PoolError(f"{p}: malformed CSV ({exc}). Fix the quoted or extra fields.") from None
     frame.columns = [str(c) for c in frame.columns]

@@ -46,6 +46,7 @@ __all__ = [
     "keep_top",
     "exclude_ids",
     "check_ids",
+    "repeated_ids",
 ]
 
 RULE_VERSION = "fewshot-draw/1"
@@ -90,6 +91,23 @@ def hash_ids(ids: Sequence[str]) -> np.ndarray:
     sha = hashlib.sha256
     packed = b"".join([sha(i.encode("utf-8")).digest()[:8] for i in ids])
     return np.frombuffer(packed, dtype=">u8").astype(np.uint64)
+
+
+def repeated_ids(ids: Sequence[str], hashes: np.ndarray) -> list[str]:
+    """Ids that occur more than once, found through their hashes (a sort, not a set).
+
+    Equal ids have equal hashes, so only ids whose hash repeats are compared as text.
+    """
+    if hashes.size < 2:
+        return []
+    order = np.argsort(hashes, kind="stable")
+    sorted_h = hashes[order]
+    same = np.flatnonzero(sorted_h[1:] == sorted_h[:-1])
+    if same.size == 0:
+        return []
+    suspects = np.unique(np.concatenate([order[same], order[same + 1]]))
+    counts = Counter(ids[j] for j in suspects.tolist())
+    return sorted(i for i, c in counts.items() if c > 1)
 
 
 def rank_keys(hashes: np.ndarray, seed: int) -> np.ndarray:
@@ -379,9 +397,7 @@ def _draw_nested_iv(
     sizes_t = _check_sizes(sizes)
     seed_i = _check_seed(seed)
     if allocation not in ("proportional", "equal"):
-        raise InvalidInput(
-            f"allocation must be 'proportional' or 'equal'. Got {allocation!r}."
-        )
+        raise InvalidInput(f"allocation must be 'proportional' or 'equal'. Got {allocation!r}.")
     if isinstance(reserve, bool) or not isinstance(reserve, int | np.integer) or reserve < 0:
         raise InvalidInput(f"reserve must be a whole number of 0 or more. Got {reserve!r}.")
     available = len(pool.ids) - int(reserve)

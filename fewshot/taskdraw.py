@@ -142,7 +142,9 @@ class TaskDraw:
         for d in self.draws:
             if d.seed == seed:
                 return d
-        raise InvalidInput(f"seed {seed} was not drawn; drawn seeds: {[d.seed for d in self.draws]}.")
+        raise InvalidInput(
+            f"seed {seed} was not drawn; drawn seeds: {[d.seed for d in self.draws]}."
+        )
 
 
 def draw_task(spec: DrawSpec, *, on_seed: Callable[[int], None] | None = None) -> TaskDraw:
@@ -182,9 +184,13 @@ def draw_task(spec: DrawSpec, *, on_seed: Callable[[int], None] | None = None) -
             "after": len(kept_ids),
         }
         positions = np.flatnonzero(_mask_of(pool, set(kept_ids)))
-    eligible = [pool.ids[j] for j in positions]
+    everything = positions.size == pool.rows
+    eligible = list(pool.ids) if everything else [pool.ids[j] for j in positions]
     strata_info, labels = _strata(pool, spec, positions)
-    hashed = HashedIds.build(eligible, labels)
+    # read_pool checked and hashed the ids once; reuse its hashes for every seed
+    hashed = HashedIds(
+        tuple(eligible), pool.hashes[positions], None if labels is None else tuple(labels)
+    )
     draws = []
     for seed in spec.seeds:
         d = draw_nested(hashed, spec.sizes, seed, allocation=spec.allocation, reserve=spec.reserve)  # type: ignore[arg-type]
@@ -224,7 +230,11 @@ def _strata(
             f"{spec.stratify_by!r}, e.g. id {blank[0]!r}. Fill them in or drop those episodes."
         )
     counts = dict(sorted(Counter(labels).items()))
-    return {"column": spec.stratify_by, "allocation": spec.allocation, "pool_counts": counts}, labels
+    return {
+        "column": spec.stratify_by,
+        "allocation": spec.allocation,
+        "pool_counts": counts,
+    }, labels
 
 
 def _check_disjoint(draws: Sequence[NestedDraw], excluded: set[str]) -> None:
@@ -240,7 +250,9 @@ def _draw_task_iv(spec: DrawSpec) -> None:
         raise InvalidInput("seeds must list at least one seed, e.g. --seeds 0,1,2.")
     for s in spec.seeds:
         if isinstance(s, bool) or not isinstance(s, int) or not 0 <= s <= MAX_SEED:
-            raise InvalidInput(f"seeds must be whole numbers from 0 to 2**64-1. Got {list(spec.seeds)}.")
+            raise InvalidInput(
+                f"seeds must be whole numbers from 0 to 2**64-1. Got {list(spec.seeds)}."
+            )
     if len(set(spec.seeds)) != len(spec.seeds):
         raise InvalidInput(f"seeds must not repeat. Got {list(spec.seeds)}.")
     if (spec.keep_top is None) != (spec.rank_by is None):

@@ -122,8 +122,11 @@ def test_a_seeds_draw_does_not_depend_on_other_seeds(ids, seeds):
 
 
 @settings(max_examples=40, deadline=None)
-@given(ids=st.lists(ID_TEXT, min_size=5, max_size=60, unique=True), seed=st.integers(0, 99),
-       data=st.data())
+@given(
+    ids=st.lists(ID_TEXT, min_size=5, max_size=60, unique=True),
+    seed=st.integers(0, 99),
+    data=st.data(),
+)
 def test_reserve_is_disjoint_from_every_subset(ids, seed, data):
     reserve = data.draw(st.integers(1, len(ids) - 1))
     d = draw_nested(ids, [0, len(ids) - reserve], seed, reserve=reserve)
@@ -237,7 +240,10 @@ def test_dhondt_contrast_shows_the_example_discriminates():
     assert dhondt(pool, 10) == {"a": 6, "b": 4, "c": 0}
     ids, labels = stratified_pool(pool)
     assert dict(draw_nested(ids, [10], 0, strata=labels).strata_counts[10]) != {
-        "a": 6, "b": 4, "c": 0}
+        "a": 6,
+        "b": 4,
+        "c": 0,
+    }
 
 
 def test_no_alabama_paradox():
@@ -321,7 +327,11 @@ def test_keep_top_equals_a_full_sort_on_large_random_input():
     ("kwargs", "error", "fragment"),
     [
         ({"ids": ["a", "b"], "sizes": [3], "seed": 0}, DrawError, "larger than the eligible pool"),
-        ({"ids": ["a", "b", "c"], "sizes": [2], "seed": 0, "reserve": 2}, DrawError, "after a reserve"),
+        (
+            {"ids": ["a", "b", "c"], "sizes": [2], "seed": 0, "reserve": 2},
+            DrawError,
+            "after a reserve",
+        ),
         ({"ids": ["a", "b"], "sizes": [-1], "seed": 0}, InvalidInput, "whole numbers"),
         ({"ids": ["a", "b"], "sizes": [1.5], "seed": 0}, InvalidInput, "whole numbers"),
         ({"ids": ["a", "b"], "sizes": [1, 1], "seed": 0}, InvalidInput, "must not repeat"),

@@ -30,7 +30,9 @@ def _version(value: bool) -> None:
 def _root(
     version: Annotated[
         bool,
-        typer.Option("--version", callback=_version, is_eager=True, help="Print the version and exit."),
+        typer.Option(
+            "--version", callback=_version, is_eager=True, help="Print the version and exit."
+        ),
     ] = False,
     debug: Annotated[
         bool, typer.Option("--debug", help="Show the full traceback of an error.")

@@ -6,7 +6,7 @@ import json
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
-from enum import Enum
+from enum import StrEnum
 from typing import Any
 
 import typer
@@ -21,7 +21,7 @@ err = Console(stderr=True, highlight=False, soft_wrap=True)
 STATE = {"debug": False}
 
 
-class TableOrJson(str, Enum):
+class TableOrJson(StrEnum):
     table = "table"
     json = "json"
 

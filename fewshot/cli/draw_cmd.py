@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from enum import Enum
+from enum import StrEnum
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -21,29 +21,40 @@ from fewshot.pools import read_id_list
 from fewshot.taskdraw import DrawSpec, TaskDraw, draw_task
 
 
-class AllocationChoice(str, Enum):
+class AllocationChoice(StrEnum):
     proportional = "proportional"
     equal = "equal"
 
 
 def draw(
-    pool: Annotated[Path, typer.Argument(help="Pool file: .csv, .jsonl or .parquet, one episode a row.")],
+    pool: Annotated[
+        Path, typer.Argument(help="Pool file: .csv, .jsonl or .parquet, one episode a row.")
+    ],
     *,
-    task: Annotated[str, typer.Option("--task", help="Task name; names the manifest and id folder.")],
-    out_dir: Annotated[Path, typer.Option("--out", help="Folder to write the manifest and id files to.")],
+    task: Annotated[
+        str, typer.Option("--task", help="Task name; names the manifest and id folder.")
+    ],
+    out_dir: Annotated[
+        Path, typer.Option("--out", help="Folder to write the manifest and id files to.")
+    ],
     sizes: Annotated[
         str, typer.Option("--sizes", help="Subset sizes, comma-separated (0 = zero-shot).")
     ] = "1,3,5,10,100,1000",
     seeds: Annotated[str, typer.Option("--seeds", help="Seeds, comma-separated.")] = "0,1,2",
-    id_column: Annotated[str, typer.Option("--id-column", help="Column holding episode ids.")] = "id",
+    id_column: Annotated[
+        str, typer.Option("--id-column", help="Column holding episode ids.")
+    ] = "id",
     keep_top: Annotated[
-        int | None, typer.Option("--keep-top", help="Keep only the best K episodes (needs --rank-by).")
+        int | None,
+        typer.Option("--keep-top", help="Keep only the best K episodes (needs --rank-by)."),
     ] = None,
     rank_by: Annotated[
-        str | None, typer.Option("--rank-by", help="Numeric column that ranks episodes for --keep-top.")
+        str | None,
+        typer.Option("--rank-by", help="Numeric column that ranks episodes for --keep-top."),
     ] = None,
     lowest_first: Annotated[
-        bool, typer.Option("--lowest-first", help="With --keep-top: keep the lowest values instead.")
+        bool,
+        typer.Option("--lowest-first", help="With --keep-top: keep the lowest values instead."),
     ] = False,
     stratify_by: Annotated[
         str | None, typer.Option("--stratify-by", help="Column whose values are strata.")
@@ -59,7 +70,10 @@ def draw(
         Path | None, typer.Option("--exclude", help="File of ids never to draw, one a line.")
     ] = None,
     replace: Annotated[
-        bool, typer.Option("--replace", help="Overwrite an earlier draw of this task with other lineage.")
+        bool,
+        typer.Option(
+            "--replace", help="Overwrite an earlier draw of this task with other lineage."
+        ),
     ] = False,
     fmt: Annotated[TableOrJson, typer.Option("--format", help="Summary as a table or JSON.")] = (
         TableOrJson.table
@@ -105,7 +119,12 @@ def _summary(result: TaskDraw, out_dir: Path, target: Path) -> dict[str, Any]:
                     "strata": dict(d.strata_counts[n]) if d.strata_counts else None,
                 }
             )
-    return {"task": result.task, "manifest": str(target), **result.lineage.as_dict(), "subsets": rows}
+    return {
+        "task": result.task,
+        "manifest": str(target),
+        **result.lineage.as_dict(),
+        "subsets": rows,
+    }
 
 
 def _print_summary(result: TaskDraw, summary: dict[str, Any]) -> None:
@@ -153,7 +172,9 @@ def verify(
             pool_ok, actual = pool_matches(m, pool)
     ok = result.matches and pool_ok is not False
     if result.matches:
-        out.print(f"matches: {ids_file} holds the {result.expected} ids of seed {seed}, size {size}")
+        out.print(
+            f"matches: {ids_file} holds the {result.expected} ids of seed {seed}, size {size}"
+        )
     else:
         err.print(
             f"does not match: seed {seed}, size {size} has {result.expected} ids; "
