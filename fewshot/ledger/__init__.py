@@ -1,0 +1,24 @@
+"""The run ledger: plan a study's runs, hand them to workers, take results from any trainer."""
+
+from fewshot.ledger.core import RESULT_COLUMNS, IngestReport, Ledger
+from fewshot.ledger.engine import LedgerError, mask_url, resolve_url
+from fewshot.ledger.planning import PlanReport, StudyChangeRefused
+from fewshot.ledger.results import ResultFileError, ResultLine, ResultRefused, StoreReport
+from fewshot.ledger.runs import Claim, UnknownRun
+
+__all__ = [
+    "RESULT_COLUMNS",
+    "Claim",
+    "IngestReport",
+    "Ledger",
+    "LedgerError",
+    "PlanReport",
+    "ResultFileError",
+    "ResultLine",
+    "ResultRefused",
+    "StoreReport",
+    "StudyChangeRefused",
+    "UnknownRun",
+    "mask_url",
+    "resolve_url",
+]

@@ -1,0 +1,372 @@
+"""The :class:`Ledger`: one study's runs and results in SQLite or PostgreSQL."""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, TypeVar
+
+import pandas as pd
+from sqlalchemy import Connection, Engine, func, insert, select
+
+from fewshot.errors import FewshotError
+from fewshot.ledger.engine import LedgerError, make_engine, mask_url, resolve_url, retry_locked, upgrade_schema
+from fewshot.ledger.models import (
+    FINAL_STEP,
+    ArmRow,
+    IngestedFileRow,
+    ResultRow,
+    RunRow,
+    StudyRow,
+    SubsetRow,
+    TaskRow,
+)
+from fewshot.ledger.planning import PlanReport, draw_all, plan_study
+from fewshot.ledger.results import (
+    ResultFileError,
+    ResultLine,
+    StoreReport,
+    check_line,
+    file_digest_bytes,
+    parse_result_file,
+    store_results,
+)
+from fewshot.ledger.runs import Claim, claim_run, extend_lease, find_run, finish_run
+from fewshot.study import Study
+
+__all__ = ["Ledger", "IngestReport", "RESULT_COLUMNS"]
+
+T = TypeVar("T")
+
+RESULT_COLUMNS = [
+    "study", "run", "arm", "role", "task", "group", "size", "seed", "replicate", "metric", "step",
+    "value", "n_values", "subset_digest", "budget", "recorded_at",
+]
+
+
+@dataclass(frozen=True)
+class IngestReport:
+    """What ingesting one file did.
+
+    Attributes
+    ----------
+    path : str
+    lines : int
+        Result lines in the file.
+    skipped : bool
+        True when a file with the same content was ingested before (nothing written).
+    stored, unchanged, replaced : int
+    """
+
+    path: str
+    lines: int
+    skipped: bool
+    stored: int = 0
+    unchanged: int = 0
+    replaced: int = 0
+
+
+class Ledger:
+    """A ledger database, with one study selected.
+
+    Open it with :meth:`Ledger.open`; plan a study with :meth:`plan`; hand runs out with
+    :meth:`claim`; take results with :meth:`record` and :meth:`ingest`; read them back with
+    :meth:`results`.
+    """
+
+    def __init__(self, engine: Engine, url: str, study: str | None = None) -> None:
+        self.engine = engine
+        self._url = url
+        self._study_name = study
+        self._skip_locked = engine.dialect.name == "postgresql"
+
+    # ------------------------------------------------------------------ opening
+
+    @classmethod
+    def open(cls, url: str | Path | None = None, *, study: str | None = None) -> Ledger:
+        """Open (creating or upgrading) the ledger at ``url``: a path or SQLAlchemy URL,
+        else ``$FEWSHOT_LEDGER``, else ``fewshot.sqlite`` in the working directory."""
+        resolved = resolve_url(url)
+        engine = make_engine(resolved)
+        upgrade_schema(engine)
+        return cls(engine, resolved, study)
+
+    @property
+    def url(self) -> str:
+        """The ledger's URL with any password masked."""
+        return mask_url(self._url)
+
+    def close(self) -> None:
+        """Release the ledger's connections."""
+        self.engine.dispose()
+
+    def __enter__(self) -> Ledger:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def _tx(self, fn: Callable[[Connection], T]) -> T:
+        def attempt() -> T:
+            with self.engine.begin() as conn:
+                return fn(conn)
+
+        return retry_locked(attempt)
+
+    def studies(self) -> list[str]:
+        """The names of the studies in this ledger."""
+        return self._tx(lambda c: sorted(c.execute(select(StudyRow.name)).scalars()))
+
+    def _sid(self, conn: Connection) -> tuple[int, str]:
+        names = dict(conn.execute(select(StudyRow.name, StudyRow.id)).all())
+        if self._study_name is not None:
+            if self._study_name not in names:
+                known = ", ".join(sorted(names)) or "none yet"
+                raise LedgerError(
+                    f"the ledger {self.url} has no study {self._study_name!r} (studies: {known}). "
+                    "Check --study, or run `fewshot init STUDY.toml`."
+                )
+            return names[self._study_name], self._study_name
+        if not names:
+            raise LedgerError(
+                f"the ledger {self.url} holds no study yet. Run `fewshot init STUDY.toml` first "
+                "(or point --ledger / FEWSHOT_LEDGER at the study's ledger)."
+            )
+        if len(names) > 1:
+            raise LedgerError(
+                f"the ledger {self.url} holds several studies ({', '.join(sorted(names))}); "
+                "pick one with --study NAME."
+            )
+        name = next(iter(names))
+        return names[name], name
+
+    @property
+    def study(self) -> str:
+        """The selected study's name."""
+        return self._tx(lambda c: self._sid(c)[1])
+
+    # ------------------------------------------------------------------ planning
+
+    def plan(self, study: Study) -> PlanReport:
+        """Draw every task's subsets and plan every run of ``study`` not yet planned."""
+        draws = draw_all(study)
+        report = self._tx(lambda c: plan_study(c, study, draws))
+        if self._study_name is None:
+            self._study_name = study.name
+        return report
+
+    # ------------------------------------------------------------------ runs
+
+    def claim(self, worker: str, lease: float = 7200.0) -> Claim | None:
+        """Atomically claim one planned run (or one whose lease expired) for ``worker``."""
+        _check_worker(worker)
+
+        def go(c: Connection) -> Claim | None:
+            sid, _ = self._sid(c)
+            return claim_run(c, sid, worker, lease, skip_locked=self._skip_locked)
+
+        return self._tx(go)
+
+    def heartbeat(self, run: str, worker: str, lease: float = 7200.0) -> bool:
+        """Extend ``worker``'s lease on ``run``; False when the worker no longer holds it."""
+
+        def go(c: Connection) -> bool:
+            sid, name = self._sid(c)
+            return extend_lease(c, find_run(c, sid, run, name), worker, lease)
+
+        return self._tx(go)
+
+    def done(self, run: str) -> None:
+        """Mark ``run`` done."""
+        self._finish(run, "done", None)
+
+    def fail(self, run: str, message: str) -> None:
+        """Mark ``run`` failed, keeping the (tail of the) message."""
+        self._finish(run, "failed", message)
+
+    def _finish(self, run: str, status: str, message: str | None) -> None:
+        def go(c: Connection) -> None:
+            sid, name = self._sid(c)
+            finish_run(c, find_run(c, sid, run, name), status, message)
+
+        self._tx(go)
+
+    def run_status(self, run: str) -> str:
+        """The status of ``run``: planned, running, done or failed."""
+
+        def go(c: Connection) -> str:
+            sid, name = self._sid(c)
+            return find_run(c, sid, run, name).status
+
+        return self._tx(go)
+
+    # ------------------------------------------------------------------ results
+
+    def record(
+        self,
+        run: str,
+        metric: str,
+        value: float,
+        *,
+        step: int | None = None,
+        values: Sequence[float] | None = None,
+        subset_digest: str | None = None,
+        budget: dict[str, float] | None = None,
+        replace: bool = False,
+    ) -> StoreReport:
+        """Record one result of ``run``; see the module ``fewshot.ledger.results`` for the rules."""
+        line = check_line(
+            run, metric, value, step=step, values=None if values is None else list(values),
+            subset_digest=subset_digest, budget=budget,
+        )
+        return self.record_lines([line], replace=replace)
+
+    def record_lines(self, lines: Sequence[ResultLine], *, replace: bool = False, source: str = "api") -> StoreReport:
+        """Record several checked results at once: all of them or none."""
+
+        def go(c: Connection) -> StoreReport:
+            sid, name = self._sid(c)
+            return store_results(c, sid, name, lines, replace=replace, source=source)
+
+        return self._tx(go)
+
+    def ingest(self, paths: Iterable[str | Path], *, replace: bool = False) -> list[IngestReport]:
+        """Ingest JSONL or CSV results files (or folders of them), one transaction a file.
+
+        A file whose content was ingested before is skipped, so re-running an ingest after a
+        crash never doubles a result.
+        """
+        return [self.ingest_file(p, replace=replace) for p in expand_result_paths(paths)]
+
+    def ingest_file(self, path: str | Path, *, replace: bool = False) -> IngestReport:
+        """Ingest one results file: all of it or none of it."""
+        p = Path(path)
+        try:
+            data = p.read_bytes()
+        except OSError as exc:
+            raise ResultFileError(f"{p}: cannot read the results file ({exc.strerror}).") from None
+        digest = file_digest_bytes(data)
+        lines = parse_result_file(p, data)
+
+        def go(c: Connection) -> IngestReport:
+            sid, name = self._sid(c)
+            seen = c.execute(
+                select(IngestedFileRow.id).where(IngestedFileRow.study_id == sid, IngestedFileRow.digest == digest)
+            ).scalar()
+            if seen is not None:
+                return IngestReport(str(p), len(lines), True)
+            rep = store_results(c, sid, name, lines, replace=replace, source=f"file:{digest[:16]}")
+            c.execute(
+                insert(IngestedFileRow).values(
+                    study_id=sid, digest=digest, path=str(p), rows=len(lines), ingested_at=time.time()
+                )
+            )
+            return IngestReport(str(p), len(lines), False, rep.stored, rep.unchanged, rep.replaced)
+
+        return self._tx(go)
+
+    # ------------------------------------------------------------------ reading
+
+    def runs(self, statuses: Sequence[str] | None = None) -> pd.DataFrame:
+        """Runs of the study with their subset: columns key, arm, role, task, size, seed,
+        replicate, status, worker, lease_expires, attempts, message, subset_file, subset_digest."""
+
+        def go(c: Connection) -> pd.DataFrame:
+            sid, _ = self._sid(c)
+            q = (
+                select(
+                    RunRow.key, ArmRow.name, ArmRow.role, TaskRow.name, RunRow.size, RunRow.seed,
+                    RunRow.replicate, RunRow.status, RunRow.worker, RunRow.lease_expires, RunRow.attempts,
+                    RunRow.message, SubsetRow.ids_path, SubsetRow.digest,
+                )
+                .join(ArmRow, ArmRow.id == RunRow.arm_id)
+                .join(TaskRow, TaskRow.id == RunRow.task_id)
+                .join(SubsetRow, SubsetRow.id == RunRow.subset_id)
+                .where(RunRow.study_id == sid)
+                .order_by(RunRow.id)
+            )
+            if statuses is not None:
+                q = q.where(RunRow.status.in_(list(statuses)))
+            return pd.DataFrame(
+                c.execute(q).all(),
+                columns=[
+                    "key", "arm", "role", "task", "size", "seed", "replicate", "status", "worker",
+                    "lease_expires", "attempts", "message", "subset_file", "subset_digest",
+                ],
+            )
+
+        return self._tx(go)
+
+    def results(self) -> pd.DataFrame:
+        """One row per result. Columns: study, run, arm, role, task, group, size, seed,
+        replicate, metric, step (NaN for the final evaluation), value, n_values,
+        subset_digest, budget (JSON text or None), recorded_at (UTC timestamp)."""
+
+        def go(c: Connection) -> pd.DataFrame:
+            sid, name = self._sid(c)
+            rows = c.execute(
+                select(
+                    RunRow.key, ArmRow.name, ArmRow.role, TaskRow.name, TaskRow.grp, RunRow.size,
+                    RunRow.seed, RunRow.replicate, ResultRow.metric, ResultRow.step, ResultRow.value,
+                    ResultRow.n_values, ResultRow.subset_digest, ResultRow.budget_json, ResultRow.recorded_at,
+                )
+                .join(RunRow, RunRow.id == ResultRow.run_id)
+                .join(ArmRow, ArmRow.id == RunRow.arm_id)
+                .join(TaskRow, TaskRow.id == RunRow.task_id)
+                .where(RunRow.study_id == sid)
+                .order_by(RunRow.id, ResultRow.metric, ResultRow.step)
+            ).all()
+            frame = pd.DataFrame(rows, columns=RESULT_COLUMNS[1:])
+            frame.insert(0, "study", name)
+            frame["step"] = frame["step"].astype("Int64").mask(frame["step"] == FINAL_STEP)
+            frame["recorded_at"] = pd.to_datetime(frame["recorded_at"], unit="s", utc=True)
+            return frame
+
+        return self._tx(go)
+
+    def counts(self) -> dict[str, int]:
+        """How many runs have each status."""
+
+        def go(c: Connection) -> dict[str, int]:
+            sid, _ = self._sid(c)
+            got = dict(
+                c.execute(
+                    select(RunRow.status, func.count()).where(RunRow.study_id == sid).group_by(RunRow.status)
+                ).all()
+            )
+            return {s: int(got.get(s, 0)) for s in ("planned", "running", "done", "failed")}
+
+        return self._tx(go)
+
+    def study_row(self) -> dict[str, Any]:
+        """The selected study's stored settings."""
+
+        def go(c: Connection) -> dict[str, Any]:
+            sid, _ = self._sid(c)
+            r = c.execute(select(StudyRow).where(StudyRow.id == sid)).one()
+            return {"name": r.name, "metric": r.metric, "higher_is_better": r.higher_is_better,
+                    "replicates": r.replicates, "baseline": r.baseline}
+
+        return self._tx(go)
+
+
+def _check_worker(worker: str) -> None:
+    if not isinstance(worker, str) or not worker.strip() or len(worker) > 200:
+        raise FewshotError("worker must be a non-empty name of at most 200 characters, e.g. the host name.")
+
+
+def expand_result_paths(paths: Iterable[str | Path]) -> list[Path]:
+    """Files as given, and every .jsonl/.csv file below each folder (sorted)."""
+    out: list[Path] = []
+    for raw in paths:
+        p = Path(raw)
+        if p.is_dir():
+            found = sorted(q for q in p.rglob("*") if q.is_file() and q.suffix.lower() in (".jsonl", ".csv"))
+            out.extend(found)
+        elif p.exists():
+            out.append(p)
+        else:
+            raise ResultFileError(f"{p}: no such results file or folder. Check the path.")
+    return out

@@ -1,0 +1,165 @@
+"""Where the ledger is, how to connect to it, and bringing its schema up to date.
+
+SQLite ledgers use WAL, a busy timeout and ``BEGIN IMMEDIATE`` for every
+transaction, so many processes on one machine can write at once and a claim is
+atomic. PostgreSQL ledgers are reached through psycopg 3; claims there use
+``FOR UPDATE SKIP LOCKED``.
+"""
+
+from __future__ import annotations
+
+import os
+import random
+import time
+from collections.abc import Callable
+from importlib import resources
+from pathlib import Path
+from typing import TypeVar
+
+from alembic import command
+from alembic.config import Config
+from alembic.runtime.migration import MigrationContext
+from alembic.script import ScriptDirectory
+from sqlalchemy import Engine, create_engine, event
+from sqlalchemy.engine import make_url
+from sqlalchemy.exc import ArgumentError, OperationalError
+
+from fewshot.errors import FewshotError
+
+__all__ = [
+    "LedgerError",
+    "resolve_url",
+    "mask_url",
+    "make_engine",
+    "upgrade_schema",
+    "retry_locked",
+    "DEFAULT_LEDGER",
+]
+
+DEFAULT_LEDGER = "fewshot.sqlite"
+T = TypeVar("T")
+
+
+class LedgerError(FewshotError, RuntimeError):
+    """The ledger cannot be opened or used as asked."""
+
+
+def resolve_url(ledger: str | os.PathLike[str] | None = None) -> str:
+    """The ledger's SQLAlchemy URL: ``ledger``, else ``$FEWSHOT_LEDGER``, else ``fewshot.sqlite``.
+
+    A plain path means a SQLite file; ``postgresql://`` URLs get the psycopg 3 driver.
+    """
+    value = str(ledger) if ledger is not None else os.environ.get("FEWSHOT_LEDGER") or DEFAULT_LEDGER
+    if "://" not in value:
+        return f"sqlite:///{Path(value).expanduser().resolve()}"
+    if value.startswith("postgresql://") or value.startswith("postgres://"):
+        value = "postgresql+psycopg://" + value.split("://", 1)[1]
+    try:
+        make_url(value)
+    except ArgumentError:
+        raise LedgerError(f"ledger URL {mask_url(value)!r} is not a valid database URL.") from None
+    return value
+
+
+def mask_url(url: str) -> str:
+    """The URL with its password replaced by ``***``, for every message and table."""
+    try:
+        return make_url(url).render_as_string(hide_password=True)
+    except ArgumentError:
+        if "@" in url and "://" in url:
+            scheme, rest = url.split("://", 1)
+            return f"{scheme}://***@{rest.rsplit('@', 1)[1]}"
+        return url
+
+
+def make_engine(url: str) -> Engine:
+    """An engine for the ledger at ``url`` with the settings concurrency needs."""
+    parsed = make_url(url)
+    if parsed.get_backend_name() == "sqlite":
+        path = parsed.database
+        if path and path != ":memory:" and not Path(path).parent.exists():
+            raise LedgerError(
+                f"ledger folder {Path(path).parent} does not exist. Create it or pick another --ledger."
+            )
+        engine = create_engine(url, connect_args={"timeout": 60})
+
+        @event.listens_for(engine, "connect")
+        def _sqlite_connect(dbapi_conn, _record):  # type: ignore[no-untyped-def]
+            dbapi_conn.isolation_level = None  # we emit BEGIN ourselves, below
+            cur = dbapi_conn.cursor()
+            cur.execute("PRAGMA journal_mode=WAL")
+            cur.execute("PRAGMA busy_timeout=60000")
+            cur.execute("PRAGMA foreign_keys=ON")
+            cur.close()
+
+        @event.listens_for(engine, "begin")
+        def _sqlite_begin(conn):  # type: ignore[no-untyped-def]
+            conn.exec_driver_sql("BEGIN IMMEDIATE")
+
+        return engine
+    try:
+        return create_engine(url, pool_pre_ping=True)
+    except ModuleNotFoundError as exc:
+        raise LedgerError(
+            f"the ledger URL {mask_url(url)!r} needs the database driver {exc.name!r}. "
+            "Install it with: pip install 'fewshot[postgres]'."
+        ) from None
+
+
+def _alembic_config() -> Config:
+    cfg = Config()
+    cfg.set_main_option("script_location", str(resources.files("fewshot.migrations")))
+    return cfg
+
+
+def head_revision() -> str:
+    """The newest schema revision this fewshot knows."""
+    head = ScriptDirectory.from_config(_alembic_config()).get_current_head()
+    assert head is not None
+    return head
+
+
+def upgrade_schema(engine: Engine, *, revision: str = "head") -> None:
+    """Bring the ledger's schema to ``revision`` (default: the newest), in one transaction.
+
+    A ledger whose revision this fewshot does not know was written by a newer version:
+    it is refused and left untouched.
+    """
+    cfg = _alembic_config()
+    script = ScriptDirectory.from_config(cfg)
+    known = {rev.revision for rev in script.walk_revisions()}
+
+    def _do() -> None:
+        with engine.begin() as conn:
+            current = MigrationContext.configure(conn).get_current_revision()
+            if current is not None and current not in known:
+                raise LedgerError(
+                    f"the ledger {mask_url(str(engine.url))} has schema revision {current!r}, which "
+                    "this fewshot does not know: it was written by a newer fewshot. Upgrade fewshot "
+                    "(pip install -U fewshot); the ledger was not changed."
+                )
+            if current == script.get_current_head() and revision == "head":
+                return
+            cfg.attributes["connection"] = conn
+            command.upgrade(cfg, revision)
+
+    try:
+        retry_locked(_do)
+    except OperationalError as exc:
+        raise LedgerError(
+            f"cannot open the ledger {mask_url(str(engine.url))}: {exc.orig}. "
+            "Check the URL, the server and your credentials."
+        ) from None
+
+
+def retry_locked(fn: Callable[[], T], *, attempts: int = 30) -> T:
+    """Call ``fn``, retrying with backoff while SQLite says the database is locked or busy."""
+    for k in range(attempts):
+        try:
+            return fn()
+        except OperationalError as exc:
+            text = str(exc.orig).lower()
+            if ("locked" not in text and "busy" not in text) or k == attempts - 1:
+                raise
+            time.sleep(min(2.0, 0.02 * 2**k) * (0.5 + random.random()))
+    raise AssertionError("unreachable")

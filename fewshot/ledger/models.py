@@ -1,0 +1,148 @@
+"""The ledger's tables as SQLAlchemy 2.x models.
+
+Times are seconds since the epoch (UTC) as floats, so SQLite and PostgreSQL compare
+them the same way. A result's ``step`` is ``-1`` for the final evaluation (a
+trainer's ``step: null``), so that (run, metric, step) can be a plain unique key.
+Every change here needs an Alembic revision in ``migrations/versions/``.
+"""
+
+from __future__ import annotations
+
+from sqlalchemy import (
+    Boolean,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+FINAL_STEP = -1
+
+
+class Base(DeclarativeBase):
+    pass
+
+
+class StudyRow(Base):
+    __tablename__ = "study"
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(64), unique=True)
+    metric: Mapped[str] = mapped_column(String(200))
+    higher_is_better: Mapped[bool] = mapped_column(Boolean)
+    replicates: Mapped[int] = mapped_column(Integer)
+    baseline: Mapped[str] = mapped_column(String(64))
+    spec_json: Mapped[str] = mapped_column(Text)
+    created_at: Mapped[float] = mapped_column(Float)
+
+
+class ArmRow(Base):
+    __tablename__ = "arm"
+    __table_args__ = (UniqueConstraint("study_id", "name"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    study_id: Mapped[int] = mapped_column(ForeignKey("study.id"))
+    name: Mapped[str] = mapped_column(String(64))
+    role: Mapped[str] = mapped_column(String(16))
+    checkpoint: Mapped[str | None] = mapped_column(Text, nullable=True)
+    zero_shot: Mapped[bool] = mapped_column(Boolean)
+    attributes_json: Mapped[str] = mapped_column(Text)
+
+
+class TaskRow(Base):
+    __tablename__ = "task"
+    __table_args__ = (UniqueConstraint("study_id", "name"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    study_id: Mapped[int] = mapped_column(ForeignKey("study.id"))
+    name: Mapped[str] = mapped_column(String(64))
+    pool_file: Mapped[str] = mapped_column(Text)
+    pool_digest: Mapped[str] = mapped_column(String(64))
+    lineage_json: Mapped[str] = mapped_column(Text)
+    floor: Mapped[float | None] = mapped_column(Float, nullable=True)
+    expert: Mapped[float | None] = mapped_column(Float, nullable=True)
+    grp: Mapped[str | None] = mapped_column(String(64), nullable=True)
+
+
+class DrawRow(Base):
+    """A seed's draw order (up to the largest size) and reserved ids, as JSON lists."""
+
+    __tablename__ = "draw"
+    __table_args__ = (UniqueConstraint("task_id", "seed"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    task_id: Mapped[int] = mapped_column(ForeignKey("task.id"))
+    seed: Mapped[int] = mapped_column(Integer)
+    order_json: Mapped[str] = mapped_column(Text)
+    reserve_json: Mapped[str] = mapped_column(Text)
+
+
+class SubsetRow(Base):
+    __tablename__ = "subset"
+    __table_args__ = (UniqueConstraint("task_id", "seed", "size"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    task_id: Mapped[int] = mapped_column(ForeignKey("task.id"))
+    seed: Mapped[int] = mapped_column(Integer)
+    size: Mapped[int] = mapped_column(Integer)
+    digest: Mapped[str] = mapped_column(String(64))
+    ids_path: Mapped[str] = mapped_column(Text)
+
+
+class RunRow(Base):
+    __tablename__ = "run"
+    __table_args__ = (
+        UniqueConstraint("study_id", "key"),
+        Index("ix_run_claim", "study_id", "status", "lease_expires"),
+    )
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    study_id: Mapped[int] = mapped_column(ForeignKey("study.id"))
+    key: Mapped[str] = mapped_column(String(300))
+    arm_id: Mapped[int] = mapped_column(ForeignKey("arm.id"))
+    task_id: Mapped[int] = mapped_column(ForeignKey("task.id"))
+    subset_id: Mapped[int] = mapped_column(ForeignKey("subset.id"))
+    size: Mapped[int] = mapped_column(Integer)
+    seed: Mapped[int] = mapped_column(Integer)
+    replicate: Mapped[int] = mapped_column(Integer)
+    status: Mapped[str] = mapped_column(String(16))
+    worker: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    lease_expires: Mapped[float | None] = mapped_column(Float, nullable=True)
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    message: Mapped[str | None] = mapped_column(Text, nullable=True)
+    created_at: Mapped[float] = mapped_column(Float)
+    started_at: Mapped[float | None] = mapped_column(Float, nullable=True)
+    finished_at: Mapped[float | None] = mapped_column(Float, nullable=True)
+
+
+class ResultRow(Base):
+    __tablename__ = "result"
+    __table_args__ = (UniqueConstraint("run_id", "metric", "step"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    run_id: Mapped[int] = mapped_column(ForeignKey("run.id"))
+    metric: Mapped[str] = mapped_column(String(200))
+    step: Mapped[int] = mapped_column(Integer)
+    value: Mapped[float] = mapped_column(Float)
+    n_values: Mapped[int] = mapped_column(Integer)
+    subset_digest: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    budget_json: Mapped[str | None] = mapped_column(Text, nullable=True)
+    recorded_at: Mapped[float] = mapped_column(Float)
+    source: Mapped[str | None] = mapped_column(String(80), nullable=True)
+
+
+class ResultValueRow(Base):
+    """Per-episode evaluation values behind a result."""
+
+    __tablename__ = "result_value"
+    result_id: Mapped[int] = mapped_column(ForeignKey("result.id"), primary_key=True)
+    idx: Mapped[int] = mapped_column(Integer, primary_key=True)
+    value: Mapped[float] = mapped_column(Float)
+
+
+class IngestedFileRow(Base):
+    __tablename__ = "ingested_file"
+    __table_args__ = (UniqueConstraint("study_id", "digest"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    study_id: Mapped[int] = mapped_column(ForeignKey("study.id"))
+    digest: Mapped[str] = mapped_column(String(64))
+    path: Mapped[str] = mapped_column(Text)
+    rows: Mapped[int] = mapped_column(Integer)
+    ingested_at: Mapped[float] = mapped_column(Float)

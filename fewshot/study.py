@@ -1,0 +1,409 @@
+"""Study files: parse and validate a study TOML into frozen dataclasses, and expand its runs.
+
+Every error names the file, the key and, where it can be found, the line. Unknown
+keys are refused with the nearest known key as a suggestion. Paths in a study
+file are relative to the file.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+import tomllib
+from collections.abc import Iterator, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from fewshot.errors import FewshotError, InvalidInput
+from fewshot.names import check_name
+from fewshot.sampling import MAX_SEED
+from fewshot.taskdraw import DrawSpec
+
+__all__ = ["Arm", "Task", "Study", "RunSpec", "StudyError", "load_study", "run_key"]
+
+
+class StudyError(FewshotError, ValueError):
+    """A study file is malformed or breaks a rule."""
+
+
+@dataclass(frozen=True)
+class Arm:
+    """One condition of the study.
+
+    Attributes
+    ----------
+    name : str
+    role : str
+        ``"pretrained"`` or ``"baseline"``.
+    checkpoint : str or None
+        Where the arm's starting weights are (free text for the trainer).
+    zero_shot : bool
+        Whether size 0 (no fine-tuning) is planned for this arm.
+    attributes : mapping of str to float
+        Free numbers, e.g. a parameter count for a scaling view.
+    """
+
+    name: str
+    role: str
+    checkpoint: str | None = None
+    zero_shot: bool = False
+    attributes: Mapping[str, float] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Task:
+    """A held-out target task and how its subsets are drawn.
+
+    Attributes
+    ----------
+    name : str
+    pool : pathlib.Path
+        The pool file (absolute, resolved against the study file).
+    id_column, keep_top, rank_by, lowest_first, stratify_by, allocation, reserve, exclude
+        Draw settings (see :class:`fewshot.taskdraw.DrawSpec`).
+    floor, expert : float or None
+        Reference scores for normalised scores.
+    group : str or None
+        Task group for aggregates.
+    """
+
+    name: str
+    pool: Path
+    id_column: str = "id"
+    keep_top: int | None = None
+    rank_by: str | None = None
+    lowest_first: bool = False
+    stratify_by: str | None = None
+    allocation: str = "proportional"
+    reserve: int = 0
+    exclude: Path | None = None
+    floor: float | None = None
+    expert: float | None = None
+    group: str | None = None
+
+    def draw_spec(self, sizes: tuple[int, ...], seeds: tuple[int, ...]) -> DrawSpec:
+        """The sampler's settings for this task."""
+        return DrawSpec(
+            task=self.name,
+            pool=self.pool,
+            sizes=sizes,
+            seeds=seeds,
+            id_column=self.id_column,
+            keep_top=self.keep_top,
+            rank_by=self.rank_by,
+            lowest_first=self.lowest_first,
+            stratify_by=self.stratify_by,
+            allocation=self.allocation,
+            reserve=self.reserve,
+            exclude=self.exclude,
+        )
+
+
+@dataclass(frozen=True)
+class RunSpec:
+    """One planned fine-tuning run: (arm, task, size, seed, replicate).
+
+    Attributes
+    ----------
+    key : str
+        ``arm/task/n<size>/s<seed>`` (``/r<replicate>`` when the study has replicates).
+    """
+
+    key: str
+    arm: str
+    task: str
+    size: int
+    seed: int
+    replicate: int
+
+
+def run_key(arm: str, task: str, size: int, seed: int, replicate: int, replicates: int) -> str:
+    """The run key of DESIGN.md: ``arm/task/n<size>/s<seed>[/r<replicate>]``."""
+    key = f"{arm}/{task}/n{size}/s{seed}"
+    return f"{key}/r{replicate}" if replicates > 1 else key
+
+
+@dataclass(frozen=True)
+class Study:
+    """A parsed study file.
+
+    Attributes
+    ----------
+    name, metric, higher_is_better, sizes, seeds, replicates, baseline
+        As in the file; sizes and seeds are sorted.
+    arms, tasks : tuple
+    path : pathlib.Path
+        The study file.
+    draws_dir : pathlib.Path
+        Where subset id files are written (``draws/<study>`` beside the file by default).
+    """
+
+    name: str
+    metric: str
+    higher_is_better: bool
+    sizes: tuple[int, ...]
+    seeds: tuple[int, ...]
+    replicates: int
+    baseline: str
+    arms: tuple[Arm, ...]
+    tasks: tuple[Task, ...]
+    path: Path
+    draws_dir: Path
+
+    def arm(self, name: str) -> Arm:
+        """The arm called ``name``."""
+        return next(a for a in self.arms if a.name == name)
+
+    def task(self, name: str) -> Task:
+        """The task called ``name``."""
+        return next(t for t in self.tasks if t.name == name)
+
+    def runs(self) -> Iterator[RunSpec]:
+        """Every planned run: arms × tasks × sizes × seeds × replicates (size 0 only for zero-shot arms)."""
+        for arm in self.arms:
+            for task in self.tasks:
+                for size in self.sizes:
+                    if size == 0 and not arm.zero_shot:
+                        continue
+                    for seed in self.seeds:
+                        for r in range(self.replicates):
+                            yield RunSpec(
+                                run_key(arm.name, task.name, size, seed, r, self.replicates),
+                                arm.name,
+                                task.name,
+                                size,
+                                seed,
+                                r,
+                            )
+
+
+# --------------------------------------------------------------------------- parsing
+
+_TOP = {
+    "name", "metric", "higher_is_better", "sizes", "seeds", "replicates", "baseline", "arms",
+    "tasks", "draws_dir", "description",
+}
+_ARM = {"name", "role", "checkpoint", "zero_shot", "attributes"}
+_TASK = {
+    "name", "pool", "id_column", "keep_top", "rank_by", "lowest_first", "stratify_by",
+    "allocation", "reserve", "exclude", "floor", "expert", "group",
+}
+
+
+class _Where:
+    """Finds the line of a key in the file's text, for messages TOML's parser cannot give."""
+
+    def __init__(self, path: Path, text: str) -> None:
+        self.path = path
+        self.lines = text.splitlines()
+
+    def line(self, key: str, table: str | None = None, index: int = 0) -> int | None:
+        current, seen = None, -1
+        pattern = re.compile(rf"^\s*{re.escape(key)}\s*=")
+        for n, raw in enumerate(self.lines, 1):
+            head = re.match(r"^\s*\[\[\s*([A-Za-z_]+)\s*\]\]", raw)
+            if head:
+                current = head.group(1)
+                if current == table:
+                    seen += 1
+                continue
+            if re.match(r"^\s*\[", raw):
+                current = "?"
+                continue
+            if current == table and (table is None or seen == index) and pattern.match(raw):
+                return n
+        return None
+
+    def error(self, message: str, key: str, table: str | None = None, index: int = 0) -> StudyError:
+        n = self.line(key, table, index)
+        place = f"{self.path}" + (f", line {n}" if n else "")
+        label = key if table is None else f"{table}[{index}].{key}"
+        return StudyError(f"{place}: {label}: {message}")
+
+
+def load_study(path: str | Path) -> Study:
+    """Read and validate a study file.
+
+    Raises
+    ------
+    StudyError
+        For malformed TOML, unknown keys (with a suggestion), wrong types, invalid or
+        duplicate names, and settings that break a rule.
+    """
+    p = Path(path)
+    try:
+        raw = p.read_bytes()
+    except FileNotFoundError:
+        raise StudyError(f"{p}: study file not found. Check the path.") from None
+    except OSError as exc:
+        raise StudyError(f"{p}: cannot read the study file ({exc.strerror}).") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = raw[: exc.start].count(b"\n") + 1
+        raise StudyError(f"{p}, line {line}: not valid UTF-8. Save the study file as UTF-8.") from None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise StudyError(f"{p}: not valid TOML: {exc}.") from None
+    where = _Where(p, text)
+    return _build(doc, p.resolve().parent, p, where)
+
+
+def _unknown(doc: Mapping[str, Any], known: set[str], where: _Where, table: str | None, i: int) -> None:
+    for key in doc:
+        if key not in known:
+            near = difflib.get_close_matches(key, sorted(known), n=1, cutoff=0.5)
+            hint = f" Did you mean {near[0]!r}?" if near else f" Known keys: {', '.join(sorted(known))}."
+            raise where.error(f"unknown key.{hint}", key, table, i)
+
+
+def _get(doc, key, kind, where, table=None, i=0, *, required=False, default=None):  # type: ignore[no-untyped-def]
+    if key not in doc:
+        if required:
+            place = "the file" if table is None else f"{table}[{i}]"
+            raise StudyError(f"{where.path}: {place} needs a {key!r} key.")
+        return default
+    value = doc[key]
+    ok = {
+        "str": isinstance(value, str),
+        "bool": isinstance(value, bool),
+        "int": isinstance(value, int) and not isinstance(value, bool),
+        "num": isinstance(value, int | float) and not isinstance(value, bool),
+        "intlist": isinstance(value, list)
+        and all(isinstance(v, int) and not isinstance(v, bool) for v in value),
+        "table": isinstance(value, dict),
+        "tables": isinstance(value, list) and all(isinstance(v, dict) for v in value),
+    }[kind]
+    if not ok:
+        words = {
+            "str": "a string", "bool": "true or false", "int": "a whole number", "num": "a number",
+            "intlist": "a list of whole numbers", "table": "a table", "tables": "an array of tables",
+        }
+        raise where.error(f"must be {words[kind]}. Got {value!r}.", key, table, i)
+    if kind == "num" and not math.isfinite(value):
+        raise where.error(f"must be a finite number. Got {value!r}.", key, table, i)
+    return value
+
+
+def _named(value: str, what: str, key: str, where: _Where, table: str | None, i: int) -> str:
+    try:
+        return check_name(value, what=what)
+    except InvalidInput as exc:
+        raise where.error(str(exc), key, table, i) from None
+
+
+def _build(doc: dict[str, Any], base: Path, path: Path, where: _Where) -> Study:
+    _unknown(doc, _TOP, where, None, 0)
+    name = _named(_get(doc, "name", "str", where, required=True), "study name", "name", where, None, 0)
+    metric = _get(doc, "metric", "str", where, required=True)
+    if not metric.strip():
+        raise where.error("must not be empty.", "metric")
+    sizes = _get(doc, "sizes", "intlist", where, required=True)
+    if not sizes or any(s < 0 for s in sizes) or len(set(sizes)) != len(sizes):
+        raise where.error(
+            f"must be distinct whole numbers of 0 or more (0 = zero-shot). Got {sizes}.", "sizes"
+        )
+    seeds = _get(doc, "seeds", "intlist", where, required=True)
+    if not seeds or any(not 0 <= s <= MAX_SEED for s in seeds) or len(set(seeds)) != len(seeds):
+        raise where.error(f"must be distinct whole numbers from 0 to 2**64-1. Got {seeds}.", "seeds")
+    replicates = _get(doc, "replicates", "int", where, default=1)
+    if replicates < 1:
+        raise where.error(f"must be 1 or more. Got {replicates}.", "replicates")
+    arms = tuple(_arm(a, i, where) for i, a in enumerate(_get(doc, "arms", "tables", where, required=True)))
+    tasks = tuple(
+        _task(t, i, base, where) for i, t in enumerate(_get(doc, "tasks", "tables", where, required=True))
+    )
+    if not arms:
+        raise StudyError(f"{path}: the study needs at least one [[arms]] table.")
+    if not tasks:
+        raise StudyError(f"{path}: the study needs at least one [[tasks]] table.")
+    for label, items in (("arms", arms), ("tasks", tasks)):
+        seen: set[str] = set()
+        for i, item in enumerate(items):
+            if item.name in seen:
+                raise where.error(f"{item.name!r} is named twice; names must be unique.", "name", label, i)
+            seen.add(item.name)
+    baseline = _get(doc, "baseline", "str", where, required=True)
+    if baseline not in {a.name for a in arms}:
+        near = difflib.get_close_matches(baseline, [a.name for a in arms], n=1)
+        hint = f" Did you mean {near[0]!r}?" if near else ""
+        raise where.error(
+            f"{baseline!r} is not one of the arms ({', '.join(a.name for a in arms)}).{hint}", "baseline"
+        )
+    draws = _get(doc, "draws_dir", "str", where, default=None)
+    draws_dir = (base / draws) if draws else (base / "draws" / name)
+    return Study(
+        name=name,
+        metric=metric,
+        higher_is_better=_get(doc, "higher_is_better", "bool", where, default=True),
+        sizes=tuple(sorted(sizes)),
+        seeds=tuple(sorted(seeds)),
+        replicates=replicates,
+        baseline=baseline,
+        arms=arms,
+        tasks=tasks,
+        path=path,
+        draws_dir=draws_dir,
+    )
+
+
+def _arm(doc: dict[str, Any], i: int, where: _Where) -> Arm:
+    _unknown(doc, _ARM, where, "arms", i)
+    name = _named(_get(doc, "name", "str", where, "arms", i, required=True), "arm name", "name", where, "arms", i)
+    role = _get(doc, "role", "str", where, "arms", i, required=True)
+    if role not in ("pretrained", "baseline"):
+        raise where.error(f"must be 'pretrained' or 'baseline'. Got {role!r}.", "role", "arms", i)
+    attrs = _get(doc, "attributes", "table", where, "arms", i, default={})
+    for k, v in attrs.items():
+        if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+            raise where.error(f"attribute {k!r} must be a finite number. Got {v!r}.", "attributes", "arms", i)
+    return Arm(
+        name=name,
+        role=role,
+        checkpoint=_get(doc, "checkpoint", "str", where, "arms", i),
+        zero_shot=_get(doc, "zero_shot", "bool", where, "arms", i, default=role == "pretrained"),
+        attributes={k: float(v) for k, v in sorted(attrs.items())},
+    )
+
+
+def _task(doc: dict[str, Any], i: int, base: Path, where: _Where) -> Task:
+    _unknown(doc, _TASK, where, "tasks", i)
+    g = lambda key, kind, **kw: _get(doc, key, kind, where, "tasks", i, **kw)  # noqa: E731
+    name = _named(g("name", "str", required=True), "task name", "name", where, "tasks", i)
+    keep, rank = g("keep_top", "int"), g("rank_by", "str")
+    if (keep is None) != (rank is None):
+        key = "keep_top" if keep is not None else "rank_by"
+        raise where.error("keep_top and rank_by go together: give both or neither.", key, "tasks", i)
+    if keep is not None and keep < 1:
+        raise where.error(f"must be 1 or more. Got {keep}.", "keep_top", "tasks", i)
+    allocation = g("allocation", "str", default="proportional")
+    if allocation not in ("proportional", "equal"):
+        raise where.error(f"must be 'proportional' or 'equal'. Got {allocation!r}.", "allocation", "tasks", i)
+    reserve = g("reserve", "int", default=0)
+    if reserve < 0:
+        raise where.error(f"must be 0 or more. Got {reserve}.", "reserve", "tasks", i)
+    group = g("group", "str")
+    if group is not None:
+        group = _named(group, "group name", "group", where, "tasks", i)
+    floor, expert = g("floor", "num"), g("expert", "num")
+    if floor is not None and expert is not None and floor == expert:
+        raise where.error("floor and expert must differ (they scale normalised scores).", "expert", "tasks", i)
+    exclude = g("exclude", "str")
+    return Task(
+        name=name,
+        pool=(base / g("pool", "str", required=True)),
+        id_column=g("id_column", "str", default="id"),
+        keep_top=keep,
+        rank_by=rank,
+        lowest_first=g("lowest_first", "bool", default=False),
+        stratify_by=g("stratify_by", "str"),
+        allocation=allocation,
+        reserve=reserve,
+        exclude=(base / exclude) if exclude else None,
+        floor=None if floor is None else float(floor),
+        expert=None if expert is None else float(expert),
+        group=group,
+    )
