@@ -1,63 +1,85 @@
 """fewshot: nested training subsets, a run ledger and honest statistics for few-shot studies.
 
-The public API is re-exported here; see ``DESIGN.md`` for the words it uses.
+The public API is re-exported here and imported on first use, so that a trainer
+importing only ``fewshot.writer`` (standard library only) starts fast.
 """
+
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
 
 __version__ = "0.1.0"
 
-from fewshot.errors import (  # noqa: E402
-    DrawError,
-    FewshotError,
-    InvalidInput,
-    InvalidName,
-    ManifestError,
-    PoolError,
-)
-from fewshot.manifest import (  # noqa: E402
-    Manifest,
-    Verification,
-    load_manifest,
-    pool_matches,
-    verify_subset,
-    write_draw,
-)
-from fewshot.pools import Pool, read_pool  # noqa: E402
-from fewshot.sampling import (  # noqa: E402
-    RULE_VERSION,
-    HashedIds,
-    NestedDraw,
-    draw_nested,
-    exclude_ids,
-    keep_top,
-    subset_digest,
-)
-from fewshot.taskdraw import DrawSpec, Lineage, TaskDraw, draw_task  # noqa: E402
+_EXPORTS = {
+    "DrawError": "fewshot.errors",
+    "FewshotError": "fewshot.errors",
+    "InvalidInput": "fewshot.errors",
+    "InvalidName": "fewshot.errors",
+    "ManifestError": "fewshot.errors",
+    "PoolError": "fewshot.errors",
+    "Manifest": "fewshot.manifest",
+    "Verification": "fewshot.manifest",
+    "load_manifest": "fewshot.manifest",
+    "pool_matches": "fewshot.manifest",
+    "verify_subset": "fewshot.manifest",
+    "write_draw": "fewshot.manifest",
+    "Pool": "fewshot.pools",
+    "read_pool": "fewshot.pools",
+    "RULE_VERSION": "fewshot.sampling",
+    "HashedIds": "fewshot.sampling",
+    "NestedDraw": "fewshot.sampling",
+    "draw_nested": "fewshot.sampling",
+    "exclude_ids": "fewshot.sampling",
+    "keep_top": "fewshot.sampling",
+    "subset_digest": "fewshot.sampling",
+    "DrawSpec": "fewshot.taskdraw",
+    "Lineage": "fewshot.taskdraw",
+    "TaskDraw": "fewshot.taskdraw",
+    "draw_task": "fewshot.taskdraw",
+    "Study": "fewshot.study",
+    "Arm": "fewshot.study",
+    "Task": "fewshot.study",
+    "StudyError": "fewshot.study",
+    "load_study": "fewshot.study",
+    "Ledger": "fewshot.ledger",
+    "Claim": "fewshot.ledger",
+    "LedgerError": "fewshot.ledger",
+    "ResultRefused": "fewshot.ledger",
+    "UnknownRun": "fewshot.ledger",
+    "ResultWriter": "fewshot.writer",
+}
 
-__all__ = [
-    "__version__",
-    "RULE_VERSION",
-    "DrawError",
-    "DrawSpec",
-    "FewshotError",
-    "HashedIds",
-    "InvalidInput",
-    "InvalidName",
-    "Lineage",
-    "Manifest",
-    "ManifestError",
-    "NestedDraw",
-    "Pool",
-    "PoolError",
-    "TaskDraw",
-    "Verification",
-    "draw_nested",
-    "draw_task",
-    "exclude_ids",
-    "keep_top",
-    "load_manifest",
-    "pool_matches",
-    "read_pool",
-    "subset_digest",
-    "verify_subset",
-    "write_draw",
-]
+__all__ = ["__version__", *sorted(_EXPORTS)]
+
+
+def __getattr__(name: str) -> Any:
+    module = _EXPORTS.get(name)
+    if module is None:
+        raise AttributeError(f"module 'fewshot' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return __all__
+
+
+if TYPE_CHECKING:  # for type checkers and editors
+    from fewshot.errors import DrawError, FewshotError, InvalidInput, InvalidName, ManifestError, PoolError
+    from fewshot.ledger import Claim, Ledger, LedgerError, ResultRefused, UnknownRun
+    from fewshot.manifest import Manifest, Verification, load_manifest, pool_matches, verify_subset, write_draw
+    from fewshot.pools import Pool, read_pool
+    from fewshot.sampling import (
+        RULE_VERSION,
+        HashedIds,
+        NestedDraw,
+        draw_nested,
+        exclude_ids,
+        keep_top,
+        subset_digest,
+    )
+    from fewshot.study import Arm, Study, StudyError, Task, load_study
+    from fewshot.taskdraw import DrawSpec, Lineage, TaskDraw, draw_task
+    from fewshot.writer import ResultWriter

@@ -7,7 +7,7 @@ from typing import Annotated
 import typer
 
 from fewshot import __version__
-from fewshot.cli import draw_cmd
+from fewshot.cli import draw_cmd, results_cmd, runs_cmd, study_cmd
 from fewshot.cli.common import STATE
 
 app = typer.Typer(
@@ -43,6 +43,17 @@ def _root(
 
 app.command("draw")(draw_cmd.draw)
 app.command("verify")(draw_cmd.verify)
+app.command("check")(study_cmd.check)
+app.command("init")(study_cmd.init)
+app.command("next")(runs_cmd.next_run)
+app.command("exec", context_settings={"allow_interspersed_args": False})(runs_cmd.exec_runs)
+app.command("jobs")(runs_cmd.jobs)
+app.command("done")(runs_cmd.done)
+app.command("fail")(runs_cmd.fail)
+app.command("record")(results_cmd.record)
+app.command("ingest")(results_cmd.ingest)
+app.command("status")(results_cmd.status)
+app.command("export")(results_cmd.export)
 
 
 def main() -> None:

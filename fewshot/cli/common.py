@@ -73,3 +73,44 @@ def progress() -> Progress:
         transient=True,
         disable=not err.is_terminal,
     )
+
+
+class TableJsonCsv(StrEnum):
+    table = "table"
+    json = "json"
+    csv = "csv"
+
+
+LEDGER_HELP = "Ledger: a path or SQLAlchemy URL (default: $FEWSHOT_LEDGER, else fewshot.sqlite)."
+STUDY_HELP = "The study to use when the ledger holds more than one."
+
+_UNITS = {"s": 1, "m": 60, "h": 3600, "d": 86400}
+
+
+def duration(text: str, *, option: str) -> float:
+    """Parse ``90``, ``30s``, ``15m``, ``2h`` or ``1d`` into seconds."""
+    t = text.strip().lower()
+    unit = _UNITS.get(t[-1:], None)
+    number = t[:-1] if unit is not None else t
+    try:
+        value = float(number) * (unit or 1)
+    except ValueError:
+        raise InvalidInput(f"{option} must be a duration such as 90s, 15m, 2h or 1d. Got {text!r}.") from None
+    if not value > 0:
+        raise InvalidInput(f"{option} must be longer than zero. Got {text!r}.")
+    return value
+
+
+def open_ledger(ledger: str | None, study: str | None) -> Any:
+    """Open the ledger (imported here so that commands without a ledger start fast)."""
+    from fewshot.ledger import Ledger
+
+    return Ledger.open(ledger, study=study)
+
+
+def print_frame(frame: Any, fmt: str) -> None:
+    """A DataFrame as CSV or JSON records on stdout."""
+    if fmt == "csv":
+        sys.stdout.write(frame.to_csv(index=False))
+    else:
+        sys.stdout.write(frame.to_json(orient="records", indent=2, date_format="iso") + "\n")

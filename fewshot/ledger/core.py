@@ -34,6 +34,7 @@ from fewshot.ledger.results import (
     store_results,
 )
 from fewshot.ledger.runs import Claim, claim_run, extend_lease, find_run, finish_run
+from fewshot.ledger.status import StatusReport, summarise
 from fewshot.study import Study
 
 __all__ = ["Ledger", "IngestReport", "RESULT_COLUMNS"]
@@ -97,6 +98,11 @@ class Ledger:
     def url(self) -> str:
         """The ledger's URL with any password masked."""
         return mask_url(self._url)
+
+    @property
+    def connect_url(self) -> str:
+        """The full URL (with any password) for handing to a trainer's environment; never print it."""
+        return self._url
 
     def close(self) -> None:
         """Release the ledger's connections."""
@@ -339,6 +345,11 @@ class Ledger:
             return {s: int(got.get(s, 0)) for s in ("planned", "running", "done", "failed")}
 
         return self._tx(go)
+
+    def status(self) -> StatusReport:
+        """The study's completion: runs per arm and size by status, expired leases, failures."""
+        runs = self.runs()
+        return summarise(self.study, self.url, runs)
 
     def study_row(self) -> dict[str, Any]:
         """The selected study's stored settings."""

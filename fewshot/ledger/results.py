@@ -103,7 +103,7 @@ def check_line(
     where: str = "call",
 ) -> ResultLine:
     """Check one result's fields and return it as a :class:`ResultLine`."""
-    at = "" if where == "call" else f"{at}"
+    at = "" if where == "call" else f"{where}: "
     if not isinstance(run, str) or not run:
         raise ResultRefused(f"{at}'run' must be a run key such as 'arm/task/n10/s0'. Got {run!r}.")
     if not isinstance(metric, str) or not metric.strip() or len(metric) > 200:

@@ -1,0 +1,211 @@
+"""Results in and out: ``record``, ``ingest``, ``status`` and ``export``."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.table import Table
+
+from fewshot.cli.common import (
+    LEDGER_HELP,
+    STUDY_HELP,
+    TableJsonCsv,
+    err,
+    open_ledger,
+    out,
+    print_frame,
+    print_json,
+    progress,
+    reporting,
+)
+from fewshot.errors import InvalidInput
+
+LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
+StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
+
+
+def _pairs(items: list[str]) -> list[tuple[str, float]]:
+    pairs = []
+    for item in items:
+        name, sep, text = item.partition("=")
+        if not sep or not name:
+            raise InvalidInput(f"results are given as metric=value, e.g. return=71.5. Got {item!r}.")
+        try:
+            value = float(text)
+        except ValueError:
+            raise InvalidInput(f"{name}: {text!r} is not a number.") from None
+        if not math.isfinite(value):
+            raise InvalidInput(f"{name}: value must be a finite number. Got {text!r}.")
+        pairs.append((name, value))
+    return pairs
+
+
+def _values_file(path: Path) -> list[float]:
+    try:
+        text = path.read_text(encoding="utf-8").strip()
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InvalidInput(f"{path}: cannot read the values file ({exc}).") from None
+    try:
+        raw = json.loads(text) if text.startswith("[") else [float(x) for x in text.split()]
+        values = [float(x) for x in raw]
+    except (ValueError, TypeError):
+        raise InvalidInput(f"{path}: values must be numbers, one a line or a JSON list.") from None
+    bad = [v for v in values if not math.isfinite(v)]
+    if bad:
+        raise InvalidInput(f"{path}: values must be finite numbers. Got {bad[0]!r}.")
+    return values
+
+
+def record(
+    run: Annotated[str, typer.Argument(help="The run key, e.g. arm/task/n10/s0.")],
+    results: Annotated[list[str], typer.Argument(help="metric=value pairs, e.g. return=71.5 success=0.8.")],
+    *,
+    step: Annotated[int | None, typer.Option("--step", help="Training step of this evaluation (omit: final).")] = None,
+    values: Annotated[
+        Path | None, typer.Option("--values", help="File of per-episode values behind the (single) metric.")
+    ] = None,
+    subset_digest: Annotated[
+        str | None, typer.Option("--subset-digest", help="Digest of the subset the trainer used.")
+    ] = None,
+    replace: Annotated[bool, typer.Option("--replace", help="Overwrite a different earlier value.")] = False,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Record results of a run: all of them or none."""
+    from fewshot.ledger.results import check_line
+
+    with reporting():
+        pairs = _pairs(results)
+        if values is not None and len(pairs) != 1:
+            raise InvalidInput("--values belongs to one metric: give exactly one metric=value with it.")
+        per_episode = _values_file(values) if values is not None else None
+        lines = [
+            check_line(run, m, v, step=step, values=per_episode, subset_digest=subset_digest)
+            for m, v in pairs
+        ]
+        led = open_ledger(ledger, study)
+        rep = led.record_lines(lines, replace=replace, source="cli")
+        led.close()
+    out.print(f"{run}: {rep.stored} stored, {rep.unchanged} unchanged, {rep.replaced} replaced")
+
+
+def ingest(
+    paths: Annotated[list[Path], typer.Argument(help="JSONL or CSV results files, or folders of them.")],
+    *,
+    replace: Annotated[bool, typer.Option("--replace", help="Overwrite different earlier values.")] = False,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Ingest results files, one transaction each; a file ingested before is skipped."""
+    from fewshot.ledger.core import expand_result_paths
+
+    with reporting():
+        files = expand_result_paths(paths)
+        led = open_ledger(ledger, study)
+        reports = []
+        with progress() as bar:
+            job = bar.add_task("ingesting", total=len(files))
+            try:
+                for f in files:
+                    reports.append(led.ingest_file(f, replace=replace))
+                    bar.advance(job)
+            finally:
+                led.close()
+                if reports and len(reports) < len(files):
+                    err.print(f"{len(reports)} file(s) before the refused one were ingested")
+    stored = sum(r.stored for r in reports)
+    skipped = sum(1 for r in reports if r.skipped)
+    out.print(
+        f"{len(reports)} file(s): {stored} results stored, "
+        f"{sum(r.unchanged for r in reports)} already there, {skipped} file(s) ingested before"
+    )
+
+
+def status(
+    *,
+    fmt: Annotated[TableJsonCsv, typer.Option("--format", help="table, json or csv.")] = TableJsonCsv.table,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Completion of the study: runs per arm and size, expired leases, failed runs."""
+    with reporting():
+        led = open_ledger(ledger, study)
+        rep = led.status()
+        led.close()
+    if fmt is TableJsonCsv.csv:
+        print_frame(rep.cells, "csv")
+        return
+    if fmt is TableJsonCsv.json:
+        print_json({
+            "study": rep.study, "ledger": rep.ledger, "totals": rep.totals,
+            "cells": json.loads(rep.cells.to_json(orient="records")),
+            "expired": json.loads(rep.expired.to_json(orient="records")),
+            "failed": json.loads(rep.failed.to_json(orient="records")),
+        })
+        return
+    sizes = sorted(set(rep.cells["size"]))
+    table = Table(title=f"{rep.study}: runs done / total (running, failed)", title_justify="left")
+    table.add_column("arm")
+    for n in sizes:
+        table.add_column(f"n{n}", justify="right")
+    for arm, cells in rep.cells.groupby("arm", sort=False):
+        by = {int(c.size): c for c in cells.itertuples()}
+        row = []
+        for n in sizes:
+            c = by.get(n)
+            if c is None:
+                row.append("-")
+                continue
+            extra = "".join(
+                [f" [yellow]{c.running}r[/]" if c.running else "", f" [red]{c.failed}f[/]" if c.failed else ""]
+            )
+            row.append(f"{c.done}/{c.total}{extra}")
+        table.add_row(str(arm), *row)
+    out.print(table)
+    if len(rep.expired):
+        out.print(f"[yellow]{len(rep.expired)} run(s) with an expired lease[/] (claimable again):", markup=True)
+        for r in rep.expired.itertuples():
+            out.print(f"  {r.key}  worker {r.worker}, attempt {r.attempts}, expired {r.lease_expired_s_ago:.0f} s ago")
+    if len(rep.failed):
+        out.print(f"[red]{len(rep.failed)} failed run(s):[/]", markup=True)
+        for r in rep.failed.itertuples():
+            first = (r.message or "").strip().splitlines()
+            out.print(f"  {r.key}: {first[-1] if first else '(no message)'}")
+    t = rep.totals
+    out.print(
+        f"{t['done']} of {t['total']} runs done, {t['running']} running, {t['failed']} failed, "
+        f"{t['planned']} planned  ({rep.ledger})"
+    )
+
+
+def export(
+    *,
+    fmt: Annotated[TableJsonCsv, typer.Option("--format", help="csv or json.")] = TableJsonCsv.csv,
+    out_file: Annotated[Path | None, typer.Option("--out", help="Write to this file instead of stdout.")] = None,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Write every result as a tidy table (one row per result), the input of the statistics."""
+    with reporting():
+        if fmt is TableJsonCsv.table:
+            raise InvalidInput("export writes csv or json; use --format csv or --format json.")
+        led = open_ledger(ledger, study)
+        frame = led.results()
+        led.close()
+        if out_file is not None:
+            text = frame.to_csv(index=False) if fmt is TableJsonCsv.csv else frame.to_json(
+                orient="records", indent=2, date_format="iso")
+            tmp = out_file.with_name(out_file.name + ".tmp")
+            try:
+                tmp.write_text(text, encoding="utf-8")
+                tmp.replace(out_file)
+            except OSError as exc:
+                tmp.unlink(missing_ok=True)
+                raise InvalidInput(f"{out_file}: cannot write the export ({exc.strerror}).") from None
+            err.print(f"wrote {len(frame)} results to {out_file}")
+            return
+    print_frame(frame, fmt.value)

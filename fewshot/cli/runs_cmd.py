@@ -1,0 +1,171 @@
+"""Handing runs to workers: ``next``, ``exec``, ``jobs``, ``done`` and ``fail``."""
+
+from __future__ import annotations
+
+import shlex
+import string
+from dataclasses import asdict
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from fewshot.cli.common import (
+    LEDGER_HELP,
+    STUDY_HELP,
+    TableOrJson,
+    duration,
+    err,
+    open_ledger,
+    out,
+    print_json,
+    reporting,
+)
+from fewshot.errors import InvalidInput
+
+LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
+StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
+WorkerOpt = Annotated[str, typer.Option("--worker", help="A name for this worker, e.g. the host name.")]
+LeaseOpt = Annotated[
+    str, typer.Option("--lease", help="How long a claim holds before others may take the run (90s, 15m, 2h).")
+]
+
+
+def next_run(
+    *,
+    worker: WorkerOpt,
+    lease: LeaseOpt = "2h",
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+    fmt: Annotated[TableOrJson, typer.Option("--format", help="Print as text or JSON.")] = TableOrJson.table,
+) -> None:
+    """Claim one planned run (or one whose lease expired) and print it; exit 1 when none is left."""
+    with reporting():
+        seconds = duration(lease, option="--lease")
+        led = open_ledger(ledger, study)
+        claim = led.claim(worker, seconds)
+        led.close()
+    if claim is None:
+        err.print("no run to claim: every run is done, failed or held by a live lease")
+        raise typer.Exit(1)
+    if fmt is TableOrJson.json:
+        print_json(asdict(claim))
+        return
+    for label, value in (
+        ("run", claim.key), ("arm", claim.arm), ("task", claim.task), ("size", claim.size),
+        ("seed", claim.seed), ("replicate", claim.replicate), ("subset", claim.subset_file),
+        ("digest", claim.subset_digest), ("attempt", claim.attempt),
+    ):
+        out.print(f"{label:10} {value}")
+
+
+def exec_runs(
+    command: Annotated[list[str], typer.Argument(help="The trainer command, after '--'.")],
+    *,
+    worker: WorkerOpt,
+    max_runs: Annotated[int | None, typer.Option("--max-runs", help="Stop after this many runs.")] = None,
+    lease: LeaseOpt = "2h",
+    results: Annotated[
+        Path | None,
+        typer.Option("--results", help="Folder for per-run results files (FEWSHOT_RESULTS); ingested after each run."),
+    ] = None,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Claim runs and run COMMAND for each with FEWSHOT_* set; mark each done or failed by its exit status."""
+    from fewshot.ledger.execution import run_claims
+
+    with reporting():
+        seconds = duration(lease, option="--lease")
+        led = open_ledger(ledger, study)
+        outcomes = run_claims(
+            led, worker, command, max_runs=max_runs, lease=seconds, results_dir=results,
+            ledger_url=led.connect_url,
+            on_start=lambda c: err.print(f"[dim]start[/] {c.key} (attempt {c.attempt})", markup=True),
+            on_end=lambda o: err.print(
+                f"[{'green' if o.status == 'done' else 'red'}]{o.status}[/] {o.key} "
+                f"in {o.seconds:.1f} s" + (f", {o.ingested} results" if o.ingested else ""),
+                markup=True,
+            ),
+        )
+        led.close()
+    failed = sum(1 for o in outcomes if o.status != "done")
+    out.print(f"{len(outcomes)} runs: {len(outcomes) - failed} done, {failed} failed")
+    if failed:
+        raise typer.Exit(1)
+
+
+PLACEHOLDERS = ("run", "arm", "task", "size", "seed", "replicate", "subset", "digest", "ledger", "study")
+
+
+def _template_fields(template: str) -> list[str]:
+    try:
+        fields = [f for _, f, _, _ in string.Formatter().parse(template) if f is not None]
+    except ValueError as exc:
+        raise InvalidInput(f"--template is not a valid template ({exc}). Use {{run}}, {{subset}}, ...") from None
+    unknown = sorted({f for f in fields if f not in PLACEHOLDERS})
+    if unknown or "" in fields:
+        bad = ", ".join("{" + f + "}" for f in unknown) or "{}"
+        raise InvalidInput(
+            f"--template has unknown placeholder(s) {bad}. Known: {', '.join('{' + p + '}' for p in PLACEHOLDERS)}."
+        )
+    return fields
+
+
+def jobs(
+    *,
+    template: Annotated[str, typer.Option("--template", help="A command line with {run}, {subset}, {seed}, ...")],
+    include_failed: Annotated[bool, typer.Option("--include-failed", help="Also list failed runs.")] = False,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Print one command line per pending run, for any scheduler (values are shell-quoted)."""
+    with reporting():
+        fields = _template_fields(template)
+        led = open_ledger(ledger, study)
+        if "ledger" in fields and led.url != led.connect_url:
+            raise InvalidInput(
+                "the ledger URL holds a password, which {ledger} would print into every job line. "
+                "Drop {ledger} and give trainers the URL through FEWSHOT_LEDGER instead."
+            )
+        statuses = ["planned", "failed"] if include_failed else ["planned"]
+        runs = led.runs(statuses)
+        name = led.study
+        url = led.connect_url
+        led.close()
+    for r in runs.itertuples():
+        values = {
+            "run": r.key, "arm": r.arm, "task": r.task, "size": r.size, "seed": r.seed,
+            "replicate": r.replicate, "subset": r.subset_file, "digest": r.subset_digest,
+            "ledger": url, "study": name,
+        }
+        typer.echo(template.format(**{k: shlex.quote(str(v)) for k, v in values.items()}))
+
+
+def done(
+    run: Annotated[str, typer.Argument(help="The run key, e.g. arm/task/n10/s0.")],
+    *,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Mark a run done."""
+    with reporting():
+        led = open_ledger(ledger, study)
+        led.done(run)
+        led.close()
+    out.print(f"done {run}")
+
+
+def fail(
+    run: Annotated[str, typer.Argument(help="The run key, e.g. arm/task/n10/s0.")],
+    *,
+    message: Annotated[str, typer.Option("--message", help="Why it failed.")],
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Mark a run failed, with a message."""
+    with reporting():
+        led = open_ledger(ledger, study)
+        led.fail(run, message)
+        led.close()
+    out.print(f"failed {run}")

@@ -1,0 +1,91 @@
+"""``fewshot check`` and ``fewshot init``: validate a study file, plan it into a ledger."""
+
+from __future__ import annotations
+
+from contextlib import nullcontext
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.table import Table
+
+from fewshot.cli.common import LEDGER_HELP, TableOrJson, err, open_ledger, out, print_json, reporting
+from fewshot.ledger.planning import draw_all
+from fewshot.study import Study, load_study
+
+
+def _plan_table(study: Study) -> Table:
+    table = Table(title=f"runs of {study.name}", title_justify="left")
+    table.add_column("arm")
+    table.add_column("task")
+    for n in study.sizes:
+        table.add_column(f"n{n}", justify="right")
+    table.add_column("total", justify="right", style="bold")
+    counts: dict[tuple[str, str, int], int] = {}
+    for r in study.runs():
+        counts[(r.arm, r.task, r.size)] = counts.get((r.arm, r.task, r.size), 0) + 1
+    for arm in study.arms:
+        for task in study.tasks:
+            row = [counts.get((arm.name, task.name, n), 0) for n in study.sizes]
+            table.add_row(arm.name, task.name, *[str(c) if c else "-" for c in row], str(sum(row)))
+    return table
+
+
+def _plan_json(study: Study) -> dict[str, object]:
+    runs = list(study.runs())
+    return {
+        "study": study.name,
+        "arms": [a.name for a in study.arms],
+        "tasks": [t.name for t in study.tasks],
+        "sizes": list(study.sizes),
+        "seeds": list(study.seeds),
+        "replicates": study.replicates,
+        "runs": len(runs),
+        "keys": [r.key for r in runs],
+    }
+
+
+def check(
+    study_file: Annotated[Path, typer.Argument(help="The study's TOML file.")],
+    *,
+    fmt: Annotated[TableOrJson, typer.Option("--format", help="Plan as a table or JSON.")] = TableOrJson.table,
+) -> None:
+    """Validate a study file (and draw its subsets in memory), then print its plan. Touches no ledger."""
+    with reporting():
+        study = load_study(study_file)
+        draw_all(study)
+    if fmt is TableOrJson.json:
+        print_json(_plan_json(study))
+        return
+    out.print(_plan_table(study))
+    n = len(list(study.runs()))
+    out.print(
+        f"{n} runs: {len(study.arms)} arms x {len(study.tasks)} tasks x {len(study.sizes)} sizes x "
+        f"{len(study.seeds)} seeds x {study.replicates} replicate(s); size 0 only for zero-shot arms"
+    )
+    if len(study.seeds) < 3:
+        err.print(f"note: {len(study.seeds)} seed(s) per cell is too few for a confidence interval; use 3 or more")
+
+
+def init(
+    study_file: Annotated[Path, typer.Argument(help="The study's TOML file.")],
+    *,
+    ledger: Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)] = None,
+) -> None:
+    """Create or upgrade the ledger, draw every task's subsets, and plan every run not yet planned."""
+    with reporting():
+        study = load_study(study_file)
+        with err.status("drawing subsets", spinner="dots") if err.is_terminal else nullcontext():
+            led = open_ledger(ledger, study.name)
+            report = led.plan(study)
+        url = led.url
+        led.close()
+    verb = "created" if report.created else "updated"
+    out.print(f"{verb} study [bold]{report.study}[/] in {url}", markup=True)
+    if not report.created:
+        for label, items in (("arms", report.new_arms), ("tasks", report.new_tasks),
+                             ("sizes", report.new_sizes), ("seeds", report.new_seeds)):
+            if items:
+                out.print(f"  new {label}: {', '.join(map(str, items))}")
+    out.print(f"  {report.new_runs} new runs planned, {report.total_runs} in all")
+    out.print(f"  subsets and manifests in {study.draws_dir}")
