@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import csv
+import os
 from pathlib import Path
 
 import pytest
@@ -40,3 +41,87 @@ def tree_snapshot(root: Path) -> dict[str, bytes]:
     return {
         str(p.relative_to(root)): p.read_bytes() for p in sorted(root.rglob("*")) if p.is_file()
     }
+
+
+STUDY_TOML = """
+name = "mini"
+metric = "return"
+higher_is_better = true
+sizes = [0, 1, 3, 10]
+seeds = [0, 1, 2]
+baseline = "scratch"
+
+[[arms]]
+name = "wide"
+role = "pretrained"
+checkpoint = "ckpt/wide.pt"
+attributes = { params = 1e6 }
+
+[[arms]]
+name = "scratch"
+role = "baseline"
+
+[[tasks]]
+name = "reach"
+pool = "pool.csv"
+id_column = "episode"
+keep_top = 100
+rank_by = "return"
+floor = 0.0
+expert = 100.0
+group = "arm"
+"""
+
+
+def write_study(folder: Path, text: str = STUDY_TOML, pool_rows: int = 120) -> Path:
+    """A small study file with its pool in ``folder``."""
+    write_csv(
+        folder / "pool.csv",
+        ["episode", "return", "site"],
+        [[f"ep{k:03d}", f"{(k * 37) % 101}.5", "n" if k % 3 else "s"] for k in range(pool_rows)],
+    )
+    path = folder / "study.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def _reset_pg(url: str) -> None:
+    from sqlalchemy import create_engine, text
+
+    engine = create_engine(url.replace("postgresql://", "postgresql+psycopg://", 1))
+    with engine.begin() as conn:
+        conn.execute(text("DROP SCHEMA public CASCADE"))
+        conn.execute(text("CREATE SCHEMA public"))
+    engine.dispose()
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def ledger_url(request, tmp_path: Path) -> str:
+    """A fresh, empty ledger: a SQLite file, and a PostgreSQL database when FEWSHOT_TEST_PG is set.
+
+    FEWSHOT_TEST_PG must name a scratch database: each test drops and recreates its public schema.
+    """
+    if request.param == "sqlite":
+        return str(tmp_path / "ledger.sqlite")
+    url = os.environ.get("FEWSHOT_TEST_PG")
+    if not url:
+        pytest.skip("no PostgreSQL server: set FEWSHOT_TEST_PG to a scratch database URL to run these")
+    _reset_pg(url)
+    return url
+
+
+def ledger_dump(url: str) -> dict[str, list[tuple]]:
+    """Every row of every table, sorted, to compare a ledger before and after a refused call."""
+    from sqlalchemy import MetaData, create_engine, select
+
+    from fewshot.ledger.engine import resolve_url
+
+    engine = create_engine(resolve_url(url))
+    meta = MetaData()
+    meta.reflect(engine)
+    out = {}
+    with engine.connect() as conn:
+        for name, table in sorted(meta.tables.items()):
+            out[name] = sorted(conn.execute(select(table)).all(), key=repr)
+    engine.dispose()
+    return out

@@ -190,7 +190,7 @@ def _parse_csv(path: Path, text: str) -> list[ResultLine]:
     header = reader.fieldnames or []
     missing = [k for k in ("run", "metric", "value") if k not in header]
     if missing:
-        raise ResultFileError(f"{path}, line 1: the header lacks {', '.join(missing)}. Columns: {', '.join(LINE_KEYS)}.")
+        raise ResultFileError(f"{path}, line 1: the header lacks {', '.join(missing)}. Columns: {', '.join(sorted(LINE_KEYS))}.")
     unknown = set(header) - LINE_KEYS
     if unknown:
         raise ResultFileError(f"{path}, line 1: unknown column(s) {', '.join(sorted(unknown))}.")

@@ -1,0 +1,249 @@
+"""The ledger: planning and re-planning, claims and leases, the result rules, ingest."""
+
+from __future__ import annotations
+
+import json
+import time
+from pathlib import Path
+
+import pytest
+
+from fewshot.ledger import Ledger, LedgerError, ResultFileError, ResultRefused, StudyChangeRefused, UnknownRun
+from fewshot.manifest import load_manifest, verify_subset
+from fewshot.sampling import subset_digest
+from fewshot.study import load_study
+from tests.conftest import STUDY_TOML, ledger_dump, write_study
+
+
+@pytest.fixture
+def planned(tmp_path: Path, ledger_url: str) -> tuple[Ledger, Path]:
+    study_file = write_study(tmp_path)
+    led = Ledger.open(ledger_url)
+    led.plan(load_study(study_file))
+    yield led, study_file
+    led.close()
+
+
+def test_plan_draws_subsets_and_plans_every_run(planned):
+    led, study_file = planned
+    runs = led.runs()
+    assert len(runs) == 21 and set(runs["status"]) == {"planned"}
+    assert led.study == "mini"
+    # the id files exist and match their digests and the manifest
+    manifest = load_manifest(study_file.parent / "draws" / "mini" / "reach.manifest.json")
+    for r in runs.itertuples():
+        ids = Path(r.subset_file).read_text().split()
+        assert len(ids) == r.size
+        assert subset_digest(ids) == r.subset_digest
+        assert verify_subset(manifest, ids, r.seed, r.size).matches
+    # paired design: every arm uses the same subset for a (task, seed, size)
+    same = runs[runs["size"] == 3].groupby("seed")["subset_digest"].nunique()
+    assert (same == 1).all()
+
+
+def test_replan_adds_and_refuses(planned, tmp_path: Path):
+    led, study_file = planned
+    again = led.plan(load_study(study_file))
+    assert again.new_runs == 0 and again.total_runs == 21
+    study_file.write_text(STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]").replace(
+        "sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 30]"))
+    more = led.plan(load_study(study_file))
+    assert more.new_seeds == (3,) and more.new_sizes == (30,)
+    assert more.total_runs == 5 * 4 + 4 * 4  # wide: 5 sizes x 4 seeds; scratch: 4 x 4 (no size 0)
+    assert more.new_runs == more.total_runs - 21
+    before = ledger_dump(led._url)
+    for old, new, fragment in [
+        ("keep_top = 100", "keep_top = 90", "filter changed"),
+        ('metric = "return"', 'metric = "success"', "metric changed"),
+        ('checkpoint = "ckpt/wide.pt"', 'checkpoint = "ckpt/other.pt"', "checkpoint changed"),
+        ("seeds = [0, 1, 2, 3]", "seeds = [0, 1, 2]", r"seed\(s\) 3 were planned before"),
+    ]:
+        text = STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]").replace(
+            "sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 30]").replace(old, new)
+        study_file.write_text(text)
+        with pytest.raises(StudyChangeRefused, match=fragment):
+            led.plan(load_study(study_file))
+        assert ledger_dump(led._url) == before
+
+
+def test_changed_pool_is_refused(planned):
+    led, study_file = planned
+    pool = study_file.parent / "pool.csv"
+    before = ledger_dump(led._url)
+    pool.write_text(pool.read_text().replace("ep005,", "ep005x,"))
+    with pytest.raises(StudyChangeRefused, match="pool changed since its subsets were drawn"):
+        led.plan(load_study(study_file))
+    assert ledger_dump(led._url) == before
+
+
+def test_claims_are_unique_and_leases_expire(planned):
+    led, _ = planned
+    first = led.claim("w1", lease=0.2)
+    second = led.claim("w2", lease=60)
+    assert first.key != second.key and first.attempt == 1
+    time.sleep(0.3)
+    again = led.claim("w3", lease=60)
+    assert again.key == first.key and again.attempt == 2  # the expired lease made it claimable
+    assert not led.heartbeat(first.key, "w1")  # w1 no longer holds it
+    assert led.heartbeat(again.key, "w3")
+    led.done(again.key)
+    led.fail(second.key, "out of memory\n" * 1000)
+    st = led.status()
+    assert st.totals["done"] == 1 and st.totals["failed"] == 1
+    assert len(st.failed.iloc[0]["message"]) <= 4000
+
+
+def test_claim_until_empty(planned):
+    led, _ = planned
+    keys = []
+    while (c := led.claim("w")) is not None:
+        keys.append(c.key)
+    assert len(keys) == len(set(keys)) == 21
+    assert led.claim("w") is None
+
+
+def test_result_rules(planned):
+    led, _ = planned
+    run = led.runs().iloc[3]
+    key, digest = run["key"], run["subset_digest"]
+    assert led.record(key, "return", 50.0, values=[49.0, 51.0], subset_digest=digest).stored == 1
+    assert led.record(key, "return", 50.0, values=[49.0, 51.0]).unchanged == 1
+    assert led.record(key, "return", 10.0, step=100).stored == 1  # another step is another result
+    before = ledger_dump(led._url)
+    refusals = [
+        (dict(metric="return", value=51.0), ResultRefused, "already has 'return' = 50.0"),
+        (dict(metric="return", value=50.0, values=[1.0]), ResultRefused, "already has"),
+        (dict(metric="return", value=float("nan")), ResultRefused, "finite"),
+        (dict(metric="return", value=float("inf")), ResultRefused, "finite"),
+        (dict(metric="return", value=1.0, values=[1.0, float("nan")]), ResultRefused, "values\\[1\\]"),
+        (dict(metric="x", value=1.0, subset_digest="0" * 64), ResultRefused, "other episodes"),
+        (dict(metric="x", value=1.0, subset_digest="xyz"), ResultRefused, "64 lowercase hex"),
+        (dict(metric="x", value=1.0, step=-2), ResultRefused, "step"),
+        (dict(metric="", value=1.0), ResultRefused, "metric"),
+    ]
+    for kwargs, error, fragment in refusals:
+        with pytest.raises(error, match=fragment):
+            led.record(key, **kwargs)
+        assert ledger_dump(led._url) == before
+    with pytest.raises(UnknownRun, match="no run 'wide/rech/n10/s1'. Did you mean 'wide/reach/n10/s1'"):
+        led.record("wide/rech/n10/s1", "return", 1.0)
+    assert led.record(key, "return", 51.0, replace=True).replaced == 1
+    frame = led.results()
+    final = frame[(frame["run"] == key) & frame["step"].isna()].iloc[0]
+    assert final["value"] == 51.0 and final["n_values"] == 0
+
+
+def test_results_table_columns(planned):
+    led, _ = planned
+    runs = led.runs()
+    for r in runs.itertuples():
+        led.record(r.key, "return", float(r.size), values=[1.0, 2.0], budget={"steps": 10})
+    frame = led.results()
+    assert list(frame.columns) == [
+        "study", "run", "arm", "role", "task", "group", "size", "seed", "replicate", "metric", "step",
+        "value", "n_values", "subset_digest", "budget", "recorded_at",
+    ]
+    assert len(frame) == 21 and set(frame["role"]) == {"pretrained", "baseline"}
+    assert set(frame["group"]) == {"arm"} and (frame["n_values"] == 2).all()
+    assert json.loads(frame["budget"].iloc[0]) == {"steps": 10}
+
+
+def _lines(keys: list[str], value: float = 1.0) -> str:
+    return "".join(json.dumps({"run": k, "metric": "return", "value": value}) + "\n" for k in keys)
+
+
+def test_ingest_jsonl_and_csv_idempotent(planned, tmp_path: Path):
+    led, _ = planned
+    keys = list(led.runs()["key"])
+    tmp_path = tmp_path / "results"
+    tmp_path.mkdir()
+    jl = tmp_path / "a.jsonl"
+    jl.write_text(_lines(keys[:10]) + "\n")
+    csvf = tmp_path / "b.csv"
+    csvf.write_text("run,metric,value,step,values\n" + "".join(
+        f'{k},success,0.5,,"[0.0, 1.0]"\n' for k in keys[10:15]))
+    reports = led.ingest([tmp_path])
+    assert [(Path(r.path).name, r.stored, r.skipped) for r in reports] == [("a.jsonl", 10, False),
+                                                                          ("b.csv", 5, False)]
+    assert [r.skipped for r in led.ingest([jl, csvf])] == [True, True]
+    # a new file repeating known results stores nothing new
+    again = tmp_path / "again.jsonl"
+    again.write_text(_lines(keys[:3]) + _lines(keys[15:16]))
+    rep = led.ingest_file(again)
+    assert rep.stored == 1 and rep.unchanged == 3
+    assert len(led.results()) == 16
+
+
+@pytest.mark.parametrize(
+    ("content", "fragment"),
+    [
+        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n{"run": "wide/reach/n1/s1", "metr',
+         "line 2: not valid JSON"),
+        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": NaN}\n', "finite"),
+        ('{"run": "wide/reach/n1/s0", "metric": "return"}\n', "missing 'value'"),
+        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "extra": 2}\n', "unknown field"),
+        ('{"run": "nope/reach/n1/s0", "metric": "return", "value": 1}\n', "has no run 'nope/reach/n1/s0'"),
+        ('[1, 2]\n', "must be a JSON object"),
+        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n'
+         '{"run": "wide/reach/n1/s0", "metric": "return", "value": 2}\n', "given twice with different values"),
+        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": "' + "9" * (1 << 20) + '"}\n', "characters long"),
+    ],
+)
+def test_a_bad_file_writes_nothing(planned, tmp_path: Path, content, fragment):
+    led, _ = planned
+    good = tmp_path / "good.jsonl"
+    good.write_text(_lines(["wide/reach/n3/s0"]))
+    led.ingest_file(good)
+    before = ledger_dump(led._url)
+    bad = tmp_path / "bad.jsonl"
+    bad.write_text(content)
+    with pytest.raises((ResultFileError, ResultRefused, UnknownRun)) as info:
+        led.ingest_file(bad)
+    assert fragment in str(info.value) and str(bad) in str(info.value)
+    assert ledger_dump(led._url) == before
+
+
+def test_non_utf8_and_empty_results_files(planned, tmp_path: Path):
+    led, _ = planned
+    bad = tmp_path / "bad.jsonl"
+    bad.write_bytes(b'{"run": "\xff"}\n')
+    with pytest.raises(ResultFileError, match="line 1: not valid UTF-8"):
+        led.ingest_file(bad)
+    empty = tmp_path / "empty.jsonl"
+    empty.write_text("")
+    assert led.ingest_file(empty).stored == 0
+
+
+def test_several_studies_need_a_choice(tmp_path: Path, ledger_url: str):
+    a = tmp_path / "a"
+    b = tmp_path / "b"
+    a.mkdir()
+    b.mkdir()
+    led = Ledger.open(ledger_url)
+    led.plan(load_study(write_study(a)))
+    other_text = STUDY_TOML.replace('name = "mini"', 'name = "other"').replace('name = "wide"', 'name = "deep"')
+    led.plan(load_study(write_study(b, other_text)))
+    led.close()
+    with pytest.raises(LedgerError, match=r"several studies \(mini, other\); pick one with --study"):
+        Ledger.open(ledger_url).claim("w")
+    other = Ledger.open(ledger_url, study="other")
+    assert other.claim("w").key == "deep/reach/n0/s0"
+    mini = Ledger.open(ledger_url, study="mini")
+    before = ledger_dump(ledger_url)
+    with pytest.raises(UnknownRun, match="belongs to another study in this ledger, not to 'mini'"):
+        mini.record("deep/reach/n1/s0", "return", 1.0)
+    assert ledger_dump(ledger_url) == before
+    with pytest.raises(LedgerError, match="no study 'third'"):
+        Ledger.open(ledger_url, study="third").claim("w")
+    other.close()
+    mini.close()
+
+
+def test_empty_ledger_says_what_to_do(tmp_path: Path, ledger_url: str):
+    with pytest.raises(LedgerError, match="holds no study yet. Run `fewshot init"):
+        Ledger.open(ledger_url).claim("w")
+
+
+def test_missing_ledger_folder(tmp_path: Path):
+    with pytest.raises(LedgerError, match="does not exist"):
+        Ledger.open(tmp_path / "no" / "such" / "ledger.sqlite")
