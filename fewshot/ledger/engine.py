@@ -89,6 +89,7 @@ def make_engine(url: str) -> Engine:
             cur = dbapi_conn.cursor()
             cur.execute("PRAGMA journal_mode=WAL")
             cur.execute("PRAGMA busy_timeout=60000")
+            cur.execute("PRAGMA synchronous=NORMAL")  # WAL + NORMAL: safe against crashes of the process
             cur.execute("PRAGMA foreign_keys=ON")
             cur.close()
 

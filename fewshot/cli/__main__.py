@@ -1,0 +1,5 @@
+"""``python -m fewshot.cli``: the same as the ``fewshot`` command."""
+
+from fewshot.cli.app import main
+
+main()

@@ -1,0 +1,99 @@
+"""Many processes at once: every run claimed once, every result stored once; killed ingests."""
+
+from __future__ import annotations
+
+import json
+import os
+import random
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+from fewshot.ledger import Ledger
+from fewshot.study import load_study
+from tests.conftest import STUDY_TOML, write_study
+
+WORKER = r"""
+import sys
+from fewshot.ledger import Ledger
+led = Ledger.open(sys.argv[1])
+name = sys.argv[2]
+n = 0
+while (c := led.claim(name, lease=600)) is not None:
+    led.record(c.key, "return", float(c.seed), values=[1.0, 2.0], subset_digest=c.subset_digest)
+    led.record(c.key, "return", 0.5, step=10)
+    led.record(c.key, "success", 1.0)
+    led.done(c.key)
+    print(c.key, flush=True)
+    n += 1
+led.close()
+"""
+
+
+def _big_study(folder: Path) -> Path:
+    text = (
+        STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1, 2, 3, 4, 5]")
+        .replace("seeds = [0, 1, 2]", "seeds = [" + ", ".join(map(str, range(100))) + "]")
+        .replace('role = "pretrained"', 'role = "pretrained"\nzero_shot = false')
+    )
+    return write_study(folder, text)
+
+
+def test_four_processes_claim_each_run_once(tmp_path: Path, ledger_url: str):
+    led = Ledger.open(ledger_url)
+    report = led.plan(load_study(_big_study(tmp_path)))
+    assert report.total_runs == 1000
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
+    procs = [
+        subprocess.Popen([sys.executable, "-c", WORKER, ledger_url, f"w{k}"], stdout=subprocess.PIPE,
+                         stderr=subprocess.PIPE, text=True, env=env)
+        for k in range(4)
+    ]
+    outputs = [p.communicate(timeout=300) for p in procs]
+    for p, (_, err) in zip(procs, outputs, strict=True):
+        assert p.returncode == 0, err
+        assert "locked" not in err
+    claimed = [line for out, _ in outputs for line in out.split()]
+    assert len(claimed) == 1000 and len(set(claimed)) == 1000
+    assert all(len(out.split()) > 0 for out, _ in outputs)  # every worker got some work
+    runs = led.runs()
+    assert (runs["status"] == "done").all() and (runs["attempts"] == 1).all()
+    results = led.results()
+    assert len(results) == 3000
+    assert not results.duplicated(["run", "metric", "step"]).any()
+    led.close()
+
+
+def test_killed_ingest_then_rerun_stores_each_result_once(tmp_path: Path, ledger_url: str):
+    led = Ledger.open(ledger_url)
+    led.plan(load_study(_big_study(tmp_path)))
+    keys = list(led.runs()["key"])
+    led.close()
+    results = tmp_path / "results"
+    results.mkdir()
+    expected = 0
+    for part in range(4):
+        lines = [
+            json.dumps({"run": k, "metric": "return", "value": float(i), "step": part, "values": [1.0, 2.0, 3.0]})
+            for i, k in enumerate(keys)
+        ]
+        (results / f"part{part}.jsonl").write_text("\n".join(lines) + "\n")
+        expected += len(lines)
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
+    cmd = [sys.executable, "-m", "fewshot.cli", "ingest", str(results), "--ledger", ledger_url]
+    rng = random.Random(7)
+    for _ in range(3):
+        proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        time.sleep(rng.uniform(0.3, 1.5))
+        proc.send_signal(signal.SIGKILL)
+        proc.wait()
+    done = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    led = Ledger.open(ledger_url)
+    frame = led.results()
+    assert len(frame) == expected
+    assert not frame.duplicated(["run", "metric", "step"]).any()
+    assert (frame["n_values"] == 3).all()
+    led.close()
