@@ -67,9 +67,23 @@ def __dir__() -> list[str]:
 
 
 if TYPE_CHECKING:  # for type checkers and editors
-    from fewshot.errors import DrawError, FewshotError, InvalidInput, InvalidName, ManifestError, PoolError
+    from fewshot.errors import (
+        DrawError,
+        FewshotError,
+        InvalidInput,
+        InvalidName,
+        ManifestError,
+        PoolError,
+    )
     from fewshot.ledger import Claim, Ledger, LedgerError, ResultRefused, UnknownRun
-    from fewshot.manifest import Manifest, Verification, load_manifest, pool_matches, verify_subset, write_draw
+    from fewshot.manifest import (
+        Manifest,
+        Verification,
+        load_manifest,
+        pool_matches,
+        verify_subset,
+        write_draw,
+    )
     from fewshot.pools import Pool, read_pool
     from fewshot.sampling import (
         RULE_VERSION,

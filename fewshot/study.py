@@ -182,13 +182,33 @@ class Study:
 # --------------------------------------------------------------------------- parsing
 
 _TOP = {
-    "name", "metric", "higher_is_better", "sizes", "seeds", "replicates", "baseline", "arms",
-    "tasks", "draws_dir", "description",
+    "name",
+    "metric",
+    "higher_is_better",
+    "sizes",
+    "seeds",
+    "replicates",
+    "baseline",
+    "arms",
+    "tasks",
+    "draws_dir",
+    "description",
 }
 _ARM = {"name", "role", "checkpoint", "zero_shot", "attributes"}
 _TASK = {
-    "name", "pool", "id_column", "keep_top", "rank_by", "lowest_first", "stratify_by",
-    "allocation", "reserve", "exclude", "floor", "expert", "group",
+    "name",
+    "pool",
+    "id_column",
+    "keep_top",
+    "rank_by",
+    "lowest_first",
+    "stratify_by",
+    "allocation",
+    "reserve",
+    "exclude",
+    "floor",
+    "expert",
+    "group",
 }
 
 
@@ -243,7 +263,9 @@ def load_study(path: str | Path) -> Study:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         line = raw[: exc.start].count(b"\n") + 1
-        raise StudyError(f"{p}, line {line}: not valid UTF-8. Save the study file as UTF-8.") from None
+        raise StudyError(
+            f"{p}, line {line}: not valid UTF-8. Save the study file as UTF-8."
+        ) from None
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -252,11 +274,17 @@ def load_study(path: str | Path) -> Study:
     return _build(doc, p.resolve().parent, p, where)
 
 
-def _unknown(doc: Mapping[str, Any], known: set[str], where: _Where, table: str | None, i: int) -> None:
+def _unknown(
+    doc: Mapping[str, Any], known: set[str], where: _Where, table: str | None, i: int
+) -> None:
     for key in doc:
         if key not in known:
             near = difflib.get_close_matches(key, sorted(known), n=1, cutoff=0.5)
-            hint = f" Did you mean {near[0]!r}?" if near else f" Known keys: {', '.join(sorted(known))}."
+            hint = (
+                f" Did you mean {near[0]!r}?"
+                if near
+                else f" Known keys: {', '.join(sorted(known))}."
+            )
             raise where.error(f"unknown key.{hint}", key, table, i)
 
 
@@ -279,8 +307,13 @@ def _get(doc, key, kind, where, table=None, i=0, *, required=False, default=None
     }[kind]
     if not ok:
         words = {
-            "str": "a string", "bool": "true or false", "int": "a whole number", "num": "a number",
-            "intlist": "a list of whole numbers", "table": "a table", "tables": "an array of tables",
+            "str": "a string",
+            "bool": "true or false",
+            "int": "a whole number",
+            "num": "a number",
+            "intlist": "a list of whole numbers",
+            "table": "a table",
+            "tables": "an array of tables",
         }
         raise where.error(f"must be {words[kind]}. Got {value!r}.", key, table, i)
     if kind == "num" and not math.isfinite(value):
@@ -297,7 +330,9 @@ def _named(value: str, what: str, key: str, where: _Where, table: str | None, i:
 
 def _build(doc: dict[str, Any], base: Path, path: Path, where: _Where) -> Study:
     _unknown(doc, _TOP, where, None, 0)
-    name = _named(_get(doc, "name", "str", where, required=True), "study name", "name", where, None, 0)
+    name = _named(
+        _get(doc, "name", "str", where, required=True), "study name", "name", where, None, 0
+    )
     metric = _get(doc, "metric", "str", where, required=True)
     if not metric.strip():
         raise where.error("must not be empty.", "metric")
@@ -308,13 +343,18 @@ def _build(doc: dict[str, Any], base: Path, path: Path, where: _Where) -> Study:
         )
     seeds = _get(doc, "seeds", "intlist", where, required=True)
     if not seeds or any(not 0 <= s <= MAX_SEED for s in seeds) or len(set(seeds)) != len(seeds):
-        raise where.error(f"must be distinct whole numbers from 0 to 2**64-1. Got {seeds}.", "seeds")
+        raise where.error(
+            f"must be distinct whole numbers from 0 to 2**64-1. Got {seeds}.", "seeds"
+        )
     replicates = _get(doc, "replicates", "int", where, default=1)
     if replicates < 1:
         raise where.error(f"must be 1 or more. Got {replicates}.", "replicates")
-    arms = tuple(_arm(a, i, where) for i, a in enumerate(_get(doc, "arms", "tables", where, required=True)))
+    arms = tuple(
+        _arm(a, i, where) for i, a in enumerate(_get(doc, "arms", "tables", where, required=True))
+    )
     tasks = tuple(
-        _task(t, i, base, where) for i, t in enumerate(_get(doc, "tasks", "tables", where, required=True))
+        _task(t, i, base, where)
+        for i, t in enumerate(_get(doc, "tasks", "tables", where, required=True))
     )
     if not arms:
         raise StudyError(f"{path}: the study needs at least one [[arms]] table.")
@@ -324,14 +364,17 @@ def _build(doc: dict[str, Any], base: Path, path: Path, where: _Where) -> Study:
         seen: set[str] = set()
         for i, item in enumerate(items):
             if item.name in seen:
-                raise where.error(f"{item.name!r} is named twice; names must be unique.", "name", label, i)
+                raise where.error(
+                    f"{item.name!r} is named twice; names must be unique.", "name", label, i
+                )
             seen.add(item.name)
     baseline = _get(doc, "baseline", "str", where, required=True)
     if baseline not in {a.name for a in arms}:
         near = difflib.get_close_matches(baseline, [a.name for a in arms], n=1)
         hint = f" Did you mean {near[0]!r}?" if near else ""
         raise where.error(
-            f"{baseline!r} is not one of the arms ({', '.join(a.name for a in arms)}).{hint}", "baseline"
+            f"{baseline!r} is not one of the arms ({', '.join(a.name for a in arms)}).{hint}",
+            "baseline",
         )
     draws = _get(doc, "draws_dir", "str", where, default=None)
     draws_dir = (base / draws) if draws else (base / "draws" / name)
@@ -352,14 +395,23 @@ def _build(doc: dict[str, Any], base: Path, path: Path, where: _Where) -> Study:
 
 def _arm(doc: dict[str, Any], i: int, where: _Where) -> Arm:
     _unknown(doc, _ARM, where, "arms", i)
-    name = _named(_get(doc, "name", "str", where, "arms", i, required=True), "arm name", "name", where, "arms", i)
+    name = _named(
+        _get(doc, "name", "str", where, "arms", i, required=True),
+        "arm name",
+        "name",
+        where,
+        "arms",
+        i,
+    )
     role = _get(doc, "role", "str", where, "arms", i, required=True)
     if role not in ("pretrained", "baseline"):
         raise where.error(f"must be 'pretrained' or 'baseline'. Got {role!r}.", "role", "arms", i)
     attrs = _get(doc, "attributes", "table", where, "arms", i, default={})
     for k, v in attrs.items():
         if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
-            raise where.error(f"attribute {k!r} must be a finite number. Got {v!r}.", "attributes", "arms", i)
+            raise where.error(
+                f"attribute {k!r} must be a finite number. Got {v!r}.", "attributes", "arms", i
+            )
     return Arm(
         name=name,
         role=role,
@@ -376,12 +428,16 @@ def _task(doc: dict[str, Any], i: int, base: Path, where: _Where) -> Task:
     keep, rank = g("keep_top", "int"), g("rank_by", "str")
     if (keep is None) != (rank is None):
         key = "keep_top" if keep is not None else "rank_by"
-        raise where.error("keep_top and rank_by go together: give both or neither.", key, "tasks", i)
+        raise where.error(
+            "keep_top and rank_by go together: give both or neither.", key, "tasks", i
+        )
     if keep is not None and keep < 1:
         raise where.error(f"must be 1 or more. Got {keep}.", "keep_top", "tasks", i)
     allocation = g("allocation", "str", default="proportional")
     if allocation not in ("proportional", "equal"):
-        raise where.error(f"must be 'proportional' or 'equal'. Got {allocation!r}.", "allocation", "tasks", i)
+        raise where.error(
+            f"must be 'proportional' or 'equal'. Got {allocation!r}.", "allocation", "tasks", i
+        )
     reserve = g("reserve", "int", default=0)
     if reserve < 0:
         raise where.error(f"must be 0 or more. Got {reserve}.", "reserve", "tasks", i)
@@ -390,7 +446,9 @@ def _task(doc: dict[str, Any], i: int, base: Path, where: _Where) -> Task:
         group = _named(group, "group name", "group", where, "tasks", i)
     floor, expert = g("floor", "num"), g("expert", "num")
     if floor is not None and expert is not None and floor == expert:
-        raise where.error("floor and expert must differ (they scale normalised scores).", "expert", "tasks", i)
+        raise where.error(
+            "floor and expert must differ (they scale normalised scores).", "expert", "tasks", i
+        )
     exclude = g("exclude", "str")
     return Task(
         name=name,

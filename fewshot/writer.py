@@ -68,7 +68,12 @@ class ResultWriter:
             raise ValueError(f"value of {metric!r} must be a finite number, got {value!r}")
         if values is not None and not all(math.isfinite(v) for v in values):
             raise ValueError(f"values of {metric!r} must all be finite numbers")
-        line: dict[str, Any] = {"run": self.run, "metric": metric, "value": float(value), "step": step}
+        line: dict[str, Any] = {
+            "run": self.run,
+            "metric": metric,
+            "value": float(value),
+            "step": step,
+        }
         if values is not None:
             line["values"] = [float(v) for v in values]
         if self.subset_digest:

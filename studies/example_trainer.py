@@ -49,7 +49,11 @@ def main() -> int:
     if not subset:
         print("FEWSHOT_SUBSET is not set: run me through `fewshot exec`", file=sys.stderr)
         return 2
-    ids = [line.strip() for line in Path(subset).read_text(encoding="utf-8").splitlines() if line.strip()]
+    ids = [
+        line.strip()
+        for line in Path(subset).read_text(encoding="utf-8").splitlines()
+        if line.strip()
+    ]
     score, per_episode = train_and_evaluate(ids)
     out = ResultWriter.from_env()
     out.write("return", score, values=per_episode or None, budget={"episodes": len(ids)})

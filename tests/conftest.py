@@ -105,7 +105,9 @@ def ledger_url(request, tmp_path: Path) -> str:
         return str(tmp_path / "ledger.sqlite")
     url = os.environ.get("FEWSHOT_TEST_PG")
     if not url:
-        pytest.skip("no PostgreSQL server: set FEWSHOT_TEST_PG to a scratch database URL to run these")
+        pytest.skip(
+            "no PostgreSQL server: set FEWSHOT_TEST_PG to a scratch database URL to run these"
+        )
     _reset_pg(url)
     return url
 

@@ -47,8 +47,13 @@ def test_four_processes_claim_each_run_once(tmp_path: Path, ledger_url: str):
     assert report.total_runs == 1000
     env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
     procs = [
-        subprocess.Popen([sys.executable, "-c", WORKER, ledger_url, f"w{k}"], stdout=subprocess.PIPE,
-                         stderr=subprocess.PIPE, text=True, env=env)
+        subprocess.Popen(
+            [sys.executable, "-c", WORKER, ledger_url, f"w{k}"],
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+            env=env,
+        )
         for k in range(4)
     ]
     outputs = [p.communicate(timeout=300) for p in procs]
@@ -76,7 +81,15 @@ def test_killed_ingest_then_rerun_stores_each_result_once(tmp_path: Path, ledger
     expected = 0
     for part in range(4):
         lines = [
-            json.dumps({"run": k, "metric": "return", "value": float(i), "step": part, "values": [1.0, 2.0, 3.0]})
+            json.dumps(
+                {
+                    "run": k,
+                    "metric": "return",
+                    "value": float(i),
+                    "step": part,
+                    "values": [1.0, 2.0, 3.0],
+                }
+            )
             for i, k in enumerate(keys)
         ]
         (results / f"part{part}.jsonl").write_text("\n".join(lines) + "\n")

@@ -8,7 +8,14 @@ from pathlib import Path
 
 import pytest
 
-from fewshot.ledger import Ledger, LedgerError, ResultFileError, ResultRefused, StudyChangeRefused, UnknownRun
+from fewshot.ledger import (
+    Ledger,
+    LedgerError,
+    ResultFileError,
+    ResultRefused,
+    StudyChangeRefused,
+    UnknownRun,
+)
 from fewshot.manifest import load_manifest, verify_subset
 from fewshot.sampling import subset_digest
 from fewshot.study import load_study
@@ -45,8 +52,11 @@ def test_replan_adds_and_refuses(planned, tmp_path: Path):
     led, study_file = planned
     again = led.plan(load_study(study_file))
     assert again.new_runs == 0 and again.total_runs == 21
-    study_file.write_text(STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]").replace(
-        "sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 30]"))
+    study_file.write_text(
+        STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]").replace(
+            "sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 30]"
+        )
+    )
     more = led.plan(load_study(study_file))
     assert more.new_seeds == (3,) and more.new_sizes == (30,)
     assert more.total_runs == 5 * 4 + 4 * 4  # wide: 5 sizes x 4 seeds; scratch: 4 x 4 (no size 0)
@@ -58,8 +68,11 @@ def test_replan_adds_and_refuses(planned, tmp_path: Path):
         ('checkpoint = "ckpt/wide.pt"', 'checkpoint = "ckpt/other.pt"', "checkpoint changed"),
         ("seeds = [0, 1, 2, 3]", "seeds = [0, 1, 2]", r"seed\(s\) 3 were planned before"),
     ]:
-        text = STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]").replace(
-            "sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 30]").replace(old, new)
+        text = (
+            STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]")
+            .replace("sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 30]")
+            .replace(old, new)
+        )
         study_file.write_text(text)
         with pytest.raises(StudyChangeRefused, match=fragment):
             led.plan(load_study(study_file))
@@ -115,7 +128,11 @@ def test_result_rules(planned):
         (dict(metric="return", value=50.0, values=[1.0]), ResultRefused, "already has"),
         (dict(metric="return", value=float("nan")), ResultRefused, "finite"),
         (dict(metric="return", value=float("inf")), ResultRefused, "finite"),
-        (dict(metric="return", value=1.0, values=[1.0, float("nan")]), ResultRefused, "values\\[1\\]"),
+        (
+            dict(metric="return", value=1.0, values=[1.0, float("nan")]),
+            ResultRefused,
+            "values\\[1\\]",
+        ),
         (dict(metric="x", value=1.0, subset_digest="0" * 64), ResultRefused, "other episodes"),
         (dict(metric="x", value=1.0, subset_digest="xyz"), ResultRefused, "64 lowercase hex"),
         (dict(metric="x", value=1.0, step=-2), ResultRefused, "step"),
@@ -125,7 +142,9 @@ def test_result_rules(planned):
         with pytest.raises(error, match=fragment):
             led.record(key, **kwargs)
         assert ledger_dump(led._url) == before
-    with pytest.raises(UnknownRun, match="no run 'wide/rech/n10/s1'. Did you mean 'wide/reach/n10/s1'"):
+    with pytest.raises(
+        UnknownRun, match="no run 'wide/rech/n10/s1'. Did you mean 'wide/reach/n10/s1'"
+    ):
         led.record("wide/rech/n10/s1", "return", 1.0)
     assert led.record(key, "return", 51.0, replace=True).replaced == 1
     frame = led.results()
@@ -140,8 +159,22 @@ def test_results_table_columns(planned):
         led.record(r.key, "return", float(r.size), values=[1.0, 2.0], budget={"steps": 10})
     frame = led.results()
     assert list(frame.columns) == [
-        "study", "run", "arm", "role", "task", "group", "size", "seed", "replicate", "metric", "step",
-        "value", "n_values", "subset_digest", "budget", "recorded_at",
+        "study",
+        "run",
+        "arm",
+        "role",
+        "task",
+        "group",
+        "size",
+        "seed",
+        "replicate",
+        "metric",
+        "step",
+        "value",
+        "n_values",
+        "subset_digest",
+        "budget",
+        "recorded_at",
     ]
     assert len(frame) == 21 and set(frame["role"]) == {"pretrained", "baseline"}
     assert set(frame["group"]) == {"arm"} and (frame["n_values"] == 2).all()
@@ -160,11 +193,15 @@ def test_ingest_jsonl_and_csv_idempotent(planned, tmp_path: Path):
     jl = tmp_path / "a.jsonl"
     jl.write_text(_lines(keys[:10]) + "\n")
     csvf = tmp_path / "b.csv"
-    csvf.write_text("run,metric,value,step,values\n" + "".join(
-        f'{k},success,0.5,,"[0.0, 1.0]"\n' for k in keys[10:15]))
+    csvf.write_text(
+        "run,metric,value,step,values\n"
+        + "".join(f'{k},success,0.5,,"[0.0, 1.0]"\n' for k in keys[10:15])
+    )
     reports = led.ingest([tmp_path])
-    assert [(Path(r.path).name, r.stored, r.skipped) for r in reports] == [("a.jsonl", 10, False),
-                                                                          ("b.csv", 5, False)]
+    assert [(Path(r.path).name, r.stored, r.skipped) for r in reports] == [
+        ("a.jsonl", 10, False),
+        ("b.csv", 5, False),
+    ]
     assert [r.skipped for r in led.ingest([jl, csvf])] == [True, True]
     # a new file repeating known results stores nothing new
     again = tmp_path / "again.jsonl"
@@ -177,16 +214,30 @@ def test_ingest_jsonl_and_csv_idempotent(planned, tmp_path: Path):
 @pytest.mark.parametrize(
     ("content", "fragment"),
     [
-        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n{"run": "wide/reach/n1/s1", "metr',
-         "line 2: not valid JSON"),
+        (
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n{"run": "wide/reach/n1/s1", "metr',
+            "line 2: not valid JSON",
+        ),
         ('{"run": "wide/reach/n1/s0", "metric": "return", "value": NaN}\n', "finite"),
         ('{"run": "wide/reach/n1/s0", "metric": "return"}\n', "missing 'value'"),
-        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "extra": 2}\n', "unknown field"),
-        ('{"run": "nope/reach/n1/s0", "metric": "return", "value": 1}\n', "has no run 'nope/reach/n1/s0'"),
-        ('[1, 2]\n', "must be a JSON object"),
-        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n'
-         '{"run": "wide/reach/n1/s0", "metric": "return", "value": 2}\n', "given twice with different values"),
-        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": "' + "9" * (1 << 20) + '"}\n', "characters long"),
+        (
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "extra": 2}\n',
+            "unknown field",
+        ),
+        (
+            '{"run": "nope/reach/n1/s0", "metric": "return", "value": 1}\n',
+            "has no run 'nope/reach/n1/s0'",
+        ),
+        ("[1, 2]\n", "must be a JSON object"),
+        (
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n'
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 2}\n',
+            "given twice with different values",
+        ),
+        (
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": "' + "9" * (1 << 20) + '"}\n',
+            "characters long",
+        ),
     ],
 )
 def test_a_bad_file_writes_nothing(planned, tmp_path: Path, content, fragment):
@@ -221,10 +272,14 @@ def test_several_studies_need_a_choice(tmp_path: Path, ledger_url: str):
     b.mkdir()
     led = Ledger.open(ledger_url)
     led.plan(load_study(write_study(a)))
-    other_text = STUDY_TOML.replace('name = "mini"', 'name = "other"').replace('name = "wide"', 'name = "deep"')
+    other_text = STUDY_TOML.replace('name = "mini"', 'name = "other"').replace(
+        'name = "wide"', 'name = "deep"'
+    )
     led.plan(load_study(write_study(b, other_text)))
     led.close()
-    with pytest.raises(LedgerError, match=r"several studies \(mini, other\); pick one with --study"):
+    with pytest.raises(
+        LedgerError, match=r"several studies \(mini, other\); pick one with --study"
+    ):
         Ledger.open(ledger_url).claim("w")
     other = Ledger.open(ledger_url, study="other")
     assert other.claim("w").key == "deep/reach/n0/s0"

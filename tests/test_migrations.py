@@ -9,16 +9,24 @@ from alembic.script import ScriptDirectory
 from sqlalchemy import text
 
 from fewshot.ledger import Ledger, LedgerError
-from fewshot.ledger.engine import _alembic_config, head_revision, make_engine, resolve_url, upgrade_schema
+from fewshot.ledger.engine import (
+    _alembic_config,
+    head_revision,
+    make_engine,
+    resolve_url,
+    upgrade_schema,
+)
 from fewshot.study import load_study
 from tests.conftest import ledger_dump, write_study
 
-REVISIONS = [r.revision for r in ScriptDirectory.from_config(_alembic_config()).walk_revisions()][::-1]
+REVISIONS = [r.revision for r in ScriptDirectory.from_config(_alembic_config()).walk_revisions()][
+    ::-1
+]
 
 # Rows written with plain SQL as each old revision's schema had them.
 SEED_ROWS = [
     "INSERT INTO study VALUES (1, 'old', 'return', TRUE, 1, 'scratch', '{\"sizes\": [1], \"seeds\": [0], "
-    "\"replicates\": 1, \"file\": \"x\"}', 1.0)",
+    '"replicates": 1, "file": "x"}\', 1.0)',
     "INSERT INTO arm VALUES (1, 1, 'wide', 'pretrained', NULL, FALSE, '{}')",
     "INSERT INTO arm VALUES (2, 1, 'scratch', 'baseline', NULL, FALSE, '{}')",
     "INSERT INTO task VALUES (1, 1, 'reach', 'pool.csv', 'abc', '{}', 0.0, 100.0, NULL)",

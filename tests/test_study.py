@@ -26,7 +26,9 @@ def test_parse_and_plan(tmp_path: Path):
 
 
 def test_replicates_add_a_suffix(tmp_path: Path):
-    study = load_study(write_study(tmp_path, STUDY_TOML.replace("baseline =", "replicates = 2\nbaseline =")))
+    study = load_study(
+        write_study(tmp_path, STUDY_TOML.replace("baseline =", "replicates = 2\nbaseline ="))
+    )
     keys = [r.key for r in study.runs()]
     assert len(keys) == 42 and keys[:2] == ["wide/reach/n0/s0/r0", "wide/reach/n0/s0/r1"]
     assert run_key("a", "t", 1, 2, 0, 1) == "a/t/n1/s2"
@@ -43,23 +45,44 @@ def _edit(old: str, new: str) -> str:
         ("sizez = [1]\n" + STUDY_TOML, "line 1: sizez: unknown key. Did you mean 'sizes'?"),
         (STUDY_TOML + 'name = "x"\n', "not valid TOML"),
         ("[[arms]\n" + STUDY_TOML, "not valid TOML"),
-        (_edit('role = "baseline"', 'role = "baseline"\ncheckpont = "x"'), "arms[1].checkpont: unknown key. Did you mean 'checkpoint'?"),
-        (_edit('keep_top = 100', 'keep_topp = 100'), "tasks[0].keep_topp: unknown key. Did you mean 'keep_top'?"),
+        (
+            _edit('role = "baseline"', 'role = "baseline"\ncheckpont = "x"'),
+            "arms[1].checkpont: unknown key. Did you mean 'checkpoint'?",
+        ),
+        (
+            _edit("keep_top = 100", "keep_topp = 100"),
+            "tasks[0].keep_topp: unknown key. Did you mean 'keep_top'?",
+        ),
         (_edit("sizes = [0, 1, 3, 10]", 'sizes = "1,3"'), "sizes: must be a list of whole numbers"),
         (_edit("sizes = [0, 1, 3, 10]", "sizes = [1, 1]"), "sizes: must be distinct"),
-        (_edit("sizes = [0, 1, 3, 10]", "sizes = [-1, 3]"), "sizes: must be distinct whole numbers of 0 or more"),
-        (_edit("seeds = [0, 1, 2]", "seeds = [-4]"), "seeds: must be distinct whole numbers from 0"),
-        (_edit("higher_is_better = true", 'higher_is_better = "yes"'), "higher_is_better: must be true or false"),
+        (
+            _edit("sizes = [0, 1, 3, 10]", "sizes = [-1, 3]"),
+            "sizes: must be distinct whole numbers of 0 or more",
+        ),
+        (
+            _edit("seeds = [0, 1, 2]", "seeds = [-4]"),
+            "seeds: must be distinct whole numbers from 0",
+        ),
+        (
+            _edit("higher_is_better = true", 'higher_is_better = "yes"'),
+            "higher_is_better: must be true or false",
+        ),
         (_edit('name = "scratch"', 'name = "wide"'), "arms[1].name: 'wide' is named twice"),
         (_edit('name = "wide"', 'name = "wide base"'), "arm name 'wide base' is not valid"),
         (_edit('name = "wide"', 'name = "../wide"'), "arm name '../wide' is not valid"),
         (_edit('name = "reach"', 'name = "<b>reach</b>"'), "task name '<b>reach</b>' is not valid"),
-        (_edit('baseline = "scratch"', 'baseline = "scratc"'), "'scratc' is not one of the arms (wide, scratch). Did you mean 'scratch'?"),
+        (
+            _edit('baseline = "scratch"', 'baseline = "scratc"'),
+            "'scratc' is not one of the arms (wide, scratch). Did you mean 'scratch'?",
+        ),
         (_edit('role = "pretrained"', 'role = "teacher"'), "must be 'pretrained' or 'baseline'"),
         (_edit("keep_top = 100\n", ""), "keep_top and rank_by go together"),
         (_edit("expert = 100.0", "expert = nan"), "expert: must be a finite number"),
         (_edit("expert = 100.0", "expert = 0.0"), "floor and expert must differ"),
-        (_edit("attributes = { params = 1e6 }", 'attributes = { params = "big" }'), "attribute 'params' must be a finite number"),
+        (
+            _edit("attributes = { params = 1e6 }", 'attributes = { params = "big" }'),
+            "attribute 'params' must be a finite number",
+        ),
         (_edit('metric = "return"\n', ""), "the file needs a 'metric' key"),
         (_edit('pool = "pool.csv"\n', ""), "tasks[0] needs a 'pool' key"),
         (_edit('group = "arm"', 'group = "a b"'), "group name 'a b' is not valid"),
@@ -77,7 +100,9 @@ def test_error_line_points_at_the_key(tmp_path: Path):
     text = _edit('role = "baseline"', 'role = "baseline"\nzero_shot = "no"')
     path = write_study(tmp_path, text)
     line = next(n for n, t in enumerate(text.splitlines(), 1) if t.startswith("zero_shot"))
-    with pytest.raises(StudyError, match=rf"line {line}: arms\[1\].zero_shot: must be true or false"):
+    with pytest.raises(
+        StudyError, match=rf"line {line}: arms\[1\].zero_shot: must be true or false"
+    ):
         load_study(path)
 
 

@@ -95,7 +95,9 @@ def duration(text: str, *, option: str) -> float:
     try:
         value = float(number) * (unit or 1)
     except ValueError:
-        raise InvalidInput(f"{option} must be a duration such as 90s, 15m, 2h or 1d. Got {text!r}.") from None
+        raise InvalidInput(
+            f"{option} must be a duration such as 90s, 15m, 2h or 1d. Got {text!r}."
+        ) from None
     if not value > 0:
         raise InvalidInput(f"{option} must be longer than zero. Got {text!r}.")
     return value

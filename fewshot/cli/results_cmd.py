@@ -33,7 +33,9 @@ def _pairs(items: list[str]) -> list[tuple[str, float]]:
     for item in items:
         name, sep, text = item.partition("=")
         if not sep or not name:
-            raise InvalidInput(f"results are given as metric=value, e.g. return=71.5. Got {item!r}.")
+            raise InvalidInput(
+                f"results are given as metric=value, e.g. return=71.5. Got {item!r}."
+            )
         try:
             value = float(text)
         except ValueError:
@@ -62,16 +64,23 @@ def _values_file(path: Path) -> list[float]:
 
 def record(
     run: Annotated[str, typer.Argument(help="The run key, e.g. arm/task/n10/s0.")],
-    results: Annotated[list[str], typer.Argument(help="metric=value pairs, e.g. return=71.5 success=0.8.")],
+    results: Annotated[
+        list[str], typer.Argument(help="metric=value pairs, e.g. return=71.5 success=0.8.")
+    ],
     *,
-    step: Annotated[int | None, typer.Option("--step", help="Training step of this evaluation (omit: final).")] = None,
+    step: Annotated[
+        int | None, typer.Option("--step", help="Training step of this evaluation (omit: final).")
+    ] = None,
     values: Annotated[
-        Path | None, typer.Option("--values", help="File of per-episode values behind the (single) metric.")
+        Path | None,
+        typer.Option("--values", help="File of per-episode values behind the (single) metric."),
     ] = None,
     subset_digest: Annotated[
         str | None, typer.Option("--subset-digest", help="Digest of the subset the trainer used.")
     ] = None,
-    replace: Annotated[bool, typer.Option("--replace", help="Overwrite a different earlier value.")] = False,
+    replace: Annotated[
+        bool, typer.Option("--replace", help="Overwrite a different earlier value.")
+    ] = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -81,7 +90,9 @@ def record(
     with reporting():
         pairs = _pairs(results)
         if values is not None and len(pairs) != 1:
-            raise InvalidInput("--values belongs to one metric: give exactly one metric=value with it.")
+            raise InvalidInput(
+                "--values belongs to one metric: give exactly one metric=value with it."
+            )
         per_episode = _values_file(values) if values is not None else None
         lines = [
             check_line(run, m, v, step=step, values=per_episode, subset_digest=subset_digest)
@@ -94,9 +105,13 @@ def record(
 
 
 def ingest(
-    paths: Annotated[list[Path], typer.Argument(help="JSONL or CSV results files, or folders of them.")],
+    paths: Annotated[
+        list[Path], typer.Argument(help="JSONL or CSV results files, or folders of them.")
+    ],
     *,
-    replace: Annotated[bool, typer.Option("--replace", help="Overwrite different earlier values.")] = False,
+    replace: Annotated[
+        bool, typer.Option("--replace", help="Overwrite different earlier values.")
+    ] = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -127,7 +142,9 @@ def ingest(
 
 def status(
     *,
-    fmt: Annotated[TableJsonCsv, typer.Option("--format", help="table, json or csv.")] = TableJsonCsv.table,
+    fmt: Annotated[
+        TableJsonCsv, typer.Option("--format", help="table, json or csv.")
+    ] = TableJsonCsv.table,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -140,12 +157,16 @@ def status(
         print_frame(rep.cells, "csv")
         return
     if fmt is TableJsonCsv.json:
-        print_json({
-            "study": rep.study, "ledger": rep.ledger, "totals": rep.totals,
-            "cells": json.loads(rep.cells.to_json(orient="records")),
-            "expired": json.loads(rep.expired.to_json(orient="records")),
-            "failed": json.loads(rep.failed.to_json(orient="records")),
-        })
+        print_json(
+            {
+                "study": rep.study,
+                "ledger": rep.ledger,
+                "totals": rep.totals,
+                "cells": json.loads(rep.cells.to_json(orient="records")),
+                "expired": json.loads(rep.expired.to_json(orient="records")),
+                "failed": json.loads(rep.failed.to_json(orient="records")),
+            }
+        )
         return
     sizes = sorted(set(rep.cells["size"]))
     table = Table(title=f"{rep.study}: runs done / total (running, failed)", title_justify="left")
@@ -161,15 +182,23 @@ def status(
                 row.append("-")
                 continue
             extra = "".join(
-                [f" [yellow]{c.running}r[/]" if c.running else "", f" [red]{c.failed}f[/]" if c.failed else ""]
+                [
+                    f" [yellow]{c.running}r[/]" if c.running else "",
+                    f" [red]{c.failed}f[/]" if c.failed else "",
+                ]
             )
             row.append(f"{c.done}/{c.total}{extra}")
         table.add_row(str(arm), *row)
     out.print(table)
     if len(rep.expired):
-        out.print(f"[yellow]{len(rep.expired)} run(s) with an expired lease[/] (claimable again):", markup=True)
+        out.print(
+            f"[yellow]{len(rep.expired)} run(s) with an expired lease[/] (claimable again):",
+            markup=True,
+        )
         for r in rep.expired.itertuples():
-            out.print(f"  {r.key}  worker {r.worker}, attempt {r.attempts}, expired {r.lease_expired_s_ago:.0f} s ago")
+            out.print(
+                f"  {r.key}  worker {r.worker}, attempt {r.attempts}, expired {r.lease_expired_s_ago:.0f} s ago"
+            )
     if len(rep.failed):
         out.print(f"[red]{len(rep.failed)} failed run(s):[/]", markup=True)
         for r in rep.failed.itertuples():
@@ -185,7 +214,9 @@ def status(
 def export(
     *,
     fmt: Annotated[TableJsonCsv, typer.Option("--format", help="csv or json.")] = TableJsonCsv.csv,
-    out_file: Annotated[Path | None, typer.Option("--out", help="Write to this file instead of stdout.")] = None,
+    out_file: Annotated[
+        Path | None, typer.Option("--out", help="Write to this file instead of stdout.")
+    ] = None,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -197,15 +228,20 @@ def export(
         frame = led.results()
         led.close()
         if out_file is not None:
-            text = frame.to_csv(index=False) if fmt is TableJsonCsv.csv else frame.to_json(
-                orient="records", indent=2, date_format="iso")
+            text = (
+                frame.to_csv(index=False)
+                if fmt is TableJsonCsv.csv
+                else frame.to_json(orient="records", indent=2, date_format="iso")
+            )
             tmp = out_file.with_name(out_file.name + ".tmp")
             try:
                 tmp.write_text(text, encoding="utf-8")
                 tmp.replace(out_file)
             except OSError as exc:
                 tmp.unlink(missing_ok=True)
-                raise InvalidInput(f"{out_file}: cannot write the export ({exc.strerror}).") from None
+                raise InvalidInput(
+                    f"{out_file}: cannot write the export ({exc.strerror})."
+                ) from None
             err.print(f"wrote {len(frame)} results to {out_file}")
             return
     print_frame(frame, fmt.value)

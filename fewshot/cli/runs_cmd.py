@@ -25,9 +25,14 @@ from fewshot.errors import InvalidInput
 
 LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
 StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
-WorkerOpt = Annotated[str, typer.Option("--worker", help="A name for this worker, e.g. the host name.")]
+WorkerOpt = Annotated[
+    str, typer.Option("--worker", help="A name for this worker, e.g. the host name.")
+]
 LeaseOpt = Annotated[
-    str, typer.Option("--lease", help="How long a claim holds before others may take the run (90s, 15m, 2h).")
+    str,
+    typer.Option(
+        "--lease", help="How long a claim holds before others may take the run (90s, 15m, 2h)."
+    ),
 ]
 
 
@@ -37,7 +42,9 @@ def next_run(
     lease: LeaseOpt = "2h",
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
-    fmt: Annotated[TableOrJson, typer.Option("--format", help="Print as text or JSON.")] = TableOrJson.table,
+    fmt: Annotated[
+        TableOrJson, typer.Option("--format", help="Print as text or JSON.")
+    ] = TableOrJson.table,
 ) -> None:
     """Claim one planned run (or one whose lease expired) and print it; exit 1 when none is left."""
     with reporting():
@@ -52,9 +59,15 @@ def next_run(
         print_json(asdict(claim))
         return
     for label, value in (
-        ("run", claim.key), ("arm", claim.arm), ("task", claim.task), ("size", claim.size),
-        ("seed", claim.seed), ("replicate", claim.replicate), ("subset", claim.subset_file),
-        ("digest", claim.subset_digest), ("attempt", claim.attempt),
+        ("run", claim.key),
+        ("arm", claim.arm),
+        ("task", claim.task),
+        ("size", claim.size),
+        ("seed", claim.seed),
+        ("replicate", claim.replicate),
+        ("subset", claim.subset_file),
+        ("digest", claim.subset_digest),
+        ("attempt", claim.attempt),
     ):
         out.print(f"{label:10} {value}")
 
@@ -63,11 +76,16 @@ def exec_runs(
     command: Annotated[list[str], typer.Argument(help="The trainer command, after '--'.")],
     *,
     worker: WorkerOpt,
-    max_runs: Annotated[int | None, typer.Option("--max-runs", help="Stop after this many runs.")] = None,
+    max_runs: Annotated[
+        int | None, typer.Option("--max-runs", help="Stop after this many runs.")
+    ] = None,
     lease: LeaseOpt = "2h",
     results: Annotated[
         Path | None,
-        typer.Option("--results", help="Folder for per-run results files (FEWSHOT_RESULTS); ingested after each run."),
+        typer.Option(
+            "--results",
+            help="Folder for per-run results files (FEWSHOT_RESULTS); ingested after each run.",
+        ),
     ] = None,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
@@ -79,9 +97,16 @@ def exec_runs(
         seconds = duration(lease, option="--lease")
         led = open_ledger(ledger, study)
         outcomes = run_claims(
-            led, worker, command, max_runs=max_runs, lease=seconds, results_dir=results,
+            led,
+            worker,
+            command,
+            max_runs=max_runs,
+            lease=seconds,
+            results_dir=results,
             ledger_url=led.connect_url,
-            on_start=lambda c: err.print(f"[dim]start[/] {c.key} (attempt {c.attempt})", markup=True),
+            on_start=lambda c: err.print(
+                f"[dim]start[/] {c.key} (attempt {c.attempt})", markup=True
+            ),
             on_end=lambda o: err.print(
                 f"[{'green' if o.status == 'done' else 'red'}]{o.status}[/] {o.key} "
                 f"in {o.seconds:.1f} s" + (f", {o.ingested} results" if o.ingested else ""),
@@ -95,14 +120,27 @@ def exec_runs(
         raise typer.Exit(1)
 
 
-PLACEHOLDERS = ("run", "arm", "task", "size", "seed", "replicate", "subset", "digest", "ledger", "study")
+PLACEHOLDERS = (
+    "run",
+    "arm",
+    "task",
+    "size",
+    "seed",
+    "replicate",
+    "subset",
+    "digest",
+    "ledger",
+    "study",
+)
 
 
 def _template_fields(template: str) -> list[str]:
     try:
         fields = [f for _, f, _, _ in string.Formatter().parse(template) if f is not None]
     except ValueError as exc:
-        raise InvalidInput(f"--template is not a valid template ({exc}). Use {{run}}, {{subset}}, ...") from None
+        raise InvalidInput(
+            f"--template is not a valid template ({exc}). Use {{run}}, {{subset}}, ..."
+        ) from None
     unknown = sorted({f for f in fields if f not in PLACEHOLDERS})
     if unknown or "" in fields:
         bad = ", ".join("{" + f + "}" for f in unknown) or "{}"
@@ -114,8 +152,12 @@ def _template_fields(template: str) -> list[str]:
 
 def jobs(
     *,
-    template: Annotated[str, typer.Option("--template", help="A command line with {run}, {subset}, {seed}, ...")],
-    include_failed: Annotated[bool, typer.Option("--include-failed", help="Also list failed runs.")] = False,
+    template: Annotated[
+        str, typer.Option("--template", help="A command line with {run}, {subset}, {seed}, ...")
+    ],
+    include_failed: Annotated[
+        bool, typer.Option("--include-failed", help="Also list failed runs.")
+    ] = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -135,9 +177,16 @@ def jobs(
         led.close()
     for r in runs.itertuples():
         values = {
-            "run": r.key, "arm": r.arm, "task": r.task, "size": r.size, "seed": r.seed,
-            "replicate": r.replicate, "subset": r.subset_file, "digest": r.subset_digest,
-            "ledger": url, "study": name,
+            "run": r.key,
+            "arm": r.arm,
+            "task": r.task,
+            "size": r.size,
+            "seed": r.seed,
+            "replicate": r.replicate,
+            "subset": r.subset_file,
+            "digest": r.subset_digest,
+            "ledger": url,
+            "study": name,
         }
         typer.echo(template.format(**{k: shlex.quote(str(v)) for k, v in values.items()}))
 

@@ -9,7 +9,15 @@ from typing import Annotated
 import typer
 from rich.table import Table
 
-from fewshot.cli.common import LEDGER_HELP, TableOrJson, err, open_ledger, out, print_json, reporting
+from fewshot.cli.common import (
+    LEDGER_HELP,
+    TableOrJson,
+    err,
+    open_ledger,
+    out,
+    print_json,
+    reporting,
+)
 from fewshot.ledger.planning import draw_all
 from fewshot.study import Study, load_study
 
@@ -48,7 +56,9 @@ def _plan_json(study: Study) -> dict[str, object]:
 def check(
     study_file: Annotated[Path, typer.Argument(help="The study's TOML file.")],
     *,
-    fmt: Annotated[TableOrJson, typer.Option("--format", help="Plan as a table or JSON.")] = TableOrJson.table,
+    fmt: Annotated[
+        TableOrJson, typer.Option("--format", help="Plan as a table or JSON.")
+    ] = TableOrJson.table,
 ) -> None:
     """Validate a study file (and draw its subsets in memory), then print its plan. Touches no ledger."""
     with reporting():
@@ -64,7 +74,9 @@ def check(
         f"{len(study.seeds)} seeds x {study.replicates} replicate(s); size 0 only for zero-shot arms"
     )
     if len(study.seeds) < 3:
-        err.print(f"note: {len(study.seeds)} seed(s) per cell is too few for a confidence interval; use 3 or more")
+        err.print(
+            f"note: {len(study.seeds)} seed(s) per cell is too few for a confidence interval; use 3 or more"
+        )
 
 
 def init(
@@ -83,8 +95,12 @@ def init(
     verb = "created" if report.created else "updated"
     out.print(f"{verb} study [bold]{report.study}[/] in {url}", markup=True)
     if not report.created:
-        for label, items in (("arms", report.new_arms), ("tasks", report.new_tasks),
-                             ("sizes", report.new_sizes), ("seeds", report.new_seeds)):
+        for label, items in (
+            ("arms", report.new_arms),
+            ("tasks", report.new_tasks),
+            ("sizes", report.new_sizes),
+            ("seeds", report.new_seeds),
+        ):
             if items:
                 out.print(f"  new {label}: {', '.join(map(str, items))}")
     out.print(f"  {report.new_runs} new runs planned, {report.total_runs} in all")

@@ -12,7 +12,14 @@ import pandas as pd
 from sqlalchemy import Connection, Engine, func, insert, select
 
 from fewshot.errors import FewshotError
-from fewshot.ledger.engine import LedgerError, make_engine, mask_url, resolve_url, retry_locked, upgrade_schema
+from fewshot.ledger.engine import (
+    LedgerError,
+    make_engine,
+    mask_url,
+    resolve_url,
+    retry_locked,
+    upgrade_schema,
+)
 from fewshot.ledger.models import (
     FINAL_STEP,
     ArmRow,
@@ -42,8 +49,22 @@ __all__ = ["Ledger", "IngestReport", "RESULT_COLUMNS"]
 T = TypeVar("T")
 
 RESULT_COLUMNS = [
-    "study", "run", "arm", "role", "task", "group", "size", "seed", "replicate", "metric", "step",
-    "value", "n_values", "subset_digest", "budget", "recorded_at",
+    "study",
+    "run",
+    "arm",
+    "role",
+    "task",
+    "group",
+    "size",
+    "seed",
+    "replicate",
+    "metric",
+    "step",
+    "value",
+    "n_values",
+    "subset_digest",
+    "budget",
+    "recorded_at",
 ]
 
 
@@ -224,12 +245,19 @@ class Ledger:
     ) -> StoreReport:
         """Record one result of ``run``; see the module ``fewshot.ledger.results`` for the rules."""
         line = check_line(
-            run, metric, value, step=step, values=None if values is None else list(values),
-            subset_digest=subset_digest, budget=budget,
+            run,
+            metric,
+            value,
+            step=step,
+            values=None if values is None else list(values),
+            subset_digest=subset_digest,
+            budget=budget,
         )
         return self.record_lines([line], replace=replace)
 
-    def record_lines(self, lines: Sequence[ResultLine], *, replace: bool = False, source: str = "api") -> StoreReport:
+    def record_lines(
+        self, lines: Sequence[ResultLine], *, replace: bool = False, source: str = "api"
+    ) -> StoreReport:
         """Record several checked results at once: all of them or none."""
 
         def go(c: Connection) -> StoreReport:
@@ -259,14 +287,20 @@ class Ledger:
         def go(c: Connection) -> IngestReport:
             sid, name = self._sid(c)
             seen = c.execute(
-                select(IngestedFileRow.id).where(IngestedFileRow.study_id == sid, IngestedFileRow.digest == digest)
+                select(IngestedFileRow.id).where(
+                    IngestedFileRow.study_id == sid, IngestedFileRow.digest == digest
+                )
             ).scalar()
             if seen is not None:
                 return IngestReport(str(p), len(lines), True)
             rep = store_results(c, sid, name, lines, replace=replace, source=f"file:{digest[:16]}")
             c.execute(
                 insert(IngestedFileRow).values(
-                    study_id=sid, digest=digest, path=str(p), rows=len(lines), ingested_at=time.time()
+                    study_id=sid,
+                    digest=digest,
+                    path=str(p),
+                    rows=len(lines),
+                    ingested_at=time.time(),
                 )
             )
             return IngestReport(str(p), len(lines), False, rep.stored, rep.unchanged, rep.replaced)
@@ -283,9 +317,20 @@ class Ledger:
             sid, _ = self._sid(c)
             q = (
                 select(
-                    RunRow.key, ArmRow.name, ArmRow.role, TaskRow.name, RunRow.size, RunRow.seed,
-                    RunRow.replicate, RunRow.status, RunRow.worker, RunRow.lease_expires, RunRow.attempts,
-                    RunRow.message, SubsetRow.ids_path, SubsetRow.digest,
+                    RunRow.key,
+                    ArmRow.name,
+                    ArmRow.role,
+                    TaskRow.name,
+                    RunRow.size,
+                    RunRow.seed,
+                    RunRow.replicate,
+                    RunRow.status,
+                    RunRow.worker,
+                    RunRow.lease_expires,
+                    RunRow.attempts,
+                    RunRow.message,
+                    SubsetRow.ids_path,
+                    SubsetRow.digest,
                 )
                 .join(ArmRow, ArmRow.id == RunRow.arm_id)
                 .join(TaskRow, TaskRow.id == RunRow.task_id)
@@ -298,8 +343,20 @@ class Ledger:
             return pd.DataFrame(
                 c.execute(q).all(),
                 columns=[
-                    "key", "arm", "role", "task", "size", "seed", "replicate", "status", "worker",
-                    "lease_expires", "attempts", "message", "subset_file", "subset_digest",
+                    "key",
+                    "arm",
+                    "role",
+                    "task",
+                    "size",
+                    "seed",
+                    "replicate",
+                    "status",
+                    "worker",
+                    "lease_expires",
+                    "attempts",
+                    "message",
+                    "subset_file",
+                    "subset_digest",
                 ],
             )
 
@@ -314,9 +371,21 @@ class Ledger:
             sid, name = self._sid(c)
             rows = c.execute(
                 select(
-                    RunRow.key, ArmRow.name, ArmRow.role, TaskRow.name, TaskRow.grp, RunRow.size,
-                    RunRow.seed, RunRow.replicate, ResultRow.metric, ResultRow.step, ResultRow.value,
-                    ResultRow.n_values, ResultRow.subset_digest, ResultRow.budget_json, ResultRow.recorded_at,
+                    RunRow.key,
+                    ArmRow.name,
+                    ArmRow.role,
+                    TaskRow.name,
+                    TaskRow.grp,
+                    RunRow.size,
+                    RunRow.seed,
+                    RunRow.replicate,
+                    ResultRow.metric,
+                    ResultRow.step,
+                    ResultRow.value,
+                    ResultRow.n_values,
+                    ResultRow.subset_digest,
+                    ResultRow.budget_json,
+                    ResultRow.recorded_at,
                 )
                 .join(RunRow, RunRow.id == ResultRow.run_id)
                 .join(ArmRow, ArmRow.id == RunRow.arm_id)
@@ -339,7 +408,9 @@ class Ledger:
             sid, _ = self._sid(c)
             got = dict(
                 c.execute(
-                    select(RunRow.status, func.count()).where(RunRow.study_id == sid).group_by(RunRow.status)
+                    select(RunRow.status, func.count())
+                    .where(RunRow.study_id == sid)
+                    .group_by(RunRow.status)
                 ).all()
             )
             return {s: int(got.get(s, 0)) for s in ("planned", "running", "done", "failed")}
@@ -357,15 +428,22 @@ class Ledger:
         def go(c: Connection) -> dict[str, Any]:
             sid, _ = self._sid(c)
             r = c.execute(select(StudyRow).where(StudyRow.id == sid)).one()
-            return {"name": r.name, "metric": r.metric, "higher_is_better": r.higher_is_better,
-                    "replicates": r.replicates, "baseline": r.baseline}
+            return {
+                "name": r.name,
+                "metric": r.metric,
+                "higher_is_better": r.higher_is_better,
+                "replicates": r.replicates,
+                "baseline": r.baseline,
+            }
 
         return self._tx(go)
 
 
 def _check_worker(worker: str) -> None:
     if not isinstance(worker, str) or not worker.strip() or len(worker) > 200:
-        raise FewshotError("worker must be a non-empty name of at most 200 characters, e.g. the host name.")
+        raise FewshotError(
+            "worker must be a non-empty name of at most 200 characters, e.g. the host name."
+        )
 
 
 def expand_result_paths(paths: Iterable[str | Path]) -> list[Path]:
@@ -374,7 +452,9 @@ def expand_result_paths(paths: Iterable[str | Path]) -> list[Path]:
     for raw in paths:
         p = Path(raw)
         if p.is_dir():
-            found = sorted(q for q in p.rglob("*") if q.is_file() and q.suffix.lower() in (".jsonl", ".csv"))
+            found = sorted(
+                q for q in p.rglob("*") if q.is_file() and q.suffix.lower() in (".jsonl", ".csv")
+            )
             out.extend(found)
         elif p.exists():
             out.append(p)

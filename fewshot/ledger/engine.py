@@ -49,7 +49,9 @@ def resolve_url(ledger: str | os.PathLike[str] | None = None) -> str:
 
     A plain path means a SQLite file; ``postgresql://`` URLs get the psycopg 3 driver.
     """
-    value = str(ledger) if ledger is not None else os.environ.get("FEWSHOT_LEDGER") or DEFAULT_LEDGER
+    value = (
+        str(ledger) if ledger is not None else os.environ.get("FEWSHOT_LEDGER") or DEFAULT_LEDGER
+    )
     if "://" not in value:
         return f"sqlite:///{Path(value).expanduser().resolve()}"
     if value.startswith("postgresql://") or value.startswith("postgres://"):
@@ -89,7 +91,9 @@ def make_engine(url: str) -> Engine:
             cur = dbapi_conn.cursor()
             cur.execute("PRAGMA journal_mode=WAL")
             cur.execute("PRAGMA busy_timeout=60000")
-            cur.execute("PRAGMA synchronous=NORMAL")  # WAL + NORMAL: safe against crashes of the process
+            cur.execute(
+                "PRAGMA synchronous=NORMAL"
+            )  # WAL + NORMAL: safe against crashes of the process
             cur.execute("PRAGMA foreign_keys=ON")
             cur.close()
 

@@ -56,7 +56,9 @@ def results_file_for(folder: Path, key: str) -> Path:
     return folder / (key.replace("/", "__") + ".jsonl")
 
 
-def run_environment(claim: Claim, ledger_url: str, study: str, results: Path | None) -> dict[str, str]:
+def run_environment(
+    claim: Claim, ledger_url: str, study: str, results: Path | None
+) -> dict[str, str]:
     """The ``FEWSHOT_*`` variables a trainer sees."""
     env = {
         "FEWSHOT_RUN": claim.key,
@@ -78,10 +80,14 @@ def run_environment(claim: Claim, ledger_url: str, study: str, results: Path | N
 
 def _check_command(command: Sequence[str]) -> None:
     if not command:
-        raise InvalidInput("exec needs a command after '--', e.g. fewshot exec --worker w1 -- python train.py")
+        raise InvalidInput(
+            "exec needs a command after '--', e.g. fewshot exec --worker w1 -- python train.py"
+        )
     exe = command[0]
     if os.sep not in exe and shutil.which(exe) is None:
-        raise InvalidInput(f"command {exe!r} was not found on PATH. Give its full path or install it.")
+        raise InvalidInput(
+            f"command {exe!r} was not found on PATH. Give its full path or install it."
+        )
     if os.sep in exe and not os.access(exe, os.X_OK):
         raise InvalidInput(f"command {exe!r} does not exist or is not executable.")
 
@@ -121,14 +127,21 @@ def run_claims(
 
 
 def _run_one(
-    ledger: Ledger, claim: Claim, command: Sequence[str], lease: float, results_dir: Path | None,
-    ledger_url: str, study: str,
+    ledger: Ledger,
+    claim: Claim,
+    command: Sequence[str],
+    lease: float,
+    results_dir: Path | None,
+    ledger_url: str,
+    study: str,
 ) -> ExecOutcome:
     results = None if results_dir is None else results_file_for(results_dir, claim.key)
     env = {**os.environ, **run_environment(claim, ledger_url, study, results)}
     start = time.monotonic()
     tail: collections.deque[str] = collections.deque(maxlen=STDERR_TAIL_LINES)
-    proc = subprocess.Popen(list(command), env=env, stderr=subprocess.PIPE, text=True, errors="replace")
+    proc = subprocess.Popen(
+        list(command), env=env, stderr=subprocess.PIPE, text=True, errors="replace"
+    )
     stop = threading.Event()
 
     def pump() -> None:
@@ -141,7 +154,10 @@ def _run_one(
         while not stop.wait(max(1.0, lease / 3)):
             ledger.heartbeat(claim.key, claim.worker, lease)
 
-    threads = [threading.Thread(target=pump, daemon=True), threading.Thread(target=keep_lease, daemon=True)]
+    threads = [
+        threading.Thread(target=pump, daemon=True),
+        threading.Thread(target=keep_lease, daemon=True),
+    ]
     for t in threads:
         t.start()
     rc = proc.wait()

@@ -101,9 +101,9 @@ def plan_study(conn: Connection, study: Study, draws: dict[str, TaskDraw]) -> Pl
         _refuse_removed("size", old_sizes - set(study.sizes), study)
         _refuse_removed("seed", old_seeds - set(study.seeds), study)
         conn.execute(
-            update(StudyRow).where(StudyRow.id == sid).values(
-                baseline=study.baseline, spec_json=_spec_json(study)
-            )
+            update(StudyRow)
+            .where(StudyRow.id == sid)
+            .values(baseline=study.baseline, spec_json=_spec_json(study))
         )
     arm_ids, new_arms = _sync_arms(conn, sid, study)
     task_ids, new_tasks = _sync_tasks(conn, sid, study, draws)
@@ -219,8 +219,12 @@ def _sync_tasks(
                     "as a new task under another name."
                 )
             conn.execute(
-                update(TaskRow).where(TaskRow.id == r.id).values(
-                    floor=task.floor, expert=task.expert, grp=task.group,
+                update(TaskRow)
+                .where(TaskRow.id == r.id)
+                .values(
+                    floor=task.floor,
+                    expert=task.expert,
+                    grp=task.group,
                     lineage_json=json.dumps(lineage, sort_keys=True),
                 )
             )
@@ -266,13 +270,21 @@ def _sync_subsets(
             if d.seed not in have_draw:
                 conn.execute(
                     insert(DrawRow).values(
-                        task_id=tid, seed=d.seed, order_json=order, reserve_json=json.dumps(list(d.reserve))
+                        task_id=tid,
+                        seed=d.seed,
+                        order_json=order,
+                        reserve_json=json.dumps(list(d.reserve)),
                     )
                 )
             elif len(json.loads(have_draw[d.seed].order_json)) < len(d.order):
-                conn.execute(update(DrawRow).where(DrawRow.id == have_draw[d.seed].id).values(order_json=order))
+                conn.execute(
+                    update(DrawRow)
+                    .where(DrawRow.id == have_draw[d.seed].id)
+                    .values(order_json=order)
+                )
         have = {
-            (r.seed, r.size): r.id for r in conn.execute(select(SubsetRow).where(SubsetRow.task_id == tid))
+            (r.seed, r.size): r.id
+            for r in conn.execute(select(SubsetRow).where(SubsetRow.task_id == tid))
         }
         for d in draw.draws:
             for n in d.sizes:

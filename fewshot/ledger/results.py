@@ -104,20 +104,26 @@ def check_line(
 ) -> ResultLine:
     """Check one result's fields and return it as a :class:`ResultLine`."""
     at = "" if where == "call" else f"{where}: "
+    if type(value) is float and math.isfinite(value):  # the common case, without a call
+        v = value
+    else:
+        v = _finite(value, f"value of {metric!r}", where)
     if not isinstance(run, str) or not run:
         raise ResultRefused(f"{at}'run' must be a run key such as 'arm/task/n10/s0'. Got {run!r}.")
     if not isinstance(metric, str) or not metric.strip() or len(metric) > 200:
         raise ResultRefused(f"{at}'metric' must be a non-empty name. Got {metric!r}.")
-    v = _finite(value, f"value of {metric!r}", where)
     if step is not None and (isinstance(step, bool) or not isinstance(step, int) or step < 0):
-        raise ResultRefused(f"{at}'step' must be a whole number of 0 or more, or null. Got {step!r}.")
+        raise ResultRefused(
+            f"{at}'step' must be a whole number of 0 or more, or null. Got {step!r}."
+        )
     vals: tuple[float, ...] = ()
     if values is not None:
         if not isinstance(values, list | tuple):
             raise ResultRefused(f"{at}'values' must be a list of numbers. Got {values!r}.")
         vals = tuple(_finite(x, f"values[{k}]", where) for k, x in enumerate(values))
     if subset_digest is not None and (
-        not isinstance(subset_digest, str) or len(subset_digest) != 64
+        not isinstance(subset_digest, str)
+        or len(subset_digest) != 64
         or any(c not in "0123456789abcdef" for c in subset_digest)
     ):
         raise ResultRefused(
@@ -125,7 +131,10 @@ def check_line(
         )
     if budget is not None:
         if not isinstance(budget, dict) or not all(
-            isinstance(k, str) and isinstance(b, int | float) and not isinstance(b, bool) and math.isfinite(b)
+            isinstance(k, str)
+            and isinstance(b, int | float)
+            and not isinstance(b, bool)
+            and math.isfinite(b)
             for k, b in budget.items()
         ):
             raise ResultRefused(f"{at}'budget' must map names to finite numbers. Got {budget!r}.")
@@ -141,7 +150,9 @@ def parse_result_file(path: Path, data: bytes) -> list[ResultLine]:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:
         line = data[: exc.start].count(b"\n") + 1
-        raise ResultFileError(f"{path}, line {line}: not valid UTF-8. Write results as UTF-8.") from None
+        raise ResultFileError(
+            f"{path}, line {line}: not valid UTF-8. Write results as UTF-8."
+        ) from None
     if text.startswith("\ufeff"):
         text = text[1:]
     if path.suffix.lower() == ".csv":
@@ -157,7 +168,9 @@ def _parse_jsonl(path: Path, text: str) -> list[ResultLine]:
             continue
         where = f"{path}, line {n}"
         if len(line) > MAX_LINE:
-            raise ResultFileError(f"{where}: the line is {len(line)} characters long; results lines are short. The file is damaged.")
+            raise ResultFileError(
+                f"{where}: the line is {len(line)} characters long; results lines are short. The file is damaged."
+            )
         try:
             obj = json.loads(line)
         except json.JSONDecodeError as exc:
@@ -170,7 +183,9 @@ def _parse_jsonl(path: Path, text: str) -> list[ResultLine]:
 
 def _from_mapping(obj: object, where: str) -> ResultLine:
     if not isinstance(obj, dict):
-        raise ResultFileError(f"{where}: a result line must be a JSON object. Got {type(obj).__name__}.")
+        raise ResultFileError(
+            f"{where}: a result line must be a JSON object. Got {type(obj).__name__}."
+        )
     unknown = set(obj) - LINE_KEYS
     if unknown:
         raise ResultFileError(
@@ -178,10 +193,18 @@ def _from_mapping(obj: object, where: str) -> ResultLine:
         )
     for key in ("run", "metric", "value"):
         if key not in obj:
-            raise ResultFileError(f"{where}: missing {key!r}; every result needs run, metric and value.")
+            raise ResultFileError(
+                f"{where}: missing {key!r}; every result needs run, metric and value."
+            )
     return check_line(
-        obj["run"], obj["metric"], obj["value"], step=obj.get("step"), values=obj.get("values"),
-        subset_digest=obj.get("subset_digest"), budget=obj.get("budget"), where=where,
+        obj["run"],
+        obj["metric"],
+        obj["value"],
+        step=obj.get("step"),
+        values=obj.get("values"),
+        subset_digest=obj.get("subset_digest"),
+        budget=obj.get("budget"),
+        where=where,
     )
 
 
@@ -190,7 +213,9 @@ def _parse_csv(path: Path, text: str) -> list[ResultLine]:
     header = reader.fieldnames or []
     missing = [k for k in ("run", "metric", "value") if k not in header]
     if missing:
-        raise ResultFileError(f"{path}, line 1: the header lacks {', '.join(missing)}. Columns: {', '.join(sorted(LINE_KEYS))}.")
+        raise ResultFileError(
+            f"{path}, line 1: the header lacks {', '.join(missing)}. Columns: {', '.join(sorted(LINE_KEYS))}."
+        )
     unknown = set(header) - LINE_KEYS
     if unknown:
         raise ResultFileError(f"{path}, line 1: unknown column(s) {', '.join(sorted(unknown))}.")
@@ -198,7 +223,11 @@ def _parse_csv(path: Path, text: str) -> list[ResultLine]:
     for row in reader:
         where = f"{path}, line {reader.line_num}"
         try:
-            obj: dict[str, Any] = {"run": row["run"], "metric": row["metric"], "value": _num(row["value"])}
+            obj: dict[str, Any] = {
+                "run": row["run"],
+                "metric": row["metric"],
+                "value": _num(row["value"]),
+            }
             if row.get("step"):
                 obj["step"] = int(row["step"])
             for key in ("values", "budget"):
@@ -237,7 +266,9 @@ class StoreReport:
 
 def _values_of(conn: Connection, result_id: int) -> tuple[float, ...]:
     rows = conn.execute(
-        select(ResultValueRow.value).where(ResultValueRow.result_id == result_id).order_by(ResultValueRow.idx)
+        select(ResultValueRow.value)
+        .where(ResultValueRow.result_id == result_id)
+        .order_by(ResultValueRow.idx)
     ).scalars()
     return tuple(rows)
 
@@ -280,8 +311,14 @@ def store_results(
     existing: dict[tuple[int, str, int], tuple[int, float, int]] = {}
     for chunk in _chunks(run_ids, 500):
         for res_id, rid, metric, step, value, n_values in conn.execute(
-            select(ResultRow.id, ResultRow.run_id, ResultRow.metric, ResultRow.step, ResultRow.value,
-                   ResultRow.n_values).where(ResultRow.run_id.in_(chunk))
+            select(
+                ResultRow.id,
+                ResultRow.run_id,
+                ResultRow.metric,
+                ResultRow.step,
+                ResultRow.value,
+                ResultRow.n_values,
+            ).where(ResultRow.run_id.in_(chunk))
         ):
             existing[(rid, metric, step)] = (res_id, value, n_values)
     fresh: dict[tuple[int, str, int], ResultLine] = {}
@@ -299,8 +336,10 @@ def store_results(
             continue
         if k in existing:
             res_id, old_value, n_old = existing[k]
-            same = old_value == ln.value and n_old == len(ln.values) and (
-                not ln.values or _values_of(conn, res_id) == ln.values
+            same = (
+                old_value == ln.value
+                and n_old == len(ln.values)
+                and (not ln.values or _values_of(conn, res_id) == ln.values)
             )
             if same:
                 unchanged += 1
@@ -317,9 +356,15 @@ def store_results(
     _insert_fresh(conn, fresh, now, source)
     for res_id, ln in to_replace:
         conn.execute(
-            update(ResultRow).where(ResultRow.id == res_id).values(
-                value=ln.value, n_values=len(ln.values), subset_digest=ln.subset_digest,
-                budget_json=_budget(ln.budget), recorded_at=now, source=source,
+            update(ResultRow)
+            .where(ResultRow.id == res_id)
+            .values(
+                value=ln.value,
+                n_values=len(ln.values),
+                subset_digest=ln.subset_digest,
+                budget_json=_budget(ln.budget),
+                recorded_at=now,
+                source=source,
             )
         )
         conn.execute(delete(ResultValueRow).where(ResultValueRow.result_id == res_id))
@@ -331,32 +376,51 @@ def store_results(
     return StoreReport(stored=len(fresh), unchanged=unchanged, replaced=len(to_replace))
 
 
-def _insert_fresh(conn: Connection, fresh: dict[tuple[int, str, int], ResultLine], now: float, source: str) -> None:
+def _insert_fresh(
+    conn: Connection, fresh: dict[tuple[int, str, int], ResultLine], now: float, source: str
+) -> None:
     if not fresh:
         return
     rows = [
         {
-            "run_id": rid, "metric": metric, "step": step, "value": ln.value, "n_values": len(ln.values),
-            "subset_digest": ln.subset_digest, "budget_json": _budget(ln.budget), "recorded_at": now,
+            "run_id": rid,
+            "metric": metric,
+            "step": step,
+            "value": ln.value,
+            "n_values": len(ln.values),
+            "subset_digest": ln.subset_digest,
+            "budget_json": _budget(ln.budget),
+            "recorded_at": now,
             "source": source,
         }
         for (rid, metric, step), ln in fresh.items()
     ]
-    table = ResultRow.__table__
-    with_values = [ln for ln in fresh.values() if ln.values]
+    plain = [row for row, ln in zip(rows, fresh.values(), strict=True) if not ln.values]
+    if plain:
+        # The bulk of a large ingest: straight to the driver's executemany (the ORM and Core
+        # per-row parameter processing would double the cost; see tests/benchmarks/bench_ingest.py).
+        mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
+        cols = list(plain[0])
+        sql = f"INSERT INTO result ({', '.join(cols)}) VALUES ({', '.join([mark] * len(cols))})"
+        conn.exec_driver_sql(sql, [tuple(r[c] for c in cols) for r in plain])
+    with_values = [(row, ln) for row, ln in zip(rows, fresh.values(), strict=True) if ln.values]
     if not with_values:
-        conn.execute(insert(table), rows)
         return
-    ids = conn.execute(
-        insert(table).returning(table.c.id, sort_by_parameter_order=True), rows
-    ).scalars().all()
+    table = ResultRow.__table__
+    ids = (
+        conn.execute(
+            insert(table).returning(table.c.id, sort_by_parameter_order=True),
+            [row for row, _ in with_values],
+        )
+        .scalars()
+        .all()
+    )
     value_rows = [
         {"result_id": res_id, "idx": i, "value": v}
-        for res_id, ln in zip(ids, fresh.values(), strict=True)
+        for res_id, (_, ln) in zip(ids, with_values, strict=True)
         for i, v in enumerate(ln.values)
     ]
-    if value_rows:
-        conn.execute(insert(ResultValueRow.__table__), value_rows)
+    conn.execute(insert(ResultValueRow.__table__), value_rows)
 
 
 def _budget(budget: dict[str, Any] | None) -> str | None:

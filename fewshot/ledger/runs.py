@@ -69,7 +69,9 @@ def find_run(conn: Connection, sid: int, key: str, study_name: str) -> Row[Any]:
     raise UnknownRun(f"study {study_name!r} has no run {key!r}.{hint}")
 
 
-def claim_run(conn: Connection, sid: int, worker: str, lease: float, *, skip_locked: bool) -> Claim | None:
+def claim_run(
+    conn: Connection, sid: int, worker: str, lease: float, *, skip_locked: bool
+) -> Claim | None:
     """Claim one planned run, or one whose lease expired; None when nothing is claimable.
 
     Atomic: on SQLite the caller's transaction began with ``BEGIN IMMEDIATE``; on
@@ -108,8 +110,15 @@ def claim_run(conn: Connection, sid: int, worker: str, lease: float, *, skip_loc
     )
     r = conn.execute(
         select(
-            RunRow.key, RunRow.size, RunRow.seed, RunRow.replicate, RunRow.attempts,
-            ArmRow.name.label("arm"), TaskRow.name.label("task"), SubsetRow.ids_path, SubsetRow.digest,
+            RunRow.key,
+            RunRow.size,
+            RunRow.seed,
+            RunRow.replicate,
+            RunRow.attempts,
+            ArmRow.name.label("arm"),
+            TaskRow.name.label("task"),
+            SubsetRow.ids_path,
+            SubsetRow.digest,
         )
         .join(ArmRow, ArmRow.id == RunRow.arm_id)
         .join(TaskRow, TaskRow.id == RunRow.task_id)
@@ -135,7 +144,9 @@ def extend_lease(conn: Connection, run: Row[Any], worker: str, lease: float) -> 
     """Push the lease of a running run forward; False when the worker no longer holds it."""
     if run.status != "running" or run.worker != worker:
         return False
-    conn.execute(update(RunRow).where(RunRow.id == run.id).values(lease_expires=time.time() + lease))
+    conn.execute(
+        update(RunRow).where(RunRow.id == run.id).values(lease_expires=time.time() + lease)
+    )
     return True
 
 

@@ -39,7 +39,9 @@ class StatusReport:
     failed: pd.DataFrame
 
 
-def summarise(study: str, ledger: str, runs: pd.DataFrame, now: float | None = None) -> StatusReport:
+def summarise(
+    study: str, ledger: str, runs: pd.DataFrame, now: float | None = None
+) -> StatusReport:
     """Build a :class:`StatusReport` from :meth:`Ledger.runs`' table."""
     now = time.time() if now is None else now
     counts = (
@@ -50,10 +52,16 @@ def summarise(study: str, ledger: str, runs: pd.DataFrame, now: float | None = N
     for s in STATUSES:
         if s not in counts.columns:
             counts[s] = 0
-    cells = counts[list(STATUSES)].reset_index() if len(runs) else pd.DataFrame(columns=["arm", "size", *STATUSES])
+    cells = (
+        counts[list(STATUSES)].reset_index()
+        if len(runs)
+        else pd.DataFrame(columns=["arm", "size", *STATUSES])
+    )
     cells["total"] = cells[list(STATUSES)].sum(axis=1)
     order = {a: i for i, a in enumerate(dict.fromkeys(runs["arm"]))}
-    cells = cells.sort_values(["arm", "size"], key=lambda col: col.map(order) if col.name == "arm" else col)
+    cells = cells.sort_values(
+        ["arm", "size"], key=lambda col: col.map(order) if col.name == "arm" else col
+    )
     cells = cells.reset_index(drop=True).astype({s: int for s in (*STATUSES, "total")})
     totals = {s: int((runs["status"] == s).sum()) for s in STATUSES}
     totals["total"] = len(runs)
@@ -66,5 +74,7 @@ def summarise(study: str, ledger: str, runs: pd.DataFrame, now: float | None = N
             "lease_expired_s_ago": (now - running["lease_expires"]).round(0),
         }
     ).reset_index(drop=True)
-    failed = runs.loc[runs["status"] == "failed", ["key", "attempts", "message"]].reset_index(drop=True)
+    failed = runs.loc[runs["status"] == "failed", ["key", "attempts", "message"]].reset_index(
+        drop=True
+    )
     return StatusReport(study, ledger, cells, totals, expired, failed)
