@@ -317,3 +317,61 @@ def test_password_is_never_printed(tmp_path: Path):
     result = run("status", "--ledger", url)
     assert result.exit_code == 2
     assert "s3cret" not in result.output and "***" in result.output
+
+
+def _one_run_study(tmp_path: Path) -> tuple[Path, str]:
+    study = write_study(tmp_path, STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1]").replace(
+        "seeds = [0, 1, 2]", "seeds = [0]").replace('role = "baseline"', 'role = "baseline"\nzero_shot = false'))
+    text = study.read_text()
+    # keep only the pretrained arm: one run in all
+    study.write_text(text.replace('[[arms]]\nname = "scratch"\nrole = "baseline"\nzero_shot = false\n', "").replace(
+        'baseline = "scratch"', 'baseline = "wide"'))
+    ledger = str(tmp_path / "l.sqlite")
+    assert run("init", study, "--ledger", ledger).exit_code == 0
+    return study, ledger
+
+
+def test_exec_keeps_the_lease_alive_while_the_trainer_runs(tmp_path: Path):
+    import subprocess
+
+    from fewshot.ledger import Ledger
+
+    _, ledger = _one_run_study(tmp_path)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "fewshot.cli", "exec", "--worker", "slow", "--lease", "0.6s", "--ledger", ledger,
+         "--", sys.executable, "-c", "import time; time.sleep(3)"],
+        env={**__import__("os").environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)},
+    )
+    import time
+
+    time.sleep(2.0)  # more than three leases: without renewal the run would be claimable now
+    led = Ledger.open(ledger)
+    assert led.claim("thief", lease=60) is None
+    assert proc.wait(timeout=60) == 0
+    assert led.counts()["done"] == 1 and led.runs()["attempts"].tolist() == [1]
+    led.close()
+
+
+def test_an_interrupted_exec_hands_the_run_back(tmp_path: Path):
+    import os
+    import signal
+    import subprocess
+    import time
+
+    from fewshot.ledger import Ledger
+
+    _, ledger = _one_run_study(tmp_path)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "fewshot.cli", "exec", "--worker", "w", "--ledger", ledger,
+         "--", sys.executable, "-c", "import time; time.sleep(30)"],
+        env={**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)},
+    )
+    led = Ledger.open(ledger)
+    for _ in range(100):
+        if led.counts()["running"] == 1:
+            break
+        time.sleep(0.1)
+    proc.send_signal(signal.SIGINT)
+    assert proc.wait(timeout=60) == 130
+    assert led.counts() == {"planned": 1, "running": 0, "done": 0, "failed": 0}
+    led.close()

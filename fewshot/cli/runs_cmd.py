@@ -96,24 +96,29 @@ def exec_runs(
     with reporting():
         seconds = duration(lease, option="--lease")
         led = open_ledger(ledger, study)
-        outcomes = run_claims(
-            led,
-            worker,
-            command,
-            max_runs=max_runs,
-            lease=seconds,
-            results_dir=results,
-            ledger_url=led.connect_url,
-            on_start=lambda c: err.print(
-                f"[dim]start[/] {c.key} (attempt {c.attempt})", markup=True
-            ),
-            on_end=lambda o: err.print(
-                f"[{'green' if o.status == 'done' else 'red'}]{o.status}[/] {o.key} "
-                f"in {o.seconds:.1f} s" + (f", {o.ingested} results" if o.ingested else ""),
-                markup=True,
-            ),
-        )
-        led.close()
+        try:
+            outcomes = run_claims(
+                led,
+                worker,
+                command,
+                max_runs=max_runs,
+                lease=seconds,
+                results_dir=results,
+                ledger_url=led.connect_url,
+                on_start=lambda c: err.print(
+                    f"[dim]start[/] {c.key} (attempt {c.attempt})", markup=True
+                ),
+                on_end=lambda o: err.print(
+                    f"[{'green' if o.status == 'done' else 'red'}]{o.status}[/] {o.key} "
+                    f"in {o.seconds:.1f} s" + (f", {o.ingested} results" if o.ingested else ""),
+                    markup=True,
+                ),
+            )
+        except KeyboardInterrupt:
+            err.print("interrupted: the current run went back to the plan")
+            raise typer.Exit(130) from None
+        finally:
+            led.close()
     failed = sum(1 for o in outcomes if o.status != "done")
     out.print(f"{len(outcomes)} runs: {len(outcomes) - failed} done, {failed} failed")
     if failed:

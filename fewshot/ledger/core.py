@@ -40,7 +40,7 @@ from fewshot.ledger.results import (
     parse_result_file,
     store_results,
 )
-from fewshot.ledger.runs import Claim, claim_run, extend_lease, find_run, finish_run
+from fewshot.ledger.runs import Claim, claim_run, extend_lease, find_run, finish_run, release_run
 from fewshot.ledger.status import StatusReport, summarise
 from fewshot.study import Study
 
@@ -202,6 +202,15 @@ class Ledger:
         def go(c: Connection) -> bool:
             sid, name = self._sid(c)
             return extend_lease(c, find_run(c, sid, run, name), worker, lease)
+
+        return self._tx(go)
+
+    def release(self, run: str, worker: str) -> bool:
+        """Hand ``run`` back to the plan when ``worker`` holds it (e.g. the worker was stopped)."""
+
+        def go(c: Connection) -> bool:
+            sid, name = self._sid(c)
+            return release_run(c, find_run(c, sid, run, name), worker)
 
         return self._tx(go)
 

@@ -151,7 +151,8 @@ def _run_one(
             sys.stderr.write(line)
 
     def keep_lease() -> None:
-        while not stop.wait(max(1.0, lease / 3)):
+        # renew three times a lease, so that one slow renewal never lets the lease lapse
+        while not stop.wait(max(0.05, lease / 3)):
             ledger.heartbeat(claim.key, claim.worker, lease)
 
     threads = [
@@ -160,7 +161,19 @@ def _run_one(
     ]
     for t in threads:
         t.start()
-    rc = proc.wait()
+    try:
+        rc = proc.wait()
+    except KeyboardInterrupt:
+        # Stopped by the user: end the trainer and hand the run back to the plan at once,
+        # rather than leaving it to wait for its lease to expire.
+        stop.set()
+        proc.terminate()
+        try:
+            proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+        ledger.release(claim.key, claim.worker)
+        raise
     stop.set()
     threads[0].join()
     ingested = 0

@@ -12,7 +12,15 @@ from sqlalchemy import Connection, Row, and_, or_, select, update
 from fewshot.errors import FewshotError
 from fewshot.ledger.models import ArmRow, RunRow, SubsetRow, TaskRow
 
-__all__ = ["Claim", "UnknownRun", "claim_run", "extend_lease", "finish_run", "find_run"]
+__all__ = [
+    "Claim",
+    "UnknownRun",
+    "claim_run",
+    "extend_lease",
+    "finish_run",
+    "find_run",
+    "release_run",
+]
 
 MESSAGE_LIMIT = 4000
 
@@ -158,3 +166,15 @@ def finish_run(conn: Connection, run: Row[Any], status: str, message: str | None
         .where(RunRow.id == run.id)
         .values(status=status, lease_expires=None, finished_at=time.time(), message=text)
     )
+
+
+def release_run(conn: Connection, run: Row[Any], worker: str) -> bool:
+    """Hand a running run held by ``worker`` back to the plan (status planned, no lease)."""
+    if run.status != "running" or run.worker != worker:
+        return False
+    conn.execute(
+        update(RunRow)
+        .where(RunRow.id == run.id)
+        .values(status="planned", lease_expires=None, worker=None)
+    )
+    return True
