@@ -320,12 +320,19 @@ def test_password_is_never_printed(tmp_path: Path):
 
 
 def _one_run_study(tmp_path: Path) -> tuple[Path, str]:
-    study = write_study(tmp_path, STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1]").replace(
-        "seeds = [0, 1, 2]", "seeds = [0]").replace('role = "baseline"', 'role = "baseline"\nzero_shot = false'))
+    study = write_study(
+        tmp_path,
+        STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1]")
+        .replace("seeds = [0, 1, 2]", "seeds = [0]")
+        .replace('role = "baseline"', 'role = "baseline"\nzero_shot = false'),
+    )
     text = study.read_text()
     # keep only the pretrained arm: one run in all
-    study.write_text(text.replace('[[arms]]\nname = "scratch"\nrole = "baseline"\nzero_shot = false\n', "").replace(
-        'baseline = "scratch"', 'baseline = "wide"'))
+    study.write_text(
+        text.replace(
+            '[[arms]]\nname = "scratch"\nrole = "baseline"\nzero_shot = false\n', ""
+        ).replace('baseline = "scratch"', 'baseline = "wide"')
+    )
     ledger = str(tmp_path / "l.sqlite")
     assert run("init", study, "--ledger", ledger).exit_code == 0
     return study, ledger
@@ -338,8 +345,22 @@ def test_exec_keeps_the_lease_alive_while_the_trainer_runs(tmp_path: Path):
 
     _, ledger = _one_run_study(tmp_path)
     proc = subprocess.Popen(
-        [sys.executable, "-m", "fewshot.cli", "exec", "--worker", "slow", "--lease", "0.6s", "--ledger", ledger,
-         "--", sys.executable, "-c", "import time; time.sleep(3)"],
+        [
+            sys.executable,
+            "-m",
+            "fewshot.cli",
+            "exec",
+            "--worker",
+            "slow",
+            "--lease",
+            "0.6s",
+            "--ledger",
+            ledger,
+            "--",
+            sys.executable,
+            "-c",
+            "import time; time.sleep(3)",
+        ],
         env={**__import__("os").environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)},
     )
     import time
@@ -362,8 +383,20 @@ def test_an_interrupted_exec_hands_the_run_back(tmp_path: Path):
 
     _, ledger = _one_run_study(tmp_path)
     proc = subprocess.Popen(
-        [sys.executable, "-m", "fewshot.cli", "exec", "--worker", "w", "--ledger", ledger,
-         "--", sys.executable, "-c", "import time; time.sleep(30)"],
+        [
+            sys.executable,
+            "-m",
+            "fewshot.cli",
+            "exec",
+            "--worker",
+            "w",
+            "--ledger",
+            ledger,
+            "--",
+            sys.executable,
+            "-c",
+            "import time; time.sleep(30)",
+        ],
         env={**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)},
     )
     led = Ledger.open(ledger)

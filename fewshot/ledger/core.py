@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
@@ -430,6 +431,61 @@ class Ledger:
         """The study's completion: runs per arm and size by status, expired leases, failures."""
         runs = self.runs()
         return summarise(self.study, self.url, runs)
+
+    def tasks(self) -> pd.DataFrame:
+        """The study's tasks: columns task, group, floor, expert, pool_file, pool_digest."""
+
+        def go(c: Connection) -> pd.DataFrame:
+            sid, _ = self._sid(c)
+            rows = c.execute(
+                select(
+                    TaskRow.name,
+                    TaskRow.grp,
+                    TaskRow.floor,
+                    TaskRow.expert,
+                    TaskRow.pool_file,
+                    TaskRow.pool_digest,
+                )
+                .where(TaskRow.study_id == sid)
+                .order_by(TaskRow.id)
+            ).all()
+            return pd.DataFrame(
+                rows, columns=["task", "group", "floor", "expert", "pool_file", "pool_digest"]
+            )
+
+        return self._tx(go)
+
+    def arms(self) -> pd.DataFrame:
+        """The study's arms: columns arm, role, checkpoint, zero_shot, and one column per attribute."""
+
+        def go(c: Connection) -> pd.DataFrame:
+            sid, _ = self._sid(c)
+            rows = c.execute(
+                select(
+                    ArmRow.name,
+                    ArmRow.role,
+                    ArmRow.checkpoint,
+                    ArmRow.zero_shot,
+                    ArmRow.attributes_json,
+                )
+                .where(ArmRow.study_id == sid)
+                .order_by(ArmRow.id)
+            ).all()
+            frame = pd.DataFrame(
+                [
+                    {
+                        "arm": r[0],
+                        "role": r[1],
+                        "checkpoint": r[2],
+                        "zero_shot": bool(r[3]),
+                        **json.loads(r[4]),
+                    }
+                    for r in rows
+                ]
+            )
+            return frame
+
+        return self._tx(go)
 
     def study_row(self) -> dict[str, Any]:
         """The selected study's stored settings."""

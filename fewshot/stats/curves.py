@@ -1,0 +1,205 @@
+"""Data-efficiency curves: an estimate and a bootstrap interval per (arm, task, size).
+
+Cells that share a task and the same seeds (and replicate count) are bootstrapped
+together with one matrix of resampled seed indices, so a seed's runs at every size
+and in every arm move together (whole curves, paired arms). With replicates the
+resample is two-level and the share of variance due to the subset (between seeds)
+versus training (between replicates of one subset) is reported.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from fewshot.errors import InvalidInput
+from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS, DegenerateCells, bootstrap_cells
+from fewshot.stats.estimators import estimator as get_estimator
+
+__all__ = ["CURVE_COLUMNS", "CurveSettings", "curves", "variance_share"]
+
+CURVE_COLUMNS = [
+    "arm",
+    "role",
+    "task",
+    "group",
+    "size",
+    "estimate",
+    "low",
+    "high",
+    "confidence",
+    "method",
+    "estimator",
+    "n_seeds",
+    "n_replicates",
+    "subset_share",
+    "note",
+]
+
+
+@dataclass(frozen=True)
+class CurveSettings:
+    """The statistics options every curve, comparison and report records.
+
+    Attributes
+    ----------
+    estimator : str
+        ``mean``, ``median`` or ``iqm``.
+    method : str
+        Interval method (see :mod:`fewshot.stats.bootstrap`).
+    confidence : float
+    resamples : int
+    seed : int
+        Seed of the resampling generator (results are reproducible).
+    """
+
+    estimator: str = "mean"
+    method: str = DEFAULT_METHOD
+    confidence: float = 0.95
+    resamples: int = 10_000
+    seed: int = 0
+
+    def check(self) -> CurveSettings:
+        get_estimator(self.estimator)
+        if self.method not in METHODS:
+            raise InvalidInput(f"--ci must be one of {', '.join(METHODS)}. Got {self.method!r}.")
+        if not 0 < self.confidence < 1:
+            raise InvalidInput(
+                f"--confidence must lie between 0 and 1, e.g. 0.95. Got {self.confidence}."
+            )
+        if self.resamples < 100:
+            raise InvalidInput(f"--resamples must be at least 100. Got {self.resamples}.")
+        if self.method == "bootstrap-t" and self.estimator != "mean":
+            raise InvalidInput("--ci bootstrap-t works with --estimator mean only.")
+        return self
+
+
+def variance_share(values: np.ndarray) -> np.ndarray:
+    """Share of variance between seeds (the subset) in a cells × seeds × replicates array.
+
+    One-way random-effects ANOVA by moments: σ²_w = MS_within, σ²_b = max(0, (MS_between -
+    MS_within) / r); share = σ²_b / (σ²_b + σ²_w). NaN where both are zero.
+    """
+    _, n, r = values.shape
+    seed_means = values.mean(axis=2)
+    ms_between = r * seed_means.var(axis=1, ddof=1)
+    ms_within = values.var(axis=2, ddof=1).mean(axis=1)
+    between = np.maximum(0.0, (ms_between - ms_within) / r)
+    total = between + ms_within
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(total > 0, between / total, np.nan)
+
+
+def curves(
+    scores: pd.DataFrame, settings: CurveSettings = CurveSettings(), *, value: str = "score"
+) -> pd.DataFrame:
+    """Curve points for every (arm, task, size) of a scores table.
+
+    Parameters
+    ----------
+    scores : DataFrame
+        From :func:`fewshot.stats.scores.run_scores` (and :func:`normalise` for ``value="normalised"``).
+    settings : CurveSettings
+    value : str
+        The column to summarise: ``score`` or ``normalised``.
+
+    Returns
+    -------
+    DataFrame
+        Columns: arm, role, task, group, size, estimate, low, high, confidence, method, estimator,
+        n_seeds, n_replicates, subset_share (NaN without replicates), note.
+    """
+    settings.check()
+    data = scores.dropna(subset=[value])
+    if data.empty:
+        return pd.DataFrame(columns=CURVE_COLUMNS)
+    est = get_estimator(settings.estimator)
+    is_mean = settings.estimator == "mean"
+    cells = []
+    for key, frame in data.groupby(["arm", "task", "size"], sort=False):
+        per_seed = frame.groupby("seed")[value].apply(lambda s: s.to_numpy())
+        reps = {len(v) for v in per_seed}
+        r = reps.pop() if len(reps) == 1 else 1
+        matrix = np.stack([v if len(v) == r else np.array([v.mean()]) for v in per_seed])
+        first = frame.iloc[0]
+        cells.append(
+            {
+                "arm": key[0],
+                "role": first["role"],
+                "task": key[1],
+                "group": first["group"],
+                "size": key[2],
+                "seeds": tuple(per_seed.index),
+                "r": r,
+                "matrix": matrix,
+                "uneven": len({len(v) for v in per_seed}) > 1,
+            }
+        )
+    groups: dict[tuple[object, ...], list[int]] = {}
+    for i, c in enumerate(cells):
+        groups.setdefault((c["task"], c["seeds"], c["r"]), []).append(i)
+    root = np.random.SeedSequence(settings.seed)
+    out: list[dict[str, object]] = [dict() for _ in cells]
+    ordered = sorted(groups, key=repr)
+    for child, gkey in zip(root.spawn(len(ordered)), ordered, strict=True):
+        idx = groups[gkey]
+        values = np.stack([cells[i]["matrix"] for i in idx])
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", DegenerateCells)
+            res = bootstrap_cells(
+                values,
+                est,
+                method=settings.method,
+                confidence=settings.confidence,
+                resamples=settings.resamples,
+                rng=np.random.default_rng(child),
+                is_mean=is_mean,
+            )
+        shares = variance_share(values) if values.shape[2] > 1 else np.full(len(idx), np.nan)
+        for j, i in enumerate(idx):
+            out[i] = _row(cells[i], res, j, shares[j], settings)
+        del caught
+    return (
+        pd.DataFrame(out, columns=CURVE_COLUMNS)
+        .sort_values(["arm", "task", "size"], kind="stable")
+        .reset_index(drop=True)
+    )
+
+
+def _label(settings: CurveSettings) -> str:
+    if settings.method in ("t", "hall") and settings.estimator != "mean":
+        return "t (bootstrap SE)"  # the closed forms are for the mean
+    return settings.method
+
+
+def _row(cell: dict, res, j: int, share: float, settings: CurveSettings) -> dict[str, object]:  # type: ignore[no-untyped-def]
+    n = res.n
+    notes = []
+    if n < 2:
+        notes.append("one seed: no interval")
+    elif n < 3:
+        notes.append("under 3 seeds")
+    if n >= 2 and bool(res.degenerate[j]):
+        notes.append("all seeds equal")
+    if cell["uneven"]:
+        notes.append("uneven replicates: averaged per seed")
+    return {
+        "arm": cell["arm"],
+        "role": cell["role"],
+        "task": cell["task"],
+        "group": cell["group"],
+        "size": int(cell["size"]),
+        "estimate": float(res.estimate[j]),
+        "low": float(res.low[j]),
+        "high": float(res.high[j]),
+        "confidence": settings.confidence,
+        "method": _label(settings),
+        "estimator": settings.estimator,
+        "n_seeds": n,
+        "n_replicates": int(cell["r"]),
+        "subset_share": float(share),
+        "note": "; ".join(notes),
+    }

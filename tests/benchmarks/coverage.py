@@ -1,0 +1,130 @@
+"""Coverage of every interval method at few seeds, by simulation.
+
+Run: python tests/benchmarks/coverage.py [--studies 4000] [--resamples 2000]
+
+Each simulated study draws n seeds from a distribution with a known mean and asks
+each method for a 95% interval of the mean; coverage is the share of studies whose
+interval holds the true mean, width the mean width. Distributions: normal(0, 1),
+lognormal(0, 0.5) (mean exp(1/8)), and a two-mode mixture 0.7 N(0, 1) + 0.3 N(4, 1)
+(mean 1.2), the shape of a study where some seeds "click" and others do not.
+The Monte Carlo standard error of a coverage near 95% with 4000 studies is about 0.35
+points. The studies are independent cells of one engine call, so this also exercises
+the vectorised engine.
+"""
+
+from __future__ import annotations
+
+import argparse
+import warnings
+
+import numpy as np
+
+from fewshot.stats.bootstrap import METHODS, bootstrap_cells
+from fewshot.stats.estimators import ESTIMATORS
+
+DISTRIBUTIONS = {
+    "normal": (lambda rng, size: rng.normal(0.0, 1.0, size), 0.0),
+    "lognormal": (lambda rng, size: rng.lognormal(0.0, 0.5, size), float(np.exp(0.125))),
+    "two-mode": (
+        lambda rng, size: np.where(
+            rng.random(size) < 0.3, rng.normal(4.0, 1.0, size), rng.normal(0.0, 1.0, size)
+        ),
+        1.2,
+    ),
+}
+
+
+def coverage_table(
+    studies: int,
+    resamples: int,
+    seeds: tuple[int, ...] = (3, 5, 10),
+    confidence: float = 0.95,
+    rng_seed: int = 2026,
+) -> list[dict[str, object]]:
+    rng = np.random.default_rng(rng_seed)
+    rows = []
+    for dist, (draw, truth) in DISTRIBUTIONS.items():
+        for n in seeds:
+            data = draw(rng, (studies, n))
+            for method in METHODS:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    res = bootstrap_cells(
+                        data,
+                        ESTIMATORS["mean"],
+                        method=method,
+                        confidence=confidence,
+                        resamples=resamples,
+                        rng=rng,
+                        is_mean=True,
+                    )
+                ok = np.isfinite(res.low) & np.isfinite(res.high)
+                covered = (res.low <= truth) & (truth <= res.high) & ok
+                w = res.high - res.low
+                rows.append(
+                    {
+                        "distribution": dist,
+                        "seeds": n,
+                        "method": method,
+                        "coverage": float(covered.mean()),
+                        "width": float(np.nanmean(w)),
+                        "p90_width": float(np.nanquantile(w, 0.9)),
+                    }
+                )
+    return rows
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__)
+    parser.add_argument("--studies", type=int, default=4000)
+    parser.add_argument("--resamples", type=int, default=2000)
+    args = parser.parse_args()
+    rows = coverage_table(args.studies, args.resamples)
+    print(
+        f"nominal 95% intervals of the mean; {args.studies} simulated studies per row, "
+        f"{args.resamples} resamples each"
+    )
+    print(f"{'distribution':12} {'seeds':>5}  " + "  ".join(f"{m:>15}" for m in METHODS))
+    for dist in DISTRIBUTIONS:
+        for n in (3, 5, 10):
+            cells = [r for r in rows if r["distribution"] == dist and r["seeds"] == n]
+            text = "  ".join(f"{r['coverage']:6.1%} w{min(r['width'], 999.99):6.2f}" for r in cells)
+            print(f"{dist:12} {n:>5}  {text}")
+    print(
+        "cells: coverage, then mean width (w). Default method: the narrowest that reaches 93-97% at 5 seeds on every"
+        " distribution."
+    )
+    print("methods within 93-97% at 5 seeds on all three:", ", ".join(within_band(rows)) or "none")
+    band = within_band(rows)
+    if band:
+        five = [r for r in rows if r["seeds"] == 5]
+        best = min(band, key=lambda m: np.mean([r["width"] for r in five if r["method"] == m]))
+        print("narrowest of those (the rule's default):", best)
+    else:
+        print(
+            "no method meets the rule; the default is the t interval (see the README, 'Intervals at few seeds')"
+        )
+    widths = typical_widths(rows)
+    print(
+        "90th percentile of width at 5 normal seeds (erratic intervals show here):",
+        ", ".join(f"{m} {w:.2f}" for m, w in widths.items()),
+    )
+
+
+def typical_widths(rows: list[dict[str, object]]) -> dict[str, float]:
+    return {
+        str(r["method"]): float(r["p90_width"])
+        for r in rows
+        if r["distribution"] == "normal" and r["seeds"] == 5
+    }
+
+
+def within_band(rows: list[dict[str, object]], n: int = 5) -> list[str]:
+    cells = [r for r in rows if r["seeds"] == n]
+    return [
+        m for m in METHODS if all(0.93 <= r["coverage"] <= 0.97 for r in cells if r["method"] == m)
+    ]
+
+
+if __name__ == "__main__":
+    main()
