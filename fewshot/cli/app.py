@@ -7,7 +7,7 @@ from typing import Annotated
 import typer
 
 from fewshot import __version__
-from fewshot.cli import draw_cmd, results_cmd, runs_cmd, study_cmd
+from fewshot.cli import draw_cmd, results_cmd, runs_cmd, stats_cmd, study_cmd
 from fewshot.cli.common import STATE
 
 app = typer.Typer(
@@ -54,6 +54,7 @@ app.command("record")(results_cmd.record)
 app.command("ingest")(results_cmd.ingest)
 app.command("status")(results_cmd.status)
 app.command("export")(results_cmd.export)
+app.command("curves")(stats_cmd.curves_cmd)
 
 
 def main() -> None:

@@ -38,7 +38,7 @@ AGGREGATE_COLUMNS = [
 
 def aggregate_curves(
     scores: pd.DataFrame,
-    settings: CurveSettings = CurveSettings(),
+    settings: CurveSettings | None = None,
     *,
     value: str = "normalised",
     by_group: bool = False,
@@ -52,7 +52,7 @@ def aggregate_curves(
         Columns: arm, role, group (None across all tasks), size, aggregate, estimate, low, high,
         confidence, method, n_tasks, n_seeds (fewest seeds of any task in the cell), n_runs, note.
     """
-    settings.check()
+    settings = (settings or CurveSettings()).check()
     for a in aggregates:
         if a not in AGGREGATES:
             raise InvalidInput(f"aggregate must be one of {', '.join(AGGREGATES)}. Got {a!r}.")

@@ -146,19 +146,18 @@ def bootstrap_cells(
         return CellIntervals(
             estimate, nan, nan.copy(), nan.copy(), n, r, method, confidence, resamples, degenerate
         )
-    theta_b, sd_b = _resample(data, estimator, resamples, rng, want_sd=method == "bootstrap-t")
-    se = theta_b.std(axis=1, ddof=1)
+    dist = _resample(
+        data, estimator, resamples, rng, want_sd=method == "bootstrap-t", is_mean=is_mean
+    )
+    se = dist.std()
     alpha = 1 - confidence
     if method in ("percentile", "basic", "expanded"):
         a = alpha if method != "expanded" else _expanded_alpha(alpha, n)
-        lo, hi = (
-            _quantiles(theta_b, np.full(cells, a / 2)),
-            _quantiles(theta_b, np.full(cells, 1 - a / 2)),
-        )
+        lo, hi = dist.quantiles(np.full(cells, a / 2)), dist.quantiles(np.full(cells, 1 - a / 2))
         if method == "basic":
             lo, hi = 2 * estimate - hi, 2 * estimate - lo
     elif method == "bca":
-        lo, hi = _bca(seed_level, estimator, estimate, theta_b, alpha)
+        lo, hi = _bca(seed_level, estimator, estimate, dist, alpha)
     elif method == "t" or (method == "hall" and not is_mean):
         spread = seed_level.std(axis=1, ddof=1) / np.sqrt(n) if is_mean else se
         q = stats.t.ppf(1 - alpha / 2, n - 1)
@@ -166,12 +165,14 @@ def bootstrap_cells(
     elif method == "hall":
         lo, hi = _hall(seed_level, alpha)
     else:  # bootstrap-t
+        assert dist.sd is not None
         s_hat = seed_level.std(axis=1, ddof=1) / np.sqrt(n)
         with np.errstate(divide="ignore", invalid="ignore"):
-            t_b = (theta_b - estimate[:, None]) / (sd_b / np.sqrt(n))
+            t_b = (dist.values - estimate[:, None]) / (dist.sd / np.sqrt(n))
         t_b[~np.isfinite(t_b)] = np.nan  # resamples of one repeated value carry no spread
-        lo = estimate - _quantiles(t_b, np.full(cells, 1 - alpha / 2)) * s_hat
-        hi = estimate - _quantiles(t_b, np.full(cells, alpha / 2)) * s_hat
+        t_dist = _Dist(t_b, dist.weights, dist.inverse)
+        lo = estimate - t_dist.quantiles(np.full(cells, 1 - alpha / 2)) * s_hat
+        hi = estimate - t_dist.quantiles(np.full(cells, alpha / 2)) * s_hat
     if degenerate.any():
         warnings.warn(
             f"{int(degenerate.sum())} cell(s) have the same value in every seed: their intervals are "
@@ -197,8 +198,59 @@ def bootstrap_cells(
         confidence,
         resamples,
         degenerate,
-        theta_b if keep_distribution else None,
+        dist.expand() if keep_distribution else None,
     )
+
+
+@dataclass(frozen=True)
+class _Dist:
+    """A bootstrap distribution held compactly: the distinct resampled values of each cell and
+    how many of the resamples gave each (resamples that drew the same multiset of seeds give
+    the same value, which at 3-8 seeds is most of them).
+
+    ``values`` is cells × u, ``weights`` (u,) sums to the number of resamples, ``inverse`` maps
+    every resample to its column (None when no two resamples were merged).
+    """
+
+    values: np.ndarray
+    weights: np.ndarray
+    inverse: np.ndarray | None = None
+    sd: np.ndarray | None = None
+
+    @property
+    def resamples(self) -> int:
+        return int(self.weights.sum())
+
+    def expand(self) -> np.ndarray:
+        return self.values if self.inverse is None else self.values[:, self.inverse]
+
+    def std(self) -> np.ndarray:
+        w = self.weights
+        mean = (self.values * w).sum(axis=1) / w.sum()
+        return np.sqrt(((self.values - mean[:, None]) ** 2 * w).sum(axis=1) / (w.sum() - 1))
+
+    def count(self, estimate: np.ndarray, *, inclusive: bool) -> np.ndarray:
+        hit = self.values <= estimate[:, None] if inclusive else self.values < estimate[:, None]
+        return (hit * self.weights).sum(axis=1)
+
+    def quantiles(self, q: np.ndarray) -> np.ndarray:
+        """Per-row quantiles by numpy's default (linear) rule over the full set of resamples."""
+        if self.inverse is None:
+            return _quantiles(self.values, q)
+        order = np.argsort(self.values, axis=1)  # NaN sorts last
+        vals = np.take_along_axis(self.values, order, axis=1)
+        w = self.weights[order] * np.isfinite(vals)
+        cum = np.cumsum(w, axis=1)
+        m = cum[:, -1]
+        valid = (m > 0) & np.isfinite(q)
+        pos = np.clip(np.where(valid, q, 0.0), 0, 1) * np.maximum(m - 1, 0)
+        k = np.floor(pos)
+        frac = pos - k
+        k1 = np.minimum(k + 1, np.maximum(m - 1, 0))
+        # the value of sorted resample k is the first distinct value whose cumulative count exceeds k
+        at = np.take_along_axis(vals, (cum > k[:, None]).argmax(axis=1)[:, None], axis=1)[:, 0]
+        nxt = np.take_along_axis(vals, (cum > k1[:, None]).argmax(axis=1)[:, None], axis=1)[:, 0]
+        return np.where(valid, at * (1 - frac) + nxt * frac, np.nan)
 
 
 def _resample(
@@ -208,8 +260,14 @@ def _resample(
     rng: np.random.Generator,
     *,
     want_sd: bool,
-) -> tuple[np.ndarray, np.ndarray | None]:
+    is_mean: bool = False,
+) -> _Dist:
     cells, n, r = data.shape
+    if r == 1:
+        return _resample_seeds(
+            data[:, :, 0], estimator, resamples, rng, want_sd=want_sd, is_mean=is_mean
+        )
+    # two levels: seeds, then replicates within each drawn seed
     per = max(1, MAX_ELEMENTS // max(1, cells * n * r))
     theta = np.empty((cells, resamples))
     sd = np.empty((cells, resamples)) if want_sd else None
@@ -217,29 +275,95 @@ def _resample(
     while done < resamples:
         b = min(per, resamples - done)
         idx = rng.integers(0, n, size=(b, n))
-        if r == 1:
-            seeds = data[:, idx, 0]  # cells × b × n
-        else:
-            ridx = rng.integers(0, r, size=(b, n, r))
-            seeds = data[:, idx[:, :, None], ridx].mean(axis=3)
+        ridx = rng.integers(0, r, size=(b, n, r))
+        seeds = data[:, idx[:, :, None], ridx].mean(axis=3)
         theta[:, done : done + b] = estimator(seeds)
         if sd is not None:
             sd[:, done : done + b] = seeds.std(axis=2, ddof=1)
         done += b
-    return theta, sd
+    return _Dist(theta, np.ones(resamples, dtype=np.int64), None, sd)
+
+
+def _resample_seeds(
+    x: np.ndarray,
+    estimator: Callable[[np.ndarray], np.ndarray],
+    resamples: int,
+    rng: np.random.Generator,
+    *,
+    want_sd: bool,
+    is_mean: bool,
+) -> _Dist:
+    """One level: draw seed indices (the same integers scipy.stats.bootstrap draws), then
+    evaluate the estimator once per distinct multiset of seeds."""
+    cells, n = x.shape
+    idx = rng.integers(0, n, size=(resamples, n))
+    counts = np.zeros((resamples, n), dtype=np.int64)
+    for j in range(n):  # n is a handful of seeds: a loop over columns beats a scatter
+        counts += idx[:, j, None] == np.arange(n)
+    if n <= 12:  # a count row as one integer in base n + 1 (fits 64 bits), so unique is 1-D
+        codes = counts @ ((n + 1) ** np.arange(n, dtype=np.int64))
+        _, first, inverse, weights = np.unique(
+            codes, return_index=True, return_inverse=True, return_counts=True
+        )
+        distinct = counts[first]
+    else:  # many seeds: resamples rarely repeat, nothing to merge
+        distinct, inverse, weights = (
+            counts,
+            np.arange(resamples),
+            np.ones(resamples, dtype=np.int64),
+        )
+    inverse = inverse.ravel()
+    merged = len(distinct) <= resamples // 4
+    rows = distinct if merged else counts
+    w = weights if merged else np.ones(resamples, dtype=np.int64)
+    values = np.empty((cells, len(rows)))
+    sd = np.empty((cells, len(rows))) if want_sd else None
+    per = max(1, MAX_ELEMENTS // max(1, cells * n))
+    for start in range(0, len(rows), per):
+        block = rows[start : start + per]
+        if is_mean:
+            means = x @ block.T / n
+            values[:, start : start + len(block)] = means
+            if sd is not None:
+                sq = (x**2) @ block.T
+                spread = np.sqrt(np.maximum(sq - n * means**2, 0) / (n - 1))
+                spread[:, block.max(axis=1) == n] = 0.0  # one seed drawn n times: exactly no spread
+                sd[:, start : start + len(block)] = spread
+        else:
+            picks = np.repeat(np.tile(np.arange(n), len(block)), block.ravel()).reshape(
+                len(block), n
+            )
+            seeds = x[:, picks]
+            values[:, start : start + len(block)] = estimator(seeds)
+            if sd is not None:
+                sd[:, start : start + len(block)] = seeds.std(axis=2, ddof=1)
+    return _Dist(values, w, inverse if merged else None, sd)
 
 
 def _quantiles(theta: np.ndarray, q: np.ndarray) -> np.ndarray:
-    """Per-row quantiles with per-row levels, by numpy's default (linear) rule; NaNs ignored."""
-    s = np.sort(theta, axis=1)  # NaN sorts last
-    m = np.isfinite(s).sum(axis=1)
-    pos = np.clip(q, 0, 1) * (m - 1)
+    """Per-row quantiles at per-row levels by numpy's default (linear) rule, NaNs left out.
+
+    Only the two order statistics around each level are needed, so rows are partitioned,
+    not sorted: all rows at once when they share a level, else row by row.
+    """
+    rows, b = theta.shape
+    finite = np.isfinite(theta)
+    m = finite.sum(axis=1)
+    valid = (m > 0) & np.isfinite(q)
+    pos = np.clip(np.where(valid, q, 0.0), 0, 1) * np.maximum(m - 1, 0)
     lo = np.floor(pos).astype(int)
-    hi = np.minimum(lo + 1, m - 1)
-    rows = np.arange(s.shape[0])
+    hi = np.minimum(lo + 1, np.maximum(m - 1, 0))
     frac = pos - lo
-    out = s[rows, lo] * (1 - frac) + s[rows, hi] * frac
-    return np.where((m > 0) & np.isfinite(q), out, np.nan)
+    out = np.full(rows, np.nan)
+    if finite.all() and np.all(lo == lo[0]):
+        part = np.partition(theta, sorted({int(lo[0]), int(hi[0])}), axis=1)
+        out = part[:, lo[0]] * (1 - frac) + part[:, hi[0]] * frac
+    else:
+        for i in np.flatnonzero(valid):
+            row = theta[i][finite[i]] if m[i] < b else theta[i]
+            part = np.partition(row, sorted({int(lo[i]), int(hi[i])}))
+            out[i] = part[lo[i]] * (1 - frac[i]) + part[hi[i]] * frac[i]
+    return np.where(valid, out, np.nan)
 
 
 def _hall(x: np.ndarray, alpha: float) -> tuple[np.ndarray, np.ndarray]:
@@ -272,14 +396,14 @@ def _bca(
     seed_level: np.ndarray,
     estimator: Callable[[np.ndarray], np.ndarray],
     estimate: np.ndarray,
-    theta_b: np.ndarray,
+    dist: _Dist,
     alpha: float,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Efron & Tibshirani (1993) eq. 14.14 (z0) and 14.15 (acceleration by the jackknife)."""
     cells, n = seed_level.shape
-    b = theta_b.shape[1]
-    below = (theta_b < estimate[:, None]).sum(axis=1)
-    at_or_below = (theta_b <= estimate[:, None]).sum(axis=1)
+    b = dist.resamples
+    below = dist.count(estimate, inclusive=False)
+    at_or_below = dist.count(estimate, inclusive=True)
     z0 = special.ndtri((below + at_or_below) / (2 * b))  # ties counted half, as scipy does
     keep = ~np.eye(n, dtype=bool)
     jack = np.stack([estimator(seed_level[:, keep[i]]) for i in range(n)], axis=1)  # cells × n
@@ -290,4 +414,4 @@ def _bca(
     with np.errstate(divide="ignore", invalid="ignore"):
         a1 = special.ndtr(z0 + (z0 + z[0]) / (1 - accel * (z0 + z[0])))
         a2 = special.ndtr(z0 + (z0 + z[1]) / (1 - accel * (z0 + z[1])))
-    return _quantiles(theta_b, a1), _quantiles(theta_b, a2)
+    return dist.quantiles(a1), dist.quantiles(a2)

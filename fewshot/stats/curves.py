@@ -94,7 +94,7 @@ def variance_share(values: np.ndarray) -> np.ndarray:
 
 
 def curves(
-    scores: pd.DataFrame, settings: CurveSettings = CurveSettings(), *, value: str = "score"
+    scores: pd.DataFrame, settings: CurveSettings | None = None, *, value: str = "score"
 ) -> pd.DataFrame:
     """Curve points for every (arm, task, size) of a scores table.
 
@@ -112,7 +112,7 @@ def curves(
         Columns: arm, role, task, group, size, estimate, low, high, confidence, method, estimator,
         n_seeds, n_replicates, subset_share (NaN without replicates), note.
     """
-    settings.check()
+    settings = (settings or CurveSettings()).check()
     data = scores.dropna(subset=[value])
     if data.empty:
         return pd.DataFrame(columns=CURVE_COLUMNS)

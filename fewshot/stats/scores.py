@@ -145,7 +145,7 @@ def normalise(
     ``reference = "none"``.
     """
     refs = tasks.set_index("task")[["floor", "expert"]]
-    for t, row in refs.iterrows():
+    for t, row in refs[refs.index.isin(scores["task"].unique())].iterrows():
         if pd.notna(row["floor"]) and pd.notna(row["expert"]):
             wrong = (
                 row["expert"] <= row["floor"] if higher_is_better else row["expert"] >= row["floor"]

@@ -1,0 +1,158 @@
+"""``fewshot curves``: data-efficiency curves with bootstrap intervals."""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import Annotated
+
+import pandas as pd
+import typer
+from rich.table import Table
+
+from fewshot.cli.common import (
+    LEDGER_HELP,
+    STUDY_HELP,
+    TableJsonCsv,
+    err,
+    open_ledger,
+    out,
+    print_json,
+    reporting,
+)
+from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS
+
+LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
+StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
+MetricOpt = Annotated[
+    str | None, typer.Option("--metric", help="Metric to score runs by (default: the study's).")
+]
+SelectOpt = Annotated[
+    str,
+    typer.Option(
+        "--select", help="Score rule: final, best:<val metric>, least:<val metric>, last:<k>."
+    ),
+]
+EstimatorOpt = Annotated[str, typer.Option("--estimator", help="mean, median or iqm over seeds.")]
+CiOpt = Annotated[str, typer.Option("--ci", help=f"Interval method: {', '.join(METHODS)}.")]
+ConfidenceOpt = Annotated[
+    float, typer.Option("--confidence", help="Confidence level of the intervals.")
+]
+ResamplesOpt = Annotated[int, typer.Option("--resamples", help="Bootstrap resamples.")]
+SeedOpt = Annotated[
+    int, typer.Option("--seed", help="Seed of the resampling (results are reproducible).")
+]
+
+
+def _fmt(x: float) -> str:
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "-"
+    return f"{x:.3g}" if abs(x) < 1000 else f"{x:.0f}"
+
+
+def _cell(row: pd.Series, show_n: bool) -> str:
+    flag = " [red]![/]" if row["n_seeds"] < 3 else ""
+    n = f" n{row['n_seeds']}" if show_n else ""
+    if math.isnan(row["low"]):
+        return f"{_fmt(row['estimate'])}[dim]{n}[/]{flag}"
+    return f"{_fmt(row['estimate'])} [dim]\\[{_fmt(row['low'])}, {_fmt(row['high'])}]{n}[/]{flag}"
+
+
+def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
+    """The curves as a rich table: rows arm × task (or aggregate), columns sizes."""
+    t = report.table
+    sizes = sorted(set(t["size"]))
+    label = "normalised " if report.value == "normalised" else ""
+    s = report.settings
+    title = (
+        f"{report.scores.metric} ({label}{report.kind}): {s.estimator} over seeds, "
+        f"{s.confidence:.0%} {t['method'].iloc[0] if len(t) else s.method} intervals"
+    )
+    table = Table(title=title, title_justify="left")
+    firsts = (
+        ["arm", "task"]
+        if report.kind == "per-task"
+        else (["arm", "group", "aggregate"] if report.kind == "by-group" else ["arm", "aggregate"])
+    )
+    for c in firsts:
+        table.add_column(c, no_wrap=True)
+    show_n = t["n_seeds"].nunique() > 1
+    for n in sizes:
+        table.add_column(f"n{n}", justify="right")
+    for key, rows in t.groupby(firsts, sort=False, dropna=False):
+        by = {int(r["size"]): r for _, r in rows.iterrows()}
+        keys = key if isinstance(key, tuple) else (key,)
+        table.add_row(
+            *[str(k) for k in keys], *[_cell(by[n], show_n) if n in by else "" for n in sizes]
+        )
+    out.print(table)
+    seeds = (
+        f"seeds per interval: {int(t['n_seeds'].min())} to {int(t['n_seeds'].max())} (nK in a cell)"
+        if show_n
+        else f"seeds per interval: {int(t['n_seeds'].iloc[0])}"
+        if len(t)
+        else ""
+    )
+    out.print(
+        f"score rule: {report.scores.rule}; {s.resamples} resamples, seed {s.seed}; {seeds}; "
+        "[dim]\\[low, high] = interval; ! = fewer than 3 seeds[/]",
+        markup=True,
+    )
+    for note in report.notes:
+        err.print(f"note: {note}")
+
+
+def curves_cmd(
+    *,
+    metric: MetricOpt = None,
+    select: SelectOpt = "final",
+    normalised: Annotated[
+        bool, typer.Option("--normalised", help="Scores as (score - floor) / (expert - floor).")
+    ] = False,
+    estimator: EstimatorOpt = "mean",
+    ci: CiOpt = DEFAULT_METHOD,
+    confidence: ConfidenceOpt = 0.95,
+    resamples: ResamplesOpt = 10_000,
+    seed: SeedOpt = 0,
+    across_tasks: Annotated[
+        bool, typer.Option("--across-tasks", help="Aggregate normalised scores over all tasks.")
+    ] = False,
+    by_group: Annotated[
+        bool, typer.Option("--by-group", help="Aggregate normalised scores per task group.")
+    ] = False,
+    fmt: Annotated[
+        TableJsonCsv, typer.Option("--format", help="table, csv or json.")
+    ] = TableJsonCsv.table,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Data-efficiency curves: an estimate and a bootstrap interval per arm, task and size."""
+    from fewshot.analysis import curve_report
+    from fewshot.stats import CurveSettings
+
+    with reporting():
+        settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
+        led = open_ledger(ledger, study)
+        try:
+            report = curve_report(
+                led,
+                settings,
+                metric=metric,
+                select=select,
+                normalised=normalised,
+                across_tasks=across_tasks,
+                by_group=by_group,
+            )
+        finally:
+            led.close()
+    table = report.table.copy()
+    if report.kind != "per-task":
+        table.insert(2, "task", None)
+    table["rule"] = report.scores.rule
+    table["value"] = report.value
+    if fmt is TableJsonCsv.json:
+        print_json({"rows": json.loads(table.to_json(orient="records")), "notes": report.notes})
+    elif fmt is TableJsonCsv.csv:
+        typer.echo(table.to_csv(index=False), nl=False)
+    else:
+        print_curve_table(report)
