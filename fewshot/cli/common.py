@@ -7,7 +7,7 @@ import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
 from enum import StrEnum
-from typing import Any
+from typing import Annotated, Any
 
 import typer
 from rich.console import Console
@@ -83,6 +83,8 @@ class TableJsonCsv(StrEnum):
 
 LEDGER_HELP = "Ledger: a path or SQLAlchemy URL (default: $FEWSHOT_LEDGER, else fewshot.sqlite)."
 STUDY_HELP = "The study to use when the ledger holds more than one."
+LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
+StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
 
 _UNITS = {"s": 1, "m": 60, "h": 3600, "d": 86400}
 

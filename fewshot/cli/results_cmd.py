@@ -11,8 +11,8 @@ import typer
 from rich.table import Table
 
 from fewshot.cli.common import (
-    LEDGER_HELP,
-    STUDY_HELP,
+    LedgerOpt,
+    StudyOpt,
     TableJsonCsv,
     err,
     open_ledger,
@@ -23,9 +23,6 @@ from fewshot.cli.common import (
     reporting,
 )
 from fewshot.errors import InvalidInput
-
-LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
-StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
 
 
 def _pairs(items: list[str]) -> list[tuple[str, float]]:

@@ -11,8 +11,8 @@ from typing import Annotated
 import typer
 
 from fewshot.cli.common import (
-    LEDGER_HELP,
-    STUDY_HELP,
+    LedgerOpt,
+    StudyOpt,
     TableOrJson,
     duration,
     err,
@@ -23,8 +23,6 @@ from fewshot.cli.common import (
 )
 from fewshot.errors import InvalidInput
 
-LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
-StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
 WorkerOpt = Annotated[
     str, typer.Option("--worker", help="A name for this worker, e.g. the host name.")
 ]

@@ -11,8 +11,8 @@ import typer
 from rich.table import Table
 
 from fewshot.cli.common import (
-    LEDGER_HELP,
-    STUDY_HELP,
+    LedgerOpt,
+    StudyOpt,
     TableJsonCsv,
     err,
     open_ledger,
@@ -22,8 +22,6 @@ from fewshot.cli.common import (
 )
 from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS
 
-LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
-StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
 MetricOpt = Annotated[
     str | None, typer.Option("--metric", help="Metric to score runs by (default: the study's).")
 ]
