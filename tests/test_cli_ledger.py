@@ -404,6 +404,7 @@ def test_an_interrupted_exec_hands_the_run_back(tmp_path: Path):
         if led.counts()["running"] == 1:
             break
         time.sleep(0.1)
+    time.sleep(0.5)  # let the trainer start: the signal should find exec waiting on it
     proc.send_signal(signal.SIGINT)
     assert proc.wait(timeout=60) == 130
     assert led.counts() == {"planned": 1, "running": 0, "done": 0, "failed": 0}

@@ -117,9 +117,15 @@ def run_claims(
         claim = ledger.claim(worker, lease)
         if claim is None:
             break
-        if on_start is not None:
-            on_start(claim)
-        outcome = _run_one(ledger, claim, command, lease, results_dir, ledger_url, study)
+        try:
+            if on_start is not None:
+                on_start(claim)
+            outcome = _run_one(ledger, claim, command, lease, results_dir, ledger_url, study)
+        except KeyboardInterrupt:
+            # Stopped by the user: hand the run back to the plan at once rather than
+            # leaving it to wait for its lease to expire.
+            ledger.release(claim.key, claim.worker)
+            raise
         outcomes.append(outcome)
         if on_end is not None:
             on_end(outcome)
@@ -164,15 +170,12 @@ def _run_one(
     try:
         rc = proc.wait()
     except KeyboardInterrupt:
-        # Stopped by the user: end the trainer and hand the run back to the plan at once,
-        # rather than leaving it to wait for its lease to expire.
         stop.set()
         proc.terminate()
         try:
             proc.wait(timeout=10)
         except subprocess.TimeoutExpired:
             proc.kill()
-        ledger.release(claim.key, claim.worker)
         raise
     stop.set()
     threads[0].join()
