@@ -150,3 +150,102 @@ def caveats(report: CurveReport) -> list[str]:
     if report.scores.rule != "final":
         notes.append(f"scores chosen by the rule {report.scores.rule}, not the final evaluation")
     return notes
+
+
+@dataclass(frozen=True)
+class CompareReport:
+    """Every transfer measure of a study against one baseline.
+
+    Attributes
+    ----------
+    table : DataFrame
+        One row per (arm, task, size): difference, P(improvement) and effective data, with lows,
+        highs and censoring (task ``"all"``: means over tasks).
+    thresholds, areas : DataFrame
+        Episodes to reach the threshold; areas under the normalised curves.
+    baseline, value : str
+    threshold : float
+    settings : CurveSettings
+    scores : StudyScores
+    notes : list of str
+    """
+
+    table: pd.DataFrame
+    thresholds: pd.DataFrame
+    areas: pd.DataFrame
+    baseline: str
+    value: str
+    threshold: float
+    settings: CurveSettings
+    scores: StudyScores
+    notes: list[str] = field(default_factory=list)
+
+
+def compare_report(
+    ledger: Ledger,
+    settings: CurveSettings,
+    *,
+    baseline: str | None = None,
+    arms: list[str] | None = None,
+    threshold: float = 1.0,
+    metric: str | None = None,
+    select: str = "final",
+) -> CompareReport:
+    """Arms against the baseline (the study's by default): the transfer table and friends."""
+    from fewshot.stats.transfer import (
+        check_baseline,
+        curve_areas,
+        effective_data,
+        improvement_probability,
+        paired_differences,
+        threshold_sizes,
+    )
+
+    settings.check()
+    sc = load_scores(ledger, metric=metric, select=select)
+    base = baseline or ledger.study_row()["baseline"]
+    chosen = check_baseline(sc.scores, base, arms)
+    tasks = sorted(sc.scores["task"].unique())
+    value = "normalised" if not sc.raw_tasks else "score"
+    notes = []
+    if value == "score":
+        notes.append(f"differences are in raw {sc.metric} (tasks without floor/expert: {', '.join(sc.raw_tasks)})")
+    diff = paired_differences(sc.scores, base, settings, value=value, arms=chosen)
+    poi = improvement_probability(sc.scores, base, settings, value=value, arms=chosen)
+    eff = effective_data(sc.scores, base, settings, value="score", arms=chosen)
+    keys = ["arm", "task", "size"]
+    table = diff.merge(poi.rename(columns={"low": "p_low", "high": "p_high", "n_seeds": "p_seeds"}), on=keys, how="left")
+    table = table.merge(eff.drop(columns=["n_seeds"]), on=keys, how="left")
+    normed = sc.scores[sc.scores["reference"] == "floor/expert"]
+    thresholds = pd.DataFrame()
+    areas = pd.DataFrame()
+    if len(normed):
+        lo, hi = float(normed["normalised"].min()), float(normed["normalised"].max())
+        if not lo <= threshold <= max(hi, 1.0):
+            raise InvalidInput(
+                f"--threshold {threshold} lies outside the data: normalised scores run from {lo:.3g} to {hi:.3g} "
+                "(1 = the expert). Pick a threshold in that range, e.g. 0.5 or 1.0."
+            )
+        thresholds = threshold_sizes(normed, threshold, settings)
+        areas = curve_areas(normed, settings)
+    else:
+        notes.append("no task has floor and expert: episodes-to-threshold and areas need normalised scores")
+    for task in tasks:
+        b_sizes = set(sc.scores[(sc.scores["arm"] == base) & (sc.scores["task"] == task)]["size"])
+        for arm in chosen:
+            a_sizes = set(sc.scores[(sc.scores["arm"] == arm) & (sc.scores["task"] == task)]["size"])
+            missing = sorted(s for s in a_sizes - b_sizes if s > 0)
+            if missing:
+                notes.append(f"baseline {base!r} has no runs at size(s) {', '.join(map(str, missing))} on task "
+                             f"{task!r}: no comparison with {arm!r} there")
+    n_min = int(table["n_seeds"].min()) if len(table) else 0
+    notes.append(f"pairs by seed (same subsets); seeds behind each comparison: {n_min} or more")
+    if n_min < 3:
+        notes.append("some comparisons rest on fewer than 3 seeds: do not read them as evidence")
+    notes.append("P(improvement), effective data, thresholds and areas use expanded percentile intervals of "
+                 "whole-curve resamples")
+    if (table["censor"] == "lower_bound").any():
+        notes.append("'>=' marks effective data that is only a lower bound: the arm beats the baseline's best point")
+    if (thresholds.get("censor", pd.Series(dtype=str)) == "not_reached").any():
+        notes.append(f"some arms never reach {threshold:g} (normalised) by the largest size: shown as '> largest'")
+    return CompareReport(table, thresholds, areas, base, value, threshold, settings, sc, notes)

@@ -7,7 +7,7 @@ from typing import Annotated
 import typer
 
 from fewshot import __version__
-from fewshot.cli import draw_cmd, results_cmd, runs_cmd, stats_cmd, study_cmd
+from fewshot.cli import compare_cmd, draw_cmd, results_cmd, runs_cmd, stats_cmd, study_cmd
 from fewshot.cli.common import STATE
 
 app = typer.Typer(
@@ -55,6 +55,8 @@ app.command("ingest")(results_cmd.ingest)
 app.command("status")(results_cmd.status)
 app.command("export")(results_cmd.export)
 app.command("curves")(stats_cmd.curves_cmd)
+app.command("compare")(compare_cmd.compare)
+app.command("seeds-needed")(compare_cmd.seeds_needed_cmd)
 
 
 def main() -> None:

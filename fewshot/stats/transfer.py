@@ -1,0 +1,333 @@
+"""What pretraining is worth: arms against a baseline, paired by seed (the same subsets).
+
+- paired differences of estimates per (task, size), and their mean across tasks;
+- probability of improvement P(arm > baseline) (Agarwal et al. 2021), per task and averaged;
+- episodes needed to reach a threshold, interpolated on log size, censored when never reached;
+- effective data transferred and the data multiplier (Hernandez et al. 2021, "Scaling laws for
+  transfer"): the size D_E the baseline would need to match the arm at size n, read off the
+  baseline's isotonic fit on log size; D_T = D_E - n, multiplier D_E / n;
+- the area under the normalised curve over log size.
+
+Derived quantities get expanded percentile intervals from whole-curve resamples (see
+:mod:`fewshot.stats.resample`); differences use the interval method of the settings.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+
+from fewshot.errors import InvalidInput
+from fewshot.stats.bootstrap import DegenerateCells, bootstrap_cells
+from fewshot.stats.curves import CurveSettings
+from fewshot.stats.estimators import estimator as get_estimator
+from fewshot.stats.isotonic import first_reach, interpolate_log, isotonic_rows
+from fewshot.stats.resample import CurveResampler, interval
+
+__all__ = [
+    "check_baseline",
+    "paired_differences",
+    "improvement_probability",
+    "probability_of_improvement",
+    "threshold_sizes",
+    "effective_data",
+    "curve_areas",
+]
+
+
+def check_baseline(scores: pd.DataFrame, baseline: str, arms: list[str] | None = None) -> list[str]:
+    """The arms to compare with ``baseline``; unknown names are errors that list the known arms."""
+    known = list(dict.fromkeys(scores["arm"]))
+    if baseline not in known:
+        raise InvalidInput(f"baseline {baseline!r} has no scores. Arms with scores: {', '.join(known)}.")
+    chosen = [a for a in known if a != baseline] if arms is None else arms
+    for a in chosen:
+        if a not in known:
+            raise InvalidInput(f"arm {a!r} has no scores. Arms with scores: {', '.join(known)}.")
+        if a == baseline:
+            raise InvalidInput(f"arm {a!r} is the baseline; compare other arms with it.")
+    return chosen
+
+
+def _paired_cells(scores: pd.DataFrame, value: str, arm: str, baseline: str):  # type: ignore[no-untyped-def]
+    """Per (task, size): the seed-level values of arm and baseline on their common seeds."""
+    level = scores.dropna(subset=[value]).groupby(["arm", "task", "size", "seed"])[value].mean()
+    a, b = level.loc[arm], level.loc[baseline]
+    for task in a.index.get_level_values("task").unique():
+        if task not in b.index.get_level_values("task"):
+            continue
+        for size in sorted(a.loc[task].index.get_level_values("size").unique()):
+            if size not in b.loc[task].index.get_level_values("size"):
+                continue
+            x, y = a.loc[(task, size)], b.loc[(task, size)]
+            common = x.index.intersection(y.index)
+            yield task, int(size), x.loc[common].to_numpy(), y.loc[common].to_numpy(), len(x), len(y)
+
+
+def paired_differences(
+    scores: pd.DataFrame, baseline: str, settings: CurveSettings, *, value: str = "score",
+    arms: list[str] | None = None,
+) -> pd.DataFrame:
+    """Arm minus baseline per (arm, task, size), paired by seed, plus each arm's mean over tasks.
+
+    Columns: arm, task (``"all"`` for the mean over tasks), size, difference, low, high, n_seeds,
+    method, note.
+    """
+    settings.check()
+    chosen = check_baseline(scores, baseline, arms)
+    est_name = settings.estimator
+    est = get_estimator(est_name)
+    rows = []
+    rng_root = np.random.SeedSequence(settings.seed)
+    for arm, child in zip(chosen, rng_root.spawn(len(chosen)), strict=True):
+        rng = np.random.default_rng(child)
+        for task, size, x, y, nx, ny in _paired_cells(scores, value, arm, baseline):
+            n = len(x)
+            note = "" if n >= 3 else ("no common seeds" if n == 0 else "under 3 seeds")
+            if nx != n or ny != n:
+                note = "; ".join(filter(None, [note, f"paired on {n} common seeds of {nx} and {ny}"]))
+            if n == 0:
+                rows.append({"arm": arm, "task": task, "size": size, "difference": np.nan, "low": np.nan,
+                             "high": np.nan, "n_seeds": 0, "method": settings.method, "note": note})
+                continue
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", DegenerateCells)
+                if est_name == "mean":  # a difference of means is the mean of the paired differences
+                    res = bootstrap_cells((x - y)[None, :], est, method=settings.method, confidence=settings.confidence,
+                                          resamples=settings.resamples, rng=rng, is_mean=True)
+                    method = settings.method
+                else:  # resample seed positions, then difference the two estimates
+                    def diff(idx: np.ndarray, x=x, y=y) -> np.ndarray:
+                        i = idx.astype(int)
+                        return est(x[i]) - est(y[i])
+
+                    closed = settings.method in ("percentile", "basic", "bca", "expanded")
+                    use = settings.method if closed else "t"  # t and Hall need the mean: bootstrap SE
+                    res = bootstrap_cells(np.arange(n, dtype=float)[None, :], diff, method=use,
+                                          confidence=settings.confidence, resamples=settings.resamples, rng=rng)
+                    method = use if closed else "t (bootstrap SE)"
+            rows.append({"arm": arm, "task": task, "size": size, "difference": float(res.estimate[0]),
+                         "low": float(res.low[0]), "high": float(res.high[0]), "n_seeds": n, "method": method,
+                         "note": note})
+    frame = pd.DataFrame(rows, columns=["arm", "task", "size", "difference", "low", "high", "n_seeds", "method", "note"])
+    across = _across_tasks(scores, baseline, chosen, settings, value)
+    return pd.concat([frame, across], ignore_index=True) if len(across) else frame
+
+
+def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  # type: ignore[no-untyped-def]
+    """Mean over tasks of the per-task differences, with a stratified (per-task) resample."""
+    if scores["task"].nunique() < 2:
+        return pd.DataFrame()
+    rs = CurveResampler(scores, value, settings)
+    rows = []
+    for arm in chosen:
+        tasks = [t for t in rs.seeds if rs.has(arm, t) and rs.has(baseline, t)]
+        sizes = sorted(set.intersection(*[set(rs.sizes(arm, t)) & set(rs.sizes(baseline, t)) for t in tasks])) if tasks else []
+        if not sizes:
+            continue
+        sz = np.array(sizes)
+        point = np.mean([rs.point(arm, t, sz) - rs.point(baseline, t, sz) for t in tasks], axis=0)
+        draws = np.mean([rs.boot(arm, t, sz) - rs.boot(baseline, t, sz) for t in tasks], axis=0)
+        n = min(min(rs.n_seeds(arm, t, sz), rs.n_seeds(baseline, t, sz)) for t in tasks)
+        for k, size in enumerate(sizes):
+            lo, hi = interval(draws[:, k], settings.confidence, n)
+            rows.append({"arm": arm, "task": "all", "size": int(size), "difference": float(point[k]), "low": lo,
+                         "high": hi, "n_seeds": n, "method": "stratified expanded percentile",
+                         "note": f"mean over {len(tasks)} tasks"})
+    return pd.DataFrame(rows)
+
+
+def probability_of_improvement(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """P(X > Y) + P(X = Y)/2 over all pairs, along the last axis (the Mann-Whitney U / (n m))."""
+    gt = (x[..., :, None] > y[..., None, :]).mean(axis=(-2, -1))
+    eq = (x[..., :, None] == y[..., None, :]).mean(axis=(-2, -1))
+    return gt + 0.5 * eq
+
+
+def improvement_probability(
+    scores: pd.DataFrame, baseline: str, settings: CurveSettings, *, value: str = "score",
+    arms: list[str] | None = None,
+) -> pd.DataFrame:
+    """P(arm > baseline) per (arm, task, size) and averaged over tasks (task ``"all"``).
+
+    Columns: arm, task, size, probability, low, high, n_seeds.
+    """
+    chosen = check_baseline(scores, baseline, arms)
+    rs = CurveResampler(scores, value, settings)
+    rows = []
+    for arm in chosen:
+        per_task: dict[int, list[tuple[float, np.ndarray, int]]] = {}
+        for task in rs.seeds:
+            if not (rs.has(arm, task) and rs.has(baseline, task)):
+                continue
+            sizes = np.array(sorted(set(rs.sizes(arm, task)) & set(rs.sizes(baseline, task))))
+            if not len(sizes):
+                continue
+            xa, xb = rs.matrix(arm, task, sizes), rs.matrix(baseline, task, sizes)  # sizes × seeds
+            idx = rs.index[task]
+            for k, size in enumerate(sizes):
+                a, b = xa[k][np.isfinite(xa[k])], xb[k][np.isfinite(xb[k])]
+                n = min(len(a), len(b))
+                p = float(probability_of_improvement(a, b)) if n else np.nan
+                # resample seeds (the task's whole-curve indices), keeping each arm's present runs
+                ga, gb = xa[k][idx], xb[k][idx]
+                draws = _poi_rows(ga, gb)
+                lo, hi = interval(draws, settings.confidence, n)
+                rows.append({"arm": arm, "task": task, "size": int(size), "probability": p, "low": lo, "high": hi,
+                             "n_seeds": n})
+                per_task.setdefault(int(size), []).append((p, draws, n))
+        for size, items in sorted(per_task.items()):
+            if len(items) < 2:
+                continue
+            n = min(i[2] for i in items)
+            draws = np.mean([i[1] for i in items], axis=0)
+            lo, hi = interval(draws, settings.confidence, n)
+            rows.append({"arm": arm, "task": "all", "size": size, "probability": float(np.mean([i[0] for i in items])),
+                         "low": lo, "high": hi, "n_seeds": n})
+    return pd.DataFrame(rows, columns=["arm", "task", "size", "probability", "low", "high", "n_seeds"])
+
+
+def _poi_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """P(improvement) of each resample row, leaving out missing runs."""
+    valid = np.isfinite(a)[:, :, None] & np.isfinite(b)[:, None, :]
+    gt = ((a[:, :, None] > b[:, None, :]) & valid).sum(axis=(1, 2))
+    eq = ((a[:, :, None] == b[:, None, :]) & valid).sum(axis=(1, 2))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return (gt + 0.5 * eq) / valid.sum(axis=(1, 2))
+
+
+def threshold_sizes(
+    scores: pd.DataFrame, threshold: float, settings: CurveSettings, *, value: str = "normalised",
+) -> pd.DataFrame:
+    """Episodes each arm needs on each task to reach ``threshold``, interpolated on log size.
+
+    A zero-shot point (size 0) that reaches it counts as reaching it with no data. Columns: arm,
+    task, threshold, episodes, low, high, censor (``""``, ``"zero-shot"``, ``"at_most"`` = already
+    at the smallest size, ``"not_reached"`` = not by the largest size), smallest, largest, n_seeds.
+    """
+    settings.check()
+    rs = CurveResampler(scores, value, settings)
+    rows = []
+    for (arm, task) in rs.values:
+        sizes = rs.sizes(arm, task)
+        n = rs.n_seeds(arm, task, sizes)
+        point = rs.point(arm, task, sizes)[None, :]
+        draws = rs.boot(arm, task, sizes)
+        ep, censor = _reach(point, sizes, threshold)
+        ep_b, _ = _reach(draws, sizes, threshold)
+        lo, hi = interval(ep_b, settings.confidence, n)
+        positive = sizes[sizes > 0]
+        rows.append({"arm": arm, "task": task, "threshold": threshold, "episodes": float(ep[0]), "low": lo, "high": hi,
+                     "censor": censor[0], "smallest": int(positive.min()) if len(positive) else 0,
+                     "largest": int(sizes.max()), "n_seeds": n})
+    return pd.DataFrame(rows)
+
+
+def _reach(curves: np.ndarray, sizes: np.ndarray, threshold: float) -> tuple[np.ndarray, np.ndarray]:
+    target = np.full(len(curves), threshold)
+    if sizes[0] == 0:
+        zero = curves[:, 0] >= threshold
+        pos_size, pos_censor = first_reach(curves[:, 1:], sizes[1:].astype(float), target)
+        size = np.where(zero, 0.0, pos_size)
+        censor = np.where(zero, "zero-shot", pos_censor)
+        return size, censor
+    return first_reach(curves, sizes.astype(float), target)
+
+
+def effective_data(
+    scores: pd.DataFrame, baseline: str, settings: CurveSettings, *, value: str = "score",
+    arms: list[str] | None = None,
+) -> pd.DataFrame:
+    """Effective data transferred per (arm, task, size >= 1).
+
+    Columns: arm, task, size, arm_estimate, effective (D_E), transferred (D_T = D_E - n), multiplier
+    (D_E / n) with lows and highs, censor (``""``; ``"lower_bound"`` when the arm beats the baseline's
+    best point, so D_E exceeds the largest size; ``"upper_bound"`` when the arm is below the baseline's
+    smallest point), hurts (D_T < 0: pretraining that hurts), n_seeds.
+    """
+    settings.check()
+    chosen = check_baseline(scores, baseline, arms)
+    rs = CurveResampler(scores, value, settings)
+    rows = []
+    for arm in chosen:
+        for task in rs.seeds:
+            if not (rs.has(arm, task) and rs.has(baseline, task)):
+                continue
+            b_sizes = rs.sizes(baseline, task)
+            b_sizes = b_sizes[b_sizes > 0]
+            if len(b_sizes) < 2:
+                raise InvalidInput(
+                    f"baseline {baseline!r} has results at {len(b_sizes)} size(s) >= 1 on task {task!r}; "
+                    "effective data needs its curve at two sizes or more."
+                )
+            a_sizes = rs.sizes(arm, task)
+            a_sizes = a_sizes[a_sizes > 0]
+            fit = isotonic_rows(rs.point(baseline, task, b_sizes)[None, :])
+            fit_b = isotonic_rows(rs.boot(baseline, task, b_sizes))
+            a_point = rs.point(arm, task, a_sizes)
+            a_boot = rs.boot(arm, task, a_sizes)
+            n = min(rs.n_seeds(arm, task, a_sizes), rs.n_seeds(baseline, task, b_sizes))
+            for k, size in enumerate(a_sizes):
+                d_e, censor = _read_off(fit, b_sizes, np.array([a_point[k]]))
+                d_e_b, _ = _read_off(fit_b, b_sizes, a_boot[:, k], censored=True)
+                lo, hi = interval(d_e_b, settings.confidence, n)
+                d_t = float(d_e[0] - size)
+                rows.append({
+                    "arm": arm, "task": task, "size": int(size), "arm_estimate": float(a_point[k]),
+                    "effective": float(d_e[0]), "effective_low": lo, "effective_high": hi,
+                    "transferred": d_t, "transferred_low": lo - size, "transferred_high": hi - size,
+                    "multiplier": float(d_e[0] / size), "multiplier_low": lo / size, "multiplier_high": hi / size,
+                    "censor": censor[0], "hurts": bool(d_t < 0), "n_seeds": n,
+                })
+    return pd.DataFrame(rows)
+
+
+def _read_off(
+    fit: np.ndarray, sizes: np.ndarray, level: np.ndarray, *, censored: bool = False
+) -> tuple[np.ndarray, np.ndarray]:
+    """Invert monotone fits (rows × sizes) at ``level`` per row, on log size.
+
+    Levels beyond the fit's ends are censored: the end size is returned with a flag, or, with
+    ``censored=True`` (for resamples), +inf above the top and 0 below the bottom, so that an
+    interval over resamples shows the censoring instead of piling up at the ladder's ends.
+    """
+    if fit.shape[0] == 1 and len(level) > 1:
+        fit = np.repeat(fit, len(level), axis=0)
+    top = fit[:, -1]
+    bottom = fit[:, 0]
+    reached = fit >= level[:, None]
+    k = np.where(reached.any(axis=1), reached.argmax(axis=1), len(sizes) - 1)
+    rows = np.arange(len(level))
+    prev, cur = fit[rows, np.maximum(k - 1, 0)], fit[rows, k]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = np.where(cur > prev, (level - prev) / (cur - prev), 0.0)
+    inside = interpolate_log(sizes.astype(float), k, np.clip(frac, 0, 1))
+    above = level > top
+    below = level < bottom
+    top_value, bottom_value = (np.inf, 0.0) if censored else (sizes[-1], sizes[0])
+    d_e = np.where(above, top_value, np.where(below, bottom_value, np.where(k == 0, sizes[0], inside)))
+    censor = np.where(above, "lower_bound", np.where(below, "upper_bound", ""))
+    return d_e.astype(float), censor
+
+
+def curve_areas(scores: pd.DataFrame, settings: CurveSettings, *, value: str = "normalised") -> pd.DataFrame:
+    """Area under each (arm, task) curve over log size (sizes >= 1), divided by the log range:
+    the curve's mean height on a log axis. Columns: arm, task, auc, low, high, n_seeds, sizes."""
+    settings.check()
+    rs = CurveResampler(scores, value, settings)
+    rows = []
+    for (arm, task) in rs.values:
+        sizes = rs.sizes(arm, task)
+        sizes = sizes[sizes > 0]
+        if len(sizes) < 2:
+            continue
+        x = np.log(sizes.astype(float))
+        point = np.trapezoid(rs.point(arm, task, sizes), x) / (x[-1] - x[0])
+        draws = np.trapezoid(rs.boot(arm, task, sizes), x, axis=1) / (x[-1] - x[0])
+        n = rs.n_seeds(arm, task, sizes)
+        lo, hi = interval(draws, settings.confidence, n)
+        rows.append({"arm": arm, "task": task, "auc": float(point), "low": lo, "high": hi, "n_seeds": n,
+                     "sizes": f"{int(sizes[0])}-{int(sizes[-1])}"})
+    return pd.DataFrame(rows)
