@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+import numpy as np
 import pandas as pd
 
 from fewshot.errors import InvalidInput
@@ -163,6 +164,11 @@ class CompareReport:
         highs and censoring (task ``"all"``: means over tasks).
     thresholds, areas : DataFrame
         Episodes to reach the threshold; areas under the normalised curves.
+    headline : DataFrame
+        Fraction of tasks whose estimate exceeds the threshold, per arm and size (with intervals).
+    scaling : DataFrame
+        Across-task IQM per arm and size beside the arms' first shared numeric attribute (empty
+        when no attribute is shared).
     baseline, value : str
     threshold : float
     settings : CurveSettings
@@ -173,6 +179,8 @@ class CompareReport:
     table: pd.DataFrame
     thresholds: pd.DataFrame
     areas: pd.DataFrame
+    headline: pd.DataFrame
+    scaling: pd.DataFrame
     baseline: str
     value: str
     threshold: float
@@ -192,6 +200,7 @@ def compare_report(
     select: str = "final",
 ) -> CompareReport:
     """Arms against the baseline (the study's by default): the transfer table and friends."""
+    from fewshot.stats.profiles import performance_profile, scaling_view
     from fewshot.stats.transfer import (
         check_baseline,
         curve_areas,
@@ -209,16 +218,24 @@ def compare_report(
     value = "normalised" if not sc.raw_tasks else "score"
     notes = []
     if value == "score":
-        notes.append(f"differences are in raw {sc.metric} (tasks without floor/expert: {', '.join(sc.raw_tasks)})")
+        notes.append(
+            f"differences are in raw {sc.metric} (tasks without floor/expert: {', '.join(sc.raw_tasks)})"
+        )
     diff = paired_differences(sc.scores, base, settings, value=value, arms=chosen)
     poi = improvement_probability(sc.scores, base, settings, value=value, arms=chosen)
     eff = effective_data(sc.scores, base, settings, value="score", arms=chosen)
     keys = ["arm", "task", "size"]
-    table = diff.merge(poi.rename(columns={"low": "p_low", "high": "p_high", "n_seeds": "p_seeds"}), on=keys, how="left")
+    table = diff.merge(
+        poi.rename(columns={"low": "p_low", "high": "p_high", "n_seeds": "p_seeds"}),
+        on=keys,
+        how="left",
+    )
     table = table.merge(eff.drop(columns=["n_seeds"]), on=keys, how="left")
     normed = sc.scores[sc.scores["reference"] == "floor/expert"]
     thresholds = pd.DataFrame()
     areas = pd.DataFrame()
+    headline = pd.DataFrame()
+    scaling = pd.DataFrame()
     if len(normed):
         lo, hi = float(normed["normalised"].min()), float(normed["normalised"].max())
         if not lo <= threshold <= max(hi, 1.0):
@@ -228,24 +245,44 @@ def compare_report(
             )
         thresholds = threshold_sizes(normed, threshold, settings)
         areas = curve_areas(normed, settings)
+        headline = performance_profile(normed, settings, taus=np.array([threshold]), over="tasks")
+        arm_table = ledger.arms()
+        try:
+            scaling = scaling_view(aggregate_curves(normed, settings), arm_table)
+        except InvalidInput:
+            scaling = pd.DataFrame()
     else:
-        notes.append("no task has floor and expert: episodes-to-threshold and areas need normalised scores")
+        notes.append(
+            "no task has floor and expert: episodes-to-threshold and areas need normalised scores"
+        )
     for task in tasks:
         b_sizes = set(sc.scores[(sc.scores["arm"] == base) & (sc.scores["task"] == task)]["size"])
         for arm in chosen:
-            a_sizes = set(sc.scores[(sc.scores["arm"] == arm) & (sc.scores["task"] == task)]["size"])
+            a_sizes = set(
+                sc.scores[(sc.scores["arm"] == arm) & (sc.scores["task"] == task)]["size"]
+            )
             missing = sorted(s for s in a_sizes - b_sizes if s > 0)
             if missing:
-                notes.append(f"baseline {base!r} has no runs at size(s) {', '.join(map(str, missing))} on task "
-                             f"{task!r}: no comparison with {arm!r} there")
+                notes.append(
+                    f"baseline {base!r} has no runs at size(s) {', '.join(map(str, missing))} on task "
+                    f"{task!r}: no comparison with {arm!r} there"
+                )
     n_min = int(table["n_seeds"].min()) if len(table) else 0
     notes.append(f"pairs by seed (same subsets); seeds behind each comparison: {n_min} or more")
     if n_min < 3:
         notes.append("some comparisons rest on fewer than 3 seeds: do not read them as evidence")
-    notes.append("P(improvement), effective data, thresholds and areas use expanded percentile intervals of "
-                 "whole-curve resamples")
+    notes.append(
+        "P(improvement), effective data, thresholds and areas use expanded percentile intervals of "
+        "whole-curve resamples"
+    )
     if (table["censor"] == "lower_bound").any():
-        notes.append("'>=' marks effective data that is only a lower bound: the arm beats the baseline's best point")
+        notes.append(
+            "'>=' marks effective data that is only a lower bound: the arm beats the baseline's best point"
+        )
     if (thresholds.get("censor", pd.Series(dtype=str)) == "not_reached").any():
-        notes.append(f"some arms never reach {threshold:g} (normalised) by the largest size: shown as '> largest'")
-    return CompareReport(table, thresholds, areas, base, value, threshold, settings, sc, notes)
+        notes.append(
+            f"some arms never reach {threshold:g} (normalised) by the largest size: shown as '> largest'"
+        )
+    return CompareReport(
+        table, thresholds, areas, headline, scaling, base, value, threshold, settings, sc, notes
+    )

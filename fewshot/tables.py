@@ -10,7 +10,14 @@ import math
 
 import pandas as pd
 
-__all__ = ["number", "with_interval", "effective_cell", "threshold_cell", "transfer_rows", "latex_table"]
+__all__ = [
+    "number",
+    "with_interval",
+    "effective_cell",
+    "threshold_cell",
+    "transfer_rows",
+    "latex_table",
+]
 
 
 def number(x: float | None, digits: int = 3) -> str:
@@ -19,7 +26,7 @@ def number(x: float | None, digits: int = 3) -> str:
         return "-"
     if math.isinf(x):
         return "inf" if x > 0 else "-inf"
-    return f"{x:.{digits}g}" if abs(x) < 10 ** digits else f"{x:.0f}"
+    return f"{x:.{digits}g}" if abs(x) < 10**digits else f"{x:.0f}"
 
 
 def with_interval(est: float, low: float, high: float) -> str:
@@ -33,7 +40,9 @@ def effective_cell(row: pd.Series) -> str:
     """Effective data D_E with its multiplier, marking censoring and harm."""
     if pd.isna(row.get("effective")):
         return "-"
-    mark = ">=" if row["censor"] == "lower_bound" else ("<=" if row["censor"] == "upper_bound" else "")
+    mark = (
+        ">=" if row["censor"] == "lower_bound" else ("<=" if row["censor"] == "upper_bound" else "")
+    )
     text = f"{mark}{number(row['effective'])} (x{number(row['multiplier'], 2)})"
     low = row.get("effective_low")
     if not pd.isna(low) and not math.isinf(low):
@@ -60,18 +69,36 @@ def transfer_rows(table: pd.DataFrame) -> list[dict[str, str]]:
     """The transfer table as text cells: arm, task, size, difference, P(improvement), effective data."""
     out = []
     for _, r in table.iterrows():
-        out.append({
-            "arm": str(r["arm"]), "task": str(r["task"]), "size": str(r["size"]),
-            "difference": with_interval(r["difference"], r["low"], r["high"]),
-            "P(improvement)": with_interval(r.get("probability"), r.get("p_low"), r.get("p_high")),
-            "effective data": effective_cell(r),
-            "seeds": str(r["n_seeds"]),
-        })
+        out.append(
+            {
+                "arm": str(r["arm"]),
+                "task": str(r["task"]),
+                "size": str(r["size"]),
+                "difference": with_interval(r["difference"], r["low"], r["high"]),
+                "P(improvement)": with_interval(
+                    r.get("probability"), r.get("p_low"), r.get("p_high")
+                ),
+                "effective data": effective_cell(r),
+                "seeds": str(r["n_seeds"]),
+            }
+        )
     return out
 
 
-_LATEX = {"&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#", "_": r"\_", "{": r"\{", "}": r"\}",
-          "~": r"\textasciitilde{}", "^": r"\textasciicircum{}", "\\": r"\textbackslash{}", "<": r"$<$", ">": r"$>$"}
+_LATEX = {
+    "&": r"\&",
+    "%": r"\%",
+    "$": r"\$",
+    "#": r"\#",
+    "_": r"\_",
+    "{": r"\{",
+    "}": r"\}",
+    "~": r"\textasciitilde{}",
+    "^": r"\textasciicircum{}",
+    "\\": r"\textbackslash{}",
+    "<": r"$<$",
+    ">": r"$>$",
+}
 
 
 def _tex(text: str) -> str:
@@ -84,9 +111,13 @@ def latex_table(rows: list[dict[str, str]], caption: str) -> str:
         return "% no rows\n"
     cols = list(rows[0])
     lines = [
-        r"\begin{table}[t]", r"\centering", r"\small",
-        r"\begin{tabular}{" + "l" * 2 + "r" * (len(cols) - 2) + "}", r"\toprule",
-        " & ".join(_tex(c) for c in cols) + r" \\", r"\midrule",
+        r"\begin{table}[t]",
+        r"\centering",
+        r"\small",
+        r"\begin{tabular}{" + "l" * 2 + "r" * (len(cols) - 2) + "}",
+        r"\toprule",
+        " & ".join(_tex(c) for c in cols) + r" \\",
+        r"\midrule",
     ]
     lines += [" & ".join(_tex(r[c]) for c in cols) + r" \\" for r in rows]
     lines += [r"\bottomrule", r"\end{tabular}", r"\caption{" + _tex(caption) + "}", r"\end{table}"]

@@ -10,8 +10,25 @@ import typer
 from rich.table import Table
 from rich.text import Text
 
-from fewshot.cli.common import LedgerOpt, StudyOpt, TableJsonCsv, err, open_ledger, out, print_json, reporting
-from fewshot.cli.stats_cmd import CiOpt, ConfidenceOpt, EstimatorOpt, MetricOpt, ResamplesOpt, SeedOpt, SelectOpt
+from fewshot.cli.common import (
+    LedgerOpt,
+    StudyOpt,
+    TableJsonCsv,
+    err,
+    open_ledger,
+    out,
+    print_json,
+    reporting,
+)
+from fewshot.cli.stats_cmd import (
+    CiOpt,
+    ConfidenceOpt,
+    EstimatorOpt,
+    MetricOpt,
+    ResamplesOpt,
+    SeedOpt,
+    SelectOpt,
+)
 from fewshot.errors import InvalidInput
 from fewshot.stats.bootstrap import DEFAULT_METHOD
 
@@ -23,7 +40,9 @@ class CompareFormat(StrEnum):
     latex = "latex"
 
 
-BaselineOpt = Annotated[str | None, typer.Option("--baseline", help="The arm to compare with (default: the study's).")]
+BaselineOpt = Annotated[
+    str | None, typer.Option("--baseline", help="The arm to compare with (default: the study's).")
+]
 
 
 def _arms(text: str | None) -> list[str] | None:
@@ -38,8 +57,12 @@ def _arms(text: str | None) -> list[str] | None:
 def compare(
     *,
     baseline: BaselineOpt = None,
-    arms: Annotated[str | None, typer.Option("--arms", help="Arms to compare, comma-separated (default: all).")] = None,
-    threshold: Annotated[float, typer.Option("--threshold", help="Normalised level for episodes-to-threshold.")] = 1.0,
+    arms: Annotated[
+        str | None, typer.Option("--arms", help="Arms to compare, comma-separated (default: all).")
+    ] = None,
+    threshold: Annotated[
+        float, typer.Option("--threshold", help="Normalised level for episodes-to-threshold.")
+    ] = 1.0,
     metric: MetricOpt = None,
     select: SelectOpt = "final",
     estimator: EstimatorOpt = "mean",
@@ -47,66 +70,134 @@ def compare(
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,
-    fmt: Annotated[CompareFormat, typer.Option("--format", help="table, csv, json or latex.")] = CompareFormat.table,
+    fmt: Annotated[
+        CompareFormat, typer.Option("--format", help="table, csv, json or latex.")
+    ] = CompareFormat.table,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
     """Arms against a baseline: paired differences, P(improvement), effective data, episodes to a threshold."""
     from fewshot.analysis import compare_report
     from fewshot.stats import CurveSettings
-    from fewshot.tables import latex_table, threshold_cell, transfer_rows
+    from fewshot.tables import latex_table, threshold_cell, transfer_rows, with_interval
 
     with reporting():
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
         led = open_ledger(ledger, study)
         try:
-            rep = compare_report(led, settings, baseline=baseline, arms=_arms(arms), threshold=threshold,
-                                 metric=metric, select=select)
+            rep = compare_report(
+                led,
+                settings,
+                baseline=baseline,
+                arms=_arms(arms),
+                threshold=threshold,
+                metric=metric,
+                select=select,
+            )
         finally:
             led.close()
     if fmt is CompareFormat.json:
-        print_json({
-            "baseline": rep.baseline, "value": rep.value, "rule": rep.scores.rule, "threshold": rep.threshold,
-            "rows": json.loads(rep.table.to_json(orient="records")),
-            "thresholds": json.loads(rep.thresholds.to_json(orient="records")),
-            "areas": json.loads(rep.areas.to_json(orient="records")), "notes": rep.notes,
-        })
+        print_json(
+            {
+                "baseline": rep.baseline,
+                "value": rep.value,
+                "rule": rep.scores.rule,
+                "threshold": rep.threshold,
+                "rows": json.loads(rep.table.to_json(orient="records")),
+                "thresholds": json.loads(rep.thresholds.to_json(orient="records")),
+                "areas": json.loads(rep.areas.to_json(orient="records")),
+                "headline": json.loads(rep.headline.to_json(orient="records")),
+                "scaling": json.loads(rep.scaling.to_json(orient="records")),
+                "notes": rep.notes,
+            }
+        )
         return
     if fmt is CompareFormat.csv:
         typer.echo(rep.table.to_csv(index=False), nl=False)
         return
     rows = transfer_rows(rep.table)
     unit = "normalised" if rep.value == "normalised" else rep.scores.metric
-    caption = (f"Each arm against {rep.baseline}, paired by seed: difference in {unit} ({settings.estimator}, "
-               f"{settings.confidence:.0%} intervals), probability of improvement, effective data D_E (data multiplier).")
+    caption = (
+        f"Each arm against {rep.baseline}, paired by seed: difference in {unit} ({settings.estimator}, "
+        f"{settings.confidence:.0%} intervals), probability of improvement, effective data D_E (data multiplier)."
+    )
     if fmt is CompareFormat.latex:
         typer.echo(latex_table(rows, caption), nl=False)
         return
-    table = Table(title=f"against {rep.baseline}: {unit} difference, P(improvement), effective data", title_justify="left")
+    table = Table(
+        title=f"against {rep.baseline}: {unit} difference, P(improvement), effective data",
+        title_justify="left",
+    )
     for c in rows[0] if rows else []:
-        table.add_column(c, justify="right" if c not in ("arm", "task") else "left", no_wrap=c in ("arm", "task"))
+        table.add_column(
+            c, justify="right" if c not in ("arm", "task") else "left", no_wrap=c in ("arm", "task")
+        )
     for r in rows:
-        table.add_row(*[Text(v) for v in r.values()])  # cells hold brackets: never read them as markup
+        table.add_row(
+            *[Text(v) for v in r.values()]
+        )  # cells hold brackets: never read them as markup
     out.print(table)
     if len(rep.thresholds):
         t2 = Table(title=f"episodes to reach {rep.threshold:g} (normalised)", title_justify="left")
         for c in ("arm", "task", "episodes", "seeds"):
             t2.add_column(c)
         for _, r in rep.thresholds.iterrows():
-            t2.add_row(Text(str(r["arm"])), Text(str(r["task"])), Text(threshold_cell(r)), str(r["n_seeds"]))
+            t2.add_row(
+                Text(str(r["arm"])),
+                Text(str(r["task"])),
+                Text(threshold_cell(r)),
+                str(r["n_seeds"]),
+            )
         out.print(t2)
+    if len(rep.headline):
+        t3 = Table(
+            title=f"fraction of tasks above {rep.threshold:g} (normalised)", title_justify="left"
+        )
+        sizes = sorted(set(rep.headline["size"]))
+        t3.add_column("arm")
+        for n in sizes:
+            t3.add_column(f"n{n}", justify="right")
+        for arm, g in rep.headline.groupby("arm", sort=False):
+            by = {int(r["size"]): r for _, r in g.iterrows()}
+            t3.add_row(
+                str(arm),
+                *[
+                    Text(with_interval(by[n]["fraction"], by[n]["low"], by[n]["high"]))
+                    if n in by
+                    else ""
+                    for n in sizes
+                ],
+            )
+        out.print(t3)
+    if len(rep.scaling):
+        attr = rep.scaling["attribute"].iloc[0]
+        t4 = Table(title=f"scaling: across-task IQM by {attr}", title_justify="left")
+        for c in ("size", "arm", attr, "IQM"):
+            t4.add_column(c)
+        for _, r in rep.scaling.iterrows():
+            t4.add_row(
+                str(r["size"]),
+                str(r["arm"]),
+                f"{r['attribute_value']:.3g}",
+                Text(with_interval(r["estimate"], r["low"], r["high"])),
+            )
+        out.print(t4)
     for note in rep.notes:
         err.print(f"note: {note}")
 
 
 def seeds_needed_cmd(
     *,
-    effect: Annotated[float, typer.Option("--effect", help="Difference to detect, in normalised score.")] = 0.1,
+    effect: Annotated[
+        float, typer.Option("--effect", help="Difference to detect, in normalised score.")
+    ] = 0.1,
     power: Annotated[float, typer.Option("--power", help="Wanted power of the test.")] = 0.8,
     alpha: Annotated[float, typer.Option("--alpha", help="One-sided significance level.")] = 0.05,
     baseline: BaselineOpt = None,
     select: SelectOpt = "final",
-    fmt: Annotated[TableJsonCsv, typer.Option("--format", help="table, csv or json.")] = TableJsonCsv.table,
+    fmt: Annotated[
+        TableJsonCsv, typer.Option("--format", help="table, csv or json.")
+    ] = TableJsonCsv.table,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -124,23 +215,60 @@ def seeds_needed_cmd(
         value = "normalised" if not sc.raw_tasks else "score"
         table = seeds_table(sc.scores, base, effect=effect, power=power, alpha=alpha, value=value)
         if table.empty:
-            raise InvalidInput(f"no comparison with {base!r} has 2 or more seeds on both sides yet: nothing to estimate from.")
-    warn = (f"a pilot of {int(table['pilot_seeds'].min())} seed(s) underestimates the spread more often than not; "
-            "treat these counts as a floor")
+            raise InvalidInput(
+                f"no comparison with {base!r} has 2 or more seeds on both sides yet: nothing to estimate from."
+            )
+    warn = (
+        f"a pilot of {int(table['pilot_seeds'].min())} seed(s) underestimates the spread more often than not; "
+        "treat these counts as a floor"
+    )
     if fmt is TableJsonCsv.json:
-        print_json({"baseline": base, "effect": effect, "power": power, "alpha": alpha, "value": value,
-                    "rows": json.loads(table.to_json(orient="records")), "notes": [warn]})
+        print_json(
+            {
+                "baseline": base,
+                "effect": effect,
+                "power": power,
+                "alpha": alpha,
+                "value": value,
+                "rows": json.loads(table.to_json(orient="records")),
+                "notes": [warn],
+            }
+        )
         return
     if fmt is TableJsonCsv.csv:
         typer.echo(table.to_csv(index=False), nl=False)
         return
-    t = Table(title=f"seeds per arm to detect +{effect:g} ({value}) against {base}, power {power:g}, "
-                    f"one-sided alpha {alpha:g} (Welch)", title_justify="left")
-    for c in ("arm", "task", "size", "pilot seeds", "sd arm", "sd baseline", "power now", "seeds needed"):
+    t = Table(
+        title=f"seeds per arm to detect +{effect:g} ({value}) against {base}, power {power:g}, "
+        f"one-sided alpha {alpha:g} (Welch)",
+        title_justify="left",
+    )
+    for c in (
+        "arm",
+        "task",
+        "size",
+        "pilot seeds",
+        "sd arm",
+        "sd baseline",
+        "power now",
+        "seeds needed",
+    ):
         t.add_column(c, justify="left" if c in ("arm", "task") else "right")
     for _, r in table.iterrows():
-        needed = "> 10000" if r["seeds_needed"] is None or r["seeds_needed"] != r["seeds_needed"] else str(int(r["seeds_needed"]))
-        t.add_row(r["arm"], r["task"], str(r["size"]), str(r["pilot_seeds"]), f"{r['sd_arm']:.3g}",
-                  f"{r['sd_baseline']:.3g}", f"{r['power_now']:.2f}", needed)
+        needed = (
+            "> 10000"
+            if r["seeds_needed"] is None or r["seeds_needed"] != r["seeds_needed"]
+            else str(int(r["seeds_needed"]))
+        )
+        t.add_row(
+            r["arm"],
+            r["task"],
+            str(r["size"]),
+            str(r["pilot_seeds"]),
+            f"{r['sd_arm']:.3g}",
+            f"{r['sd_baseline']:.3g}",
+            f"{r['power_now']:.2f}",
+            needed,
+        )
     out.print(t)
     err.print(f"note: {warn}")

@@ -21,7 +21,9 @@ def isotonic_rows(y: np.ndarray) -> np.ndarray:
     j = np.arange(k)[:, None]
     e = np.arange(k)[None, :]
     with np.errstate(invalid="ignore", divide="ignore"):
-        means = (csum[:, None, 1:] - csum[:, :k, None]) / (e - j + 1)  # rows × j × end: mean(y_j..y_end)
+        means = (csum[:, None, 1:] - csum[:, :k, None]) / (
+            e - j + 1
+        )  # rows × j × end: mean(y_j..y_end)
     means = np.where(e >= j, means, np.nan)
     out = np.empty_like(y, dtype=float)
     for i in range(k):
@@ -37,7 +39,9 @@ def interpolate_log(sizes: np.ndarray, k: np.ndarray, frac: np.ndarray) -> np.nd
     return np.exp(lo + frac * (hi - lo))
 
 
-def first_reach(curves: np.ndarray, sizes: np.ndarray, target: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def first_reach(
+    curves: np.ndarray, sizes: np.ndarray, target: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     """The smallest size at which each curve reaches its target, interpolated on log size.
 
     Parameters

@@ -20,7 +20,11 @@ __all__ = ["performance_profile", "scaling_view"]
 
 
 def performance_profile(
-    scores: pd.DataFrame, settings: CurveSettings, *, taus: np.ndarray | None = None, over: str = "runs",
+    scores: pd.DataFrame,
+    settings: CurveSettings,
+    *,
+    taus: np.ndarray | None = None,
+    over: str = "runs",
     value: str = "normalised",
 ) -> pd.DataFrame:
     """Fraction above each τ per (arm, size). Columns: arm, size, tau, fraction, low, high, over,
@@ -41,7 +45,9 @@ def performance_profile(
             n = min(rs.n_seeds(arm, t, sz) for t in present)
             if over == "tasks":
                 point = np.array([rs.point(arm, t, sz)[0] for t in present])  # tasks
-                draws = np.stack([rs.boot(arm, t, sz)[:, 0] for t in present], axis=1)  # resamples × tasks
+                draws = np.stack(
+                    [rs.boot(arm, t, sz)[:, 0] for t in present], axis=1
+                )  # resamples × tasks
                 frac = (point[None, :] > taus[:, None]).mean(axis=1)
                 frac_b = (draws[:, None, :] > taus[None, :, None]).mean(axis=2)  # resamples × taus
             else:
@@ -49,20 +55,42 @@ def performance_profile(
                 pooled = np.concatenate(mats)
                 pooled = pooled[np.isfinite(pooled)]
                 frac = (pooled[None, :] > taus[:, None]).mean(axis=1)
-                boot = np.concatenate([m[rs.index[t]] for m, t in zip(mats, present, strict=True)], axis=1)
+                boot = np.concatenate(
+                    [m[rs.index[t]] for m, t in zip(mats, present, strict=True)], axis=1
+                )
                 valid = np.isfinite(boot)
                 with np.errstate(invalid="ignore"):
-                    frac_b = ((boot[:, None, :] > taus[None, :, None]) & valid[:, None, :]).sum(axis=2) / valid.sum(
-                        axis=1, keepdims=True)
+                    frac_b = ((boot[:, None, :] > taus[None, :, None]) & valid[:, None, :]).sum(
+                        axis=2
+                    ) / valid.sum(axis=1, keepdims=True)
             for j, tau in enumerate(taus):
                 lo, hi = interval(frac_b[:, j], settings.confidence, n)
-                rows.append({"arm": arm, "size": int(size), "tau": float(tau), "fraction": float(frac[j]), "low": lo,
-                             "high": hi, "over": over, "n_tasks": len(present), "n_seeds": n})
-    return pd.DataFrame(rows, columns=["arm", "size", "tau", "fraction", "low", "high", "over", "n_tasks", "n_seeds"])
+                rows.append(
+                    {
+                        "arm": arm,
+                        "size": int(size),
+                        "tau": float(tau),
+                        "fraction": float(frac[j]),
+                        "low": lo,
+                        "high": hi,
+                        "over": over,
+                        "n_tasks": len(present),
+                        "n_seeds": n,
+                    }
+                )
+    return pd.DataFrame(
+        rows,
+        columns=["arm", "size", "tau", "fraction", "low", "high", "over", "n_tasks", "n_seeds"],
+    )
 
 
-def scaling_view(aggregate: pd.DataFrame, arms: pd.DataFrame, attribute: str | None = None,
-                 *, statistic: str = "iqm") -> pd.DataFrame:
+def scaling_view(
+    aggregate: pd.DataFrame,
+    arms: pd.DataFrame,
+    attribute: str | None = None,
+    *,
+    statistic: str = "iqm",
+) -> pd.DataFrame:
     """Each arm's aggregate score per size beside one numeric attribute of the arm.
 
     ``aggregate`` is :func:`fewshot.stats.aggregate_curves` output (across tasks); ``arms`` has
@@ -71,11 +99,16 @@ def scaling_view(aggregate: pd.DataFrame, arms: pd.DataFrame, attribute: str | N
     low, high.
     """
     skip = {"arm", "role", "checkpoint", "zero_shot"}
-    numeric = [c for c in arms.columns if c not in skip and pd.api.types.is_numeric_dtype(arms[c])
-               and arms[c].notna().sum() >= 2]
+    numeric = [
+        c
+        for c in arms.columns
+        if c not in skip and pd.api.types.is_numeric_dtype(arms[c]) and arms[c].notna().sum() >= 2
+    ]
     if attribute is None:
         if not numeric:
-            raise InvalidInput("no numeric attribute is carried by two arms or more (e.g. attributes = { params = 3e8 }).")
+            raise InvalidInput(
+                "no numeric attribute is carried by two arms or more (e.g. attributes = { params = 3e8 })."
+            )
         attribute = numeric[0]
     elif attribute not in numeric:
         raise InvalidInput(
@@ -84,5 +117,8 @@ def scaling_view(aggregate: pd.DataFrame, arms: pd.DataFrame, attribute: str | N
     agg = aggregate[(aggregate["aggregate"] == statistic) & aggregate["group"].isna()]
     joined = agg.merge(arms[["arm", attribute]].dropna(), on="arm")
     out = joined.rename(columns={attribute: "attribute_value"}).assign(attribute=attribute)
-    return out[["arm", "role", "attribute", "attribute_value", "size", "estimate", "low", "high"]].sort_values(
-        ["size", "attribute_value"]).reset_index(drop=True)
+    return (
+        out[["arm", "role", "attribute", "attribute_value", "size", "estimate", "low", "high"]]
+        .sort_values(["size", "attribute_value"])
+        .reset_index(drop=True)
+    )

@@ -66,8 +66,10 @@ class CurveResampler:
         self.settings = settings
         data = scores.dropna(subset=[value])
         seed_level = data.groupby(["arm", "task", "size", "seed"])[value].mean()
-        self.seeds = {t: np.array(sorted(g.index.get_level_values("seed").unique()))
-                      for t, g in seed_level.groupby(level="task")}
+        self.seeds = {
+            t: np.array(sorted(g.index.get_level_values("seed").unique()))
+            for t, g in seed_level.groupby(level="task")
+        }
         self.values: dict[tuple[str, str], pd.DataFrame] = {}
         for (arm, task), g in seed_level.groupby(level=["arm", "task"]):
             wide = g.droplevel(["arm", "task"]).unstack("seed").reindex(columns=self.seeds[task])
@@ -75,7 +77,9 @@ class CurveResampler:
         tasks = sorted(self.seeds)
         root = np.random.SeedSequence(settings.seed)
         self.index = {
-            t: np.random.default_rng(child).integers(0, len(self.seeds[t]), size=(settings.resamples, len(self.seeds[t])))
+            t: np.random.default_rng(child).integers(
+                0, len(self.seeds[t]), size=(settings.resamples, len(self.seeds[t]))
+            )
             for t, child in zip(tasks, root.spawn(len(tasks)), strict=True)
         }
 
@@ -104,4 +108,3 @@ class CurveResampler:
         """The fewest seeds behind any of ``sizes`` for this arm and task."""
         m = self.matrix(arm, task, sizes)
         return int(np.isfinite(m).sum(axis=1).min()) if m.size else 0
-

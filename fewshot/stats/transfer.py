@@ -41,7 +41,9 @@ def check_baseline(scores: pd.DataFrame, baseline: str, arms: list[str] | None =
     """The arms to compare with ``baseline``; unknown names are errors that list the known arms."""
     known = list(dict.fromkeys(scores["arm"]))
     if baseline not in known:
-        raise InvalidInput(f"baseline {baseline!r} has no scores. Arms with scores: {', '.join(known)}.")
+        raise InvalidInput(
+            f"baseline {baseline!r} has no scores. Arms with scores: {', '.join(known)}."
+        )
     chosen = [a for a in known if a != baseline] if arms is None else arms
     for a in chosen:
         if a not in known:
@@ -63,11 +65,22 @@ def _paired_cells(scores: pd.DataFrame, value: str, arm: str, baseline: str):  #
                 continue
             x, y = a.loc[(task, size)], b.loc[(task, size)]
             common = x.index.intersection(y.index)
-            yield task, int(size), x.loc[common].to_numpy(), y.loc[common].to_numpy(), len(x), len(y)
+            yield (
+                task,
+                int(size),
+                x.loc[common].to_numpy(),
+                y.loc[common].to_numpy(),
+                len(x),
+                len(y),
+            )
 
 
 def paired_differences(
-    scores: pd.DataFrame, baseline: str, settings: CurveSettings, *, value: str = "score",
+    scores: pd.DataFrame,
+    baseline: str,
+    settings: CurveSettings,
+    *,
+    value: str = "score",
     arms: list[str] | None = None,
 ) -> pd.DataFrame:
     """Arm minus baseline per (arm, task, size), paired by seed, plus each arm's mean over tasks.
@@ -87,31 +100,75 @@ def paired_differences(
             n = len(x)
             note = "" if n >= 3 else ("no common seeds" if n == 0 else "under 3 seeds")
             if nx != n or ny != n:
-                note = "; ".join(filter(None, [note, f"paired on {n} common seeds of {nx} and {ny}"]))
+                note = "; ".join(
+                    filter(None, [note, f"paired on {n} common seeds of {nx} and {ny}"])
+                )
             if n == 0:
-                rows.append({"arm": arm, "task": task, "size": size, "difference": np.nan, "low": np.nan,
-                             "high": np.nan, "n_seeds": 0, "method": settings.method, "note": note})
+                rows.append(
+                    {
+                        "arm": arm,
+                        "task": task,
+                        "size": size,
+                        "difference": np.nan,
+                        "low": np.nan,
+                        "high": np.nan,
+                        "n_seeds": 0,
+                        "method": settings.method,
+                        "note": note,
+                    }
+                )
                 continue
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", DegenerateCells)
-                if est_name == "mean":  # a difference of means is the mean of the paired differences
-                    res = bootstrap_cells((x - y)[None, :], est, method=settings.method, confidence=settings.confidence,
-                                          resamples=settings.resamples, rng=rng, is_mean=True)
+                if (
+                    est_name == "mean"
+                ):  # a difference of means is the mean of the paired differences
+                    res = bootstrap_cells(
+                        (x - y)[None, :],
+                        est,
+                        method=settings.method,
+                        confidence=settings.confidence,
+                        resamples=settings.resamples,
+                        rng=rng,
+                        is_mean=True,
+                    )
                     method = settings.method
                 else:  # resample seed positions, then difference the two estimates
+
                     def diff(idx: np.ndarray, x=x, y=y) -> np.ndarray:
                         i = idx.astype(int)
                         return est(x[i]) - est(y[i])
 
                     closed = settings.method in ("percentile", "basic", "bca", "expanded")
-                    use = settings.method if closed else "t"  # t and Hall need the mean: bootstrap SE
-                    res = bootstrap_cells(np.arange(n, dtype=float)[None, :], diff, method=use,
-                                          confidence=settings.confidence, resamples=settings.resamples, rng=rng)
+                    use = (
+                        settings.method if closed else "t"
+                    )  # t and Hall need the mean: bootstrap SE
+                    res = bootstrap_cells(
+                        np.arange(n, dtype=float)[None, :],
+                        diff,
+                        method=use,
+                        confidence=settings.confidence,
+                        resamples=settings.resamples,
+                        rng=rng,
+                    )
                     method = use if closed else "t (bootstrap SE)"
-            rows.append({"arm": arm, "task": task, "size": size, "difference": float(res.estimate[0]),
-                         "low": float(res.low[0]), "high": float(res.high[0]), "n_seeds": n, "method": method,
-                         "note": note})
-    frame = pd.DataFrame(rows, columns=["arm", "task", "size", "difference", "low", "high", "n_seeds", "method", "note"])
+            rows.append(
+                {
+                    "arm": arm,
+                    "task": task,
+                    "size": size,
+                    "difference": float(res.estimate[0]),
+                    "low": float(res.low[0]),
+                    "high": float(res.high[0]),
+                    "n_seeds": n,
+                    "method": method,
+                    "note": note,
+                }
+            )
+    frame = pd.DataFrame(
+        rows,
+        columns=["arm", "task", "size", "difference", "low", "high", "n_seeds", "method", "note"],
+    )
     across = _across_tasks(scores, baseline, chosen, settings, value)
     return pd.concat([frame, across], ignore_index=True) if len(across) else frame
 
@@ -124,7 +181,15 @@ def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  #
     rows = []
     for arm in chosen:
         tasks = [t for t in rs.seeds if rs.has(arm, t) and rs.has(baseline, t)]
-        sizes = sorted(set.intersection(*[set(rs.sizes(arm, t)) & set(rs.sizes(baseline, t)) for t in tasks])) if tasks else []
+        sizes = (
+            sorted(
+                set.intersection(
+                    *[set(rs.sizes(arm, t)) & set(rs.sizes(baseline, t)) for t in tasks]
+                )
+            )
+            if tasks
+            else []
+        )
         if not sizes:
             continue
         sz = np.array(sizes)
@@ -133,9 +198,19 @@ def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  #
         n = min(min(rs.n_seeds(arm, t, sz), rs.n_seeds(baseline, t, sz)) for t in tasks)
         for k, size in enumerate(sizes):
             lo, hi = interval(draws[:, k], settings.confidence, n)
-            rows.append({"arm": arm, "task": "all", "size": int(size), "difference": float(point[k]), "low": lo,
-                         "high": hi, "n_seeds": n, "method": "stratified expanded percentile",
-                         "note": f"mean over {len(tasks)} tasks"})
+            rows.append(
+                {
+                    "arm": arm,
+                    "task": "all",
+                    "size": int(size),
+                    "difference": float(point[k]),
+                    "low": lo,
+                    "high": hi,
+                    "n_seeds": n,
+                    "method": "stratified expanded percentile",
+                    "note": f"mean over {len(tasks)} tasks",
+                }
+            )
     return pd.DataFrame(rows)
 
 
@@ -147,7 +222,11 @@ def probability_of_improvement(x: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 
 def improvement_probability(
-    scores: pd.DataFrame, baseline: str, settings: CurveSettings, *, value: str = "score",
+    scores: pd.DataFrame,
+    baseline: str,
+    settings: CurveSettings,
+    *,
+    value: str = "score",
     arms: list[str] | None = None,
 ) -> pd.DataFrame:
     """P(arm > baseline) per (arm, task, size) and averaged over tasks (task ``"all"``).
@@ -175,8 +254,17 @@ def improvement_probability(
                 ga, gb = xa[k][idx], xb[k][idx]
                 draws = _poi_rows(ga, gb)
                 lo, hi = interval(draws, settings.confidence, n)
-                rows.append({"arm": arm, "task": task, "size": int(size), "probability": p, "low": lo, "high": hi,
-                             "n_seeds": n})
+                rows.append(
+                    {
+                        "arm": arm,
+                        "task": task,
+                        "size": int(size),
+                        "probability": p,
+                        "low": lo,
+                        "high": hi,
+                        "n_seeds": n,
+                    }
+                )
                 per_task.setdefault(int(size), []).append((p, draws, n))
         for size, items in sorted(per_task.items()):
             if len(items) < 2:
@@ -184,9 +272,20 @@ def improvement_probability(
             n = min(i[2] for i in items)
             draws = np.mean([i[1] for i in items], axis=0)
             lo, hi = interval(draws, settings.confidence, n)
-            rows.append({"arm": arm, "task": "all", "size": size, "probability": float(np.mean([i[0] for i in items])),
-                         "low": lo, "high": hi, "n_seeds": n})
-    return pd.DataFrame(rows, columns=["arm", "task", "size", "probability", "low", "high", "n_seeds"])
+            rows.append(
+                {
+                    "arm": arm,
+                    "task": "all",
+                    "size": size,
+                    "probability": float(np.mean([i[0] for i in items])),
+                    "low": lo,
+                    "high": hi,
+                    "n_seeds": n,
+                }
+            )
+    return pd.DataFrame(
+        rows, columns=["arm", "task", "size", "probability", "low", "high", "n_seeds"]
+    )
 
 
 def _poi_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -199,7 +298,11 @@ def _poi_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 
 def threshold_sizes(
-    scores: pd.DataFrame, threshold: float, settings: CurveSettings, *, value: str = "normalised",
+    scores: pd.DataFrame,
+    threshold: float,
+    settings: CurveSettings,
+    *,
+    value: str = "normalised",
 ) -> pd.DataFrame:
     """Episodes each arm needs on each task to reach ``threshold``, interpolated on log size.
 
@@ -210,7 +313,7 @@ def threshold_sizes(
     settings.check()
     rs = CurveResampler(scores, value, settings)
     rows = []
-    for (arm, task) in rs.values:
+    for arm, task in rs.values:
         sizes = rs.sizes(arm, task)
         n = rs.n_seeds(arm, task, sizes)
         point = rs.point(arm, task, sizes)[None, :]
@@ -219,13 +322,26 @@ def threshold_sizes(
         ep_b, _ = _reach(draws, sizes, threshold)
         lo, hi = interval(ep_b, settings.confidence, n)
         positive = sizes[sizes > 0]
-        rows.append({"arm": arm, "task": task, "threshold": threshold, "episodes": float(ep[0]), "low": lo, "high": hi,
-                     "censor": censor[0], "smallest": int(positive.min()) if len(positive) else 0,
-                     "largest": int(sizes.max()), "n_seeds": n})
+        rows.append(
+            {
+                "arm": arm,
+                "task": task,
+                "threshold": threshold,
+                "episodes": float(ep[0]),
+                "low": lo,
+                "high": hi,
+                "censor": censor[0],
+                "smallest": int(positive.min()) if len(positive) else 0,
+                "largest": int(sizes.max()),
+                "n_seeds": n,
+            }
+        )
     return pd.DataFrame(rows)
 
 
-def _reach(curves: np.ndarray, sizes: np.ndarray, threshold: float) -> tuple[np.ndarray, np.ndarray]:
+def _reach(
+    curves: np.ndarray, sizes: np.ndarray, threshold: float
+) -> tuple[np.ndarray, np.ndarray]:
     target = np.full(len(curves), threshold)
     if sizes[0] == 0:
         zero = curves[:, 0] >= threshold
@@ -237,7 +353,11 @@ def _reach(curves: np.ndarray, sizes: np.ndarray, threshold: float) -> tuple[np.
 
 
 def effective_data(
-    scores: pd.DataFrame, baseline: str, settings: CurveSettings, *, value: str = "score",
+    scores: pd.DataFrame,
+    baseline: str,
+    settings: CurveSettings,
+    *,
+    value: str = "score",
     arms: list[str] | None = None,
 ) -> pd.DataFrame:
     """Effective data transferred per (arm, task, size >= 1).
@@ -274,13 +394,26 @@ def effective_data(
                 d_e_b, _ = _read_off(fit_b, b_sizes, a_boot[:, k], censored=True)
                 lo, hi = interval(d_e_b, settings.confidence, n)
                 d_t = float(d_e[0] - size)
-                rows.append({
-                    "arm": arm, "task": task, "size": int(size), "arm_estimate": float(a_point[k]),
-                    "effective": float(d_e[0]), "effective_low": lo, "effective_high": hi,
-                    "transferred": d_t, "transferred_low": lo - size, "transferred_high": hi - size,
-                    "multiplier": float(d_e[0] / size), "multiplier_low": lo / size, "multiplier_high": hi / size,
-                    "censor": censor[0], "hurts": bool(d_t < 0), "n_seeds": n,
-                })
+                rows.append(
+                    {
+                        "arm": arm,
+                        "task": task,
+                        "size": int(size),
+                        "arm_estimate": float(a_point[k]),
+                        "effective": float(d_e[0]),
+                        "effective_low": lo,
+                        "effective_high": hi,
+                        "transferred": d_t,
+                        "transferred_low": lo - size,
+                        "transferred_high": hi - size,
+                        "multiplier": float(d_e[0] / size),
+                        "multiplier_low": lo / size,
+                        "multiplier_high": hi / size,
+                        "censor": censor[0],
+                        "hurts": bool(d_t < 0),
+                        "n_seeds": n,
+                    }
+                )
     return pd.DataFrame(rows)
 
 
@@ -307,18 +440,22 @@ def _read_off(
     above = level > top
     below = level < bottom
     top_value, bottom_value = (np.inf, 0.0) if censored else (sizes[-1], sizes[0])
-    d_e = np.where(above, top_value, np.where(below, bottom_value, np.where(k == 0, sizes[0], inside)))
+    d_e = np.where(
+        above, top_value, np.where(below, bottom_value, np.where(k == 0, sizes[0], inside))
+    )
     censor = np.where(above, "lower_bound", np.where(below, "upper_bound", ""))
     return d_e.astype(float), censor
 
 
-def curve_areas(scores: pd.DataFrame, settings: CurveSettings, *, value: str = "normalised") -> pd.DataFrame:
+def curve_areas(
+    scores: pd.DataFrame, settings: CurveSettings, *, value: str = "normalised"
+) -> pd.DataFrame:
     """Area under each (arm, task) curve over log size (sizes >= 1), divided by the log range:
     the curve's mean height on a log axis. Columns: arm, task, auc, low, high, n_seeds, sizes."""
     settings.check()
     rs = CurveResampler(scores, value, settings)
     rows = []
-    for (arm, task) in rs.values:
+    for arm, task in rs.values:
         sizes = rs.sizes(arm, task)
         sizes = sizes[sizes > 0]
         if len(sizes) < 2:
@@ -328,6 +465,15 @@ def curve_areas(scores: pd.DataFrame, settings: CurveSettings, *, value: str = "
         draws = np.trapezoid(rs.boot(arm, task, sizes), x, axis=1) / (x[-1] - x[0])
         n = rs.n_seeds(arm, task, sizes)
         lo, hi = interval(draws, settings.confidence, n)
-        rows.append({"arm": arm, "task": task, "auc": float(point), "low": lo, "high": hi, "n_seeds": n,
-                     "sizes": f"{int(sizes[0])}-{int(sizes[-1])}"})
+        rows.append(
+            {
+                "arm": arm,
+                "task": task,
+                "auc": float(point),
+                "low": lo,
+                "high": hi,
+                "n_seeds": n,
+                "sizes": f"{int(sizes[0])}-{int(sizes[-1])}",
+            }
+        )
     return pd.DataFrame(rows)
