@@ -365,8 +365,12 @@ def test_exec_keeps_the_lease_alive_while_the_trainer_runs(tmp_path: Path):
     )
     import time
 
-    time.sleep(2.0)  # more than three leases: without renewal the run would be claimable now
     led = Ledger.open(ledger)
+    for _ in range(200):  # wait for exec to start (imports take a while on a busy machine)
+        if led.counts()["running"] == 1:
+            break
+        time.sleep(0.05)
+    time.sleep(2.0)  # more than three leases: without renewal the run would be claimable now
     assert led.claim("thief", lease=60) is None
     assert proc.wait(timeout=60) == 0
     assert led.counts()["done"] == 1 and led.runs()["attempts"].tolist() == [1]
