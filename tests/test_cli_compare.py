@@ -126,3 +126,25 @@ def test_seeds_needed(filled):
     assert data["rows"] and all(r["pilot_seeds"] == 5 for r in data["rows"])
     bad = run("seeds-needed", "--ledger", filled, "--power", "2")
     assert bad.exit_code == 2 and "--power must lie between 0 and 1" in bad.output
+
+
+def test_baseline_missing_a_size_is_named(tmp_path: Path):
+    ledger = str(tmp_path / "l.sqlite")
+    text = STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]")
+    led = Ledger.open(ledger)
+    led.plan(load_study(write_study(tmp_path, text)))
+    for r in led.runs().itertuples():
+        if r.arm == "scratch" and r.size == 3:
+            continue  # the baseline never ran at size 3
+        led.record(r.key, "return", float(10 * np.log1p(r.size) + (5 if r.arm == "wide" else 0) + r.seed))
+    led.close()
+    data = json.loads(run("compare", "--ledger", ledger, "--resamples", "300", "--format", "json").stdout)
+    assert any("baseline 'scratch' has no runs at size(s) 3 on task 'reach'" in n for n in data["notes"])
+    assert 3 not in {r["size"] for r in data["rows"]}
+
+
+def test_normalised_curves_need_references(tmp_path: Path):
+    text = STUDY_TOML.replace("floor = 0.0\nexpert = 100.0\n", "")
+    ledger = _filled(tmp_path, text)
+    result = run("curves", "--ledger", ledger, "--normalised", "--resamples", "200")
+    assert result.exit_code == 2 and "no task has both floor and expert" in result.output
