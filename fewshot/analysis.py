@@ -286,3 +286,77 @@ def compare_report(
     return CompareReport(
         table, thresholds, areas, headline, scaling, base, value, threshold, settings, sc, notes
     )
+
+
+FIGURE_KINDS = ("curves", "aggregate", "difference", "summary", "profile", "scaling")
+
+
+def make_figure(
+    ledger: Ledger,
+    kind: str,
+    settings: CurveSettings,
+    *,
+    metric: str | None = None,
+    select: str = "final",
+    normalised: bool = False,
+    baseline: str | None = None,
+    size: int | None = None,
+):  # type: ignore[no-untyped-def]
+    """One figure of the study (a matplotlib Figure), from the same statistics the tables print."""
+    from fewshot import plots
+
+    if kind not in FIGURE_KINDS:
+        raise InvalidInput(f"--kind must be one of {', '.join(FIGURE_KINDS)}. Got {kind!r}.")
+    arm_table = ledger.arms()
+    arms = list(arm_table["arm"])
+    roles = dict(zip(arm_table["arm"], arm_table["role"], strict=True))
+    if kind in ("curves", "aggregate"):
+        rep = curve_report(
+            ledger,
+            settings,
+            metric=metric,
+            select=select,
+            normalised=normalised,
+            across_tasks=kind == "aggregate",
+        )
+        if kind == "curves":
+            return plots.curves_figure(
+                rep.table,
+                arms=arms,
+                roles=roles,
+                metric=rep.scores.metric,
+                normalised=rep.value == "normalised",
+                refs=ledger.tasks(),
+                interval=f"{settings.confidence:.0%} {rep.table['method'].iloc[0]}",
+            )
+        return plots.aggregate_figure(rep.table, arms=arms, roles=roles, metric=rep.scores.metric)
+    cmp = compare_report(ledger, settings, baseline=baseline, metric=metric, select=select)
+    unit = "normalised " + cmp.scores.metric if cmp.value == "normalised" else cmp.scores.metric
+    if kind == "difference":
+        return plots.difference_figure(cmp.table, arms=arms, baseline=cmp.baseline, unit=unit)
+    if kind == "summary":
+        if len(cmp.areas):
+            return plots.summary_figure(
+                cmp.areas, value="auc", label="area under the normalised curve (log size)"
+            )
+        eff = cmp.table[cmp.table["task"] != "all"]
+        largest = eff.groupby(["arm", "task"])["size"].transform("max")
+        eff = eff[eff["size"] == largest]
+        return plots.summary_figure(
+            eff,
+            value="multiplier",
+            label="data multiplier at the largest size",
+            censored=eff["censor"] == "lower_bound",
+        )
+    if kind == "profile":
+        from fewshot.stats.profiles import performance_profile
+
+        normed = cmp.scores.scores[cmp.scores.scores["reference"] == "floor/expert"]
+        if normed.empty:
+            raise InvalidInput(
+                "a performance profile needs normalised scores: give the tasks floor and expert."
+            )
+        prof = performance_profile(normed, settings)
+        at = size if size is not None else int(max(s for s in prof["size"]))
+        return plots.profile_figure(prof, arms=arms, roles=roles, size=at)
+    return plots.scaling_figure(cmp.scaling, arms=arms)

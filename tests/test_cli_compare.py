@@ -136,10 +136,16 @@ def test_baseline_missing_a_size_is_named(tmp_path: Path):
     for r in led.runs().itertuples():
         if r.arm == "scratch" and r.size == 3:
             continue  # the baseline never ran at size 3
-        led.record(r.key, "return", float(10 * np.log1p(r.size) + (5 if r.arm == "wide" else 0) + r.seed))
+        led.record(
+            r.key, "return", float(10 * np.log1p(r.size) + (5 if r.arm == "wide" else 0) + r.seed)
+        )
     led.close()
-    data = json.loads(run("compare", "--ledger", ledger, "--resamples", "300", "--format", "json").stdout)
-    assert any("baseline 'scratch' has no runs at size(s) 3 on task 'reach'" in n for n in data["notes"])
+    data = json.loads(
+        run("compare", "--ledger", ledger, "--resamples", "300", "--format", "json").stdout
+    )
+    assert any(
+        "baseline 'scratch' has no runs at size(s) 3 on task 'reach'" in n for n in data["notes"]
+    )
     assert 3 not in {r["size"] for r in data["rows"]}
 
 

@@ -56,6 +56,8 @@ app.command("status")(results_cmd.status)
 app.command("export")(results_cmd.export)
 app.command("curves")(stats_cmd.curves_cmd)
 app.command("compare")(compare_cmd.compare)
+app.command("plot")(stats_cmd.plot)
+app.command("report")(stats_cmd.report)
 app.command("seeds-needed")(compare_cmd.seeds_needed_cmd)
 
 

@@ -150,12 +150,20 @@ def compare(
             )
         out.print(t2)
     if len(rep.areas):
-        t5 = Table(title="area under the normalised curve over log size (mean height)", title_justify="left")
+        t5 = Table(
+            title="area under the normalised curve over log size (mean height)",
+            title_justify="left",
+        )
         for c in ("arm", "task", "sizes", "area", "seeds"):
             t5.add_column(c)
         for _, r in rep.areas.iterrows():
-            t5.add_row(str(r["arm"]), str(r["task"]), str(r["sizes"]), Text(with_interval(r["auc"], r["low"], r["high"])),
-                       str(r["n_seeds"]))
+            t5.add_row(
+                str(r["arm"]),
+                str(r["task"]),
+                str(r["sizes"]),
+                Text(with_interval(r["auc"], r["low"], r["high"])),
+                str(r["n_seeds"]),
+            )
         out.print(t5)
     if len(rep.headline):
         t3 = Table(

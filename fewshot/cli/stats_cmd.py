@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+from pathlib import Path
 from typing import Annotated
 
 import pandas as pd
@@ -20,6 +21,7 @@ from fewshot.cli.common import (
     print_json,
     reporting,
 )
+from fewshot.errors import InvalidInput
 from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS
 
 MetricOpt = Annotated[
@@ -154,3 +156,99 @@ def curves_cmd(
         typer.echo(table.to_csv(index=False), nl=False)
     else:
         print_curve_table(report)
+
+
+def plot(
+    *,
+    kind: Annotated[
+        str,
+        typer.Option("--kind", help="curves, aggregate, difference, summary, profile or scaling."),
+    ],
+    out_file: Annotated[Path, typer.Option("--out", help="The figure file: .png, .svg or .pdf.")],
+    metric: MetricOpt = None,
+    select: SelectOpt = "final",
+    normalised: Annotated[
+        bool, typer.Option("--normalised", help="Normalised scores (curves).")
+    ] = False,
+    baseline: Annotated[
+        str | None, typer.Option("--baseline", help="Baseline for difference/summary.")
+    ] = None,
+    size: Annotated[
+        int | None, typer.Option("--size", help="Size for the performance profile.")
+    ] = None,
+    estimator: EstimatorOpt = "mean",
+    ci: CiOpt = DEFAULT_METHOD,
+    confidence: ConfidenceOpt = 0.95,
+    resamples: ResamplesOpt = 10_000,
+    seed: SeedOpt = 0,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Draw one figure of the study to a PNG, SVG or PDF file."""
+    from fewshot.analysis import make_figure
+    from fewshot.plots import save_figure
+    from fewshot.stats import CurveSettings
+
+    with reporting():
+        settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
+        if out_file.suffix.lower() not in (".png", ".svg", ".pdf"):
+            raise InvalidInput(f"{out_file}: --out must end in .png, .svg or .pdf.")
+        led = open_ledger(ledger, study)
+        try:
+            fig = make_figure(
+                led,
+                kind,
+                settings,
+                metric=metric,
+                select=select,
+                normalised=normalised,
+                baseline=baseline,
+                size=size,
+            )
+        finally:
+            led.close()
+        path = save_figure(fig, out_file)
+    out.print(f"wrote {path}")
+
+
+def report(
+    *,
+    out_file: Annotated[Path, typer.Option("--out", help="The report file (.html).")] = Path(
+        "report.html"
+    ),
+    title: Annotated[str | None, typer.Option("--title", help="A title of your own.")] = None,
+    baseline: Annotated[
+        str | None, typer.Option("--baseline", help="Baseline arm (default: the study's).")
+    ] = None,
+    threshold: Annotated[
+        float, typer.Option("--threshold", help="Normalised level for episodes-to-threshold.")
+    ] = 1.0,
+    select: SelectOpt = "final",
+    estimator: EstimatorOpt = "mean",
+    ci: CiOpt = DEFAULT_METHOD,
+    confidence: ConfidenceOpt = 0.95,
+    resamples: ResamplesOpt = 10_000,
+    seed: SeedOpt = 0,
+    ledger: LedgerOpt = None,
+    study: StudyOpt = None,
+) -> None:
+    """Write the study report: one HTML file with the figures embedded, readable offline and printable."""
+    from fewshot.report import write_report
+    from fewshot.stats import CurveSettings
+
+    with reporting():
+        settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
+        led = open_ledger(ledger, study)
+        try:
+            path = write_report(
+                out_file,
+                led,
+                settings,
+                title=title,
+                select=select,
+                baseline=baseline,
+                threshold=threshold,
+            )
+        finally:
+            led.close()
+    out.print(f"wrote {path}")

@@ -1,0 +1,316 @@
+"""Assemble the study report from the ledger: study, completion, figures, tables, methods, warnings."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+import pandas as pd
+
+from fewshot.analysis import compare_report, curve_report, make_figure
+from fewshot.errors import FewshotError, InvalidInput
+from fewshot.ledger import Ledger
+from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
+from fewshot.stats import CurveSettings
+from fewshot.stats.coverage import coverage_sentence
+from fewshot.tables import number, threshold_cell, transfer_rows, with_interval
+
+__all__ = ["build_report", "write_report", "HARDWARE_CAUTION"]
+
+HARDWARE_CAUTION = (
+    "These scores come from the evaluation the trainers ran, often in simulation or on logged data. "
+    "However good they are, they do not show that a policy is safe to run on real hardware: that needs "
+    "its own testing, with safeguards, on the system itself."
+)
+
+
+def _study_section(ledger: Ledger) -> str:
+    study = ledger.study_row()
+    arms = ledger.arms()
+    tasks = ledger.tasks()
+    runs = ledger.runs()
+    arm_rows = [
+        {
+            "arm": r["arm"],
+            "role": r["role"],
+            "checkpoint": r["checkpoint"] if isinstance(r.get("checkpoint"), str) else "-",
+            "zero-shot": "yes" if r["zero_shot"] else "no",
+            "attributes": ", ".join(
+                f"{k}={number(r[k])}"
+                for k in arms.columns
+                if k not in ("arm", "role", "checkpoint", "zero_shot") and pd.notna(r[k])
+            )
+            or "-",
+        }
+        for _, r in arms.iterrows()
+    ]
+    task_rows = [
+        {
+            "task": r["task"],
+            "group": r["group"] if isinstance(r["group"], str) else "-",
+            "pool": Path(r["pool_file"]).name,
+            "pool digest": r["pool_digest"][:12],
+            "floor": number(r["floor"]),
+            "expert": number(r["expert"]),
+        }
+        for _, r in tasks.iterrows()
+    ]
+    sizes = sorted(set(runs["size"]))
+    seeds = sorted(set(runs["seed"]))
+    text = (
+        f"Study {study['name']}: metric {study['metric']} ({'higher' if study['higher_is_better'] else 'lower'} "
+        f"is better), baseline {study['baseline']}, sizes {', '.join(map(str, sizes))}, seeds "
+        f"{', '.join(map(str, seeds))}, {study['replicates']} replicate(s) per subset, {len(runs)} runs."
+    )
+    return (
+        paragraph(text)
+        + "<h3>Arms</h3>"
+        + table_html(arm_rows)
+        + "<h3>Tasks</h3>"
+        + table_html(task_rows)
+    )
+
+
+def _completion_section(ledger: Ledger) -> tuple[str, list[str]]:
+    st = ledger.status()
+    t = st.totals
+    warnings = []
+    sizes = sorted(set(st.cells["size"]))
+    cells = []
+    for arm, g in st.cells.groupby("arm", sort=False):
+        by = {int(r.size): r for r in g.itertuples()}
+        row = {"arm": str(arm)}
+        for n in sizes:
+            c = by.get(n)
+            row[f"n{n}"] = (
+                "-"
+                if c is None
+                else f"{c.done}/{c.total}" + (f", {c.failed} failed" if c.failed else "")
+            )
+        cells.append(row)
+    body = paragraph(
+        f"{t['done']} of {t['total']} runs done, {t['running']} running, {t['failed']} failed, "
+        f"{t['planned']} not started. Cells: runs done / planned per arm and size."
+    ) + table_html(cells, numeric=[f"n{n}" for n in sizes])
+    if len(st.failed):
+        body += "<h3>Failed runs</h3>" + table_html(
+            [
+                {
+                    "run": r.key,
+                    "attempts": str(r.attempts),
+                    "message": (r.message or "").strip()[-300:],
+                }
+                for r in st.failed.itertuples()
+            ]
+        )
+        warnings.append(
+            f"{len(st.failed)} run(s) failed: their cells rest on fewer seeds than planned."
+        )
+    missing = t["planned"] + t["running"]
+    if missing:
+        warnings.append(
+            f"{missing} run(s) have no final status yet (not started or still running): the results "
+            "below are incomplete."
+        )
+    return body, warnings
+
+
+def _figure(ledger: Ledger, kind: str, settings: CurveSettings, caption: str, **kw) -> str:  # type: ignore[no-untyped-def]
+    try:
+        return figure_html(figure_uri(make_figure(ledger, kind, settings, **kw)), caption)
+    except InvalidInput as exc:
+        return paragraph(f"No {kind} figure: {exc}")
+
+
+def build_report(
+    ledger: Ledger,
+    settings: CurveSettings,
+    *,
+    title: str | None = None,
+    select: str = "final",
+    baseline: str | None = None,
+    threshold: float = 1.0,
+) -> str:
+    """The report as one HTML string."""
+    study = ledger.study_row()
+    sections: list[tuple[str, str]] = [
+        ("Caution", f'<div class="caution">{paragraph(HARDWARE_CAUTION)}</div>')
+    ]
+    sections.append(("The study", _study_section(ledger)))
+    completion, warnings = _completion_section(ledger)
+    sections.append(("Completion", completion))
+    curves = curve_report(ledger, settings, select=select)
+    normalised = not curves.scores.raw_tasks
+    figs = _figure(
+        ledger,
+        "curves",
+        settings,
+        "Score against episodes per task; intervals over seeds.",
+        select=select,
+        normalised=normalised,
+    )
+    if normalised:
+        figs += _figure(
+            ledger,
+            "aggregate",
+            settings,
+            "Interquartile mean of normalised scores over tasks.",
+            select=select,
+        )
+    cmp = None
+    try:
+        cmp = compare_report(
+            ledger, settings, baseline=baseline, threshold=threshold, select=select
+        )
+    except InvalidInput as exc:
+        warnings.append(f"no comparison with the baseline: {exc}")
+    if cmp is not None:
+        figs += _figure(
+            ledger,
+            "difference",
+            settings,
+            f"Each arm minus {cmp.baseline}, paired by seed.",
+            select=select,
+            baseline=baseline,
+        )
+        figs += _figure(
+            ledger,
+            "summary",
+            settings,
+            "Summary of arms by task.",
+            select=select,
+            baseline=baseline,
+        )
+        if normalised:
+            figs += _figure(
+                ledger,
+                "profile",
+                settings,
+                "Performance profile at the largest size.",
+                select=select,
+                baseline=baseline,
+            )
+        if len(cmp.scaling):
+            figs += _figure(
+                ledger,
+                "scaling",
+                settings,
+                "Aggregate score against the arms' attribute.",
+                select=select,
+                baseline=baseline,
+            )
+    sections.append(("Figures", figs))
+    sections.append(("Curves", _curve_table(curves)))
+    if cmp is not None:
+        body = table_html(transfer_rows(cmp.table))
+        if len(cmp.thresholds):
+            body += f"<h3>Episodes to reach {number(cmp.threshold)} (normalised)</h3>" + table_html(
+                [
+                    {
+                        "arm": r["arm"],
+                        "task": r["task"],
+                        "episodes": threshold_cell(r),
+                        "seeds": str(r["n_seeds"]),
+                    }
+                    for _, r in cmp.thresholds.iterrows()
+                ]
+            )
+        if len(cmp.areas):
+            body += "<h3>Area under the normalised curve (log size)</h3>" + table_html(
+                [
+                    {
+                        "arm": r["arm"],
+                        "task": r["task"],
+                        "area": with_interval(r["auc"], r["low"], r["high"]),
+                        "sizes": r["sizes"],
+                        "seeds": str(r["n_seeds"]),
+                    }
+                    for _, r in cmp.areas.iterrows()
+                ]
+            )
+        sections.append((f"Transfer against {cmp.baseline}", body))
+        warnings.extend(cmp.notes)
+    sections.append(("Methods", _methods(curves, settings, cmp)))
+    warnings = curves.notes + warnings
+    if curves.scores.rule != "final":
+        warnings.append(
+            f"run scores were chosen by a validation metric ({curves.scores.rule}); the same rule was "
+            "applied to every arm"
+        )
+    if cmp is not None and len(cmp.thresholds) and (cmp.thresholds["censor"] != "").any():
+        warnings.append(
+            "some episodes-to-threshold values are censored (not reached, already there, or zero-shot)"
+        )
+    sections.append(("Warnings", bullet_list(dict.fromkeys(warnings), cls="warn")))
+    heading = title or f"Study {study['name']}"
+    return page(heading, sections, subtitle=f"Study {study['name']}, ledger {ledger.url}.")
+
+
+def _curve_table(curves) -> str:  # type: ignore[no-untyped-def]
+    rows = [
+        {
+            "arm": r["arm"],
+            "task": r["task"],
+            "size": str(r["size"]),
+            "estimate [interval]": with_interval(r["estimate"], r["low"], r["high"]),
+            "seeds": str(r["n_seeds"]),
+            "note": r["note"] or "",
+        }
+        for _, r in curves.table.iterrows()
+    ]
+    label = "normalised " if curves.value == "normalised" else ""
+    return paragraph(
+        f"{curves.settings.estimator} of {label}{curves.scores.metric} over seeds, "
+        f"{curves.settings.confidence:.0%} {curves.table['method'].iloc[0]} intervals."
+    ) + table_html(rows, numeric=("size", "seeds"))
+
+
+def _methods(curves, settings: CurveSettings, cmp) -> str:  # type: ignore[no-untyped-def]
+    t = curves.table
+    n_min, n_max = int(t["n_seeds"].min()), int(t["n_seeds"].max())
+    rule = curves.scores.rule
+    rule_text = (
+        "the final evaluation of each run (its last reported step when it reported no final one)"
+        if rule == "final"
+        else f"the rule {rule}"
+    )
+    parts = [
+        f"Each run was scored by {curves.scores.metric} at {rule_text}. Curve points are the {settings.estimator} over "
+        f"seeds (one seed = one nested draw of training episodes, shared by every arm) with {settings.confidence:.0%} "
+        f"{settings.method} intervals from {settings.resamples} bootstrap resamples of whole seeds (resampling seed "
+        f"{settings.seed}); between {n_min} and {n_max} seeds stand behind each interval.",
+        coverage_sentence(settings.method, n_min),
+        "Aggregates over tasks pool the normalised scores of all runs and use a stratified bootstrap (seeds resampled "
+        "within each task).",
+    ]
+    if cmp is not None:
+        parts.append(
+            f"Arms were compared with {cmp.baseline} on the same subsets, paired by seed. Effective data transferred is "
+            "read off an isotonic fit of the baseline's curve on log size (Hernandez et al. 2021); probability of "
+            "improvement counts ties as one half (Agarwal et al. 2021). Derived quantities use expanded percentile "
+            "intervals (Hesterberg 2015) of whole-curve resamples."
+        )
+    return "".join(paragraph(p) for p in parts)
+
+
+def write_report(path: str | Path, ledger: Ledger, settings: CurveSettings, **kw) -> Path:  # type: ignore[no-untyped-def]
+    """Write the report atomically to ``path`` (an .html file)."""
+    p = Path(path)
+    if p.suffix.lower() not in (".html", ".htm"):
+        raise InvalidInput(f"{p}: the report is an HTML file; give --out a name ending in .html.")
+    if not p.parent.exists():
+        raise InvalidInput(f"{p.parent}: the folder does not exist. Create it first.")
+    text = build_report(ledger, settings, **kw)
+    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", dir=p.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as f:
+            f.write(text)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes it private; a report is for sharing
+        os.replace(tmp, p)
+    except (OSError, FewshotError):
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return p
