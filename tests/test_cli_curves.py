@@ -116,3 +116,12 @@ def test_no_results_yet(tmp_path: Path):
     Ledger.open(ledger).plan(load_study(write_study(tmp_path)))
     result = run("curves", "--ledger", ledger)
     assert result.exit_code == 2 and "has no results yet" in result.output
+
+
+def test_latex_curves(filled):
+    tex = run("curves", "--ledger", filled, "--format", "latex", "--resamples", "300").stdout
+    assert (
+        tex.startswith("\\begin{table}") and "estimate [interval]" in tex and "\\bottomrule" in tex
+    )
+    bad = run("curves", "--ledger", filled, "--format", "xml")
+    assert bad.exit_code == 2 and "--format must be" in bad.output

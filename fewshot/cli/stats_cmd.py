@@ -14,7 +14,6 @@ from rich.table import Table
 from fewshot.cli.common import (
     LedgerOpt,
     StudyOpt,
-    TableJsonCsv,
     err,
     open_ledger,
     out,
@@ -120,9 +119,7 @@ def curves_cmd(
     by_group: Annotated[
         bool, typer.Option("--by-group", help="Aggregate normalised scores per task group.")
     ] = False,
-    fmt: Annotated[
-        TableJsonCsv, typer.Option("--format", help="table, csv or json.")
-    ] = TableJsonCsv.table,
+    fmt: Annotated[str, typer.Option("--format", help="table, csv, json or latex.")] = "table",
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -131,6 +128,8 @@ def curves_cmd(
     from fewshot.stats import CurveSettings
 
     with reporting():
+        if fmt not in ("table", "csv", "json", "latex"):
+            raise InvalidInput(f"--format must be table, csv, json or latex. Got {fmt!r}.")
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
         led = open_ledger(ledger, study)
         try:
@@ -150,10 +149,33 @@ def curves_cmd(
         table.insert(2, "task", None)
     table["rule"] = report.scores.rule
     table["value"] = report.value
-    if fmt is TableJsonCsv.json:
+    if fmt == "json":
         print_json({"rows": json.loads(table.to_json(orient="records")), "notes": report.notes})
-    elif fmt is TableJsonCsv.csv:
+    elif fmt == "csv":
         typer.echo(table.to_csv(index=False), nl=False)
+    elif fmt == "latex":
+        from fewshot.tables import latex_table, with_interval
+
+        name = "task" if report.kind == "per-task" else "aggregate"
+        rows = [
+            {
+                "arm": str(r["arm"]),
+                name: str(r[name]),
+                "size": str(r["size"]),
+                "estimate [interval]": with_interval(r["estimate"], r["low"], r["high"]),
+                "seeds": str(r["n_seeds"]),
+            }
+            for _, r in report.table.iterrows()
+        ]
+        s = report.settings
+        typer.echo(
+            latex_table(
+                rows,
+                f"{s.estimator} of {report.scores.metric} over seeds with {s.confidence:.0%} "
+                f"{report.table['method'].iloc[0]} intervals ({s.resamples} resamples).",
+            ),
+            nl=False,
+        )
     else:
         print_curve_table(report)
 
