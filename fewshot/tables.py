@@ -26,6 +26,8 @@ def number(x: float | None, digits: int = 3) -> str:
         return "-"
     if math.isinf(x):
         return "inf" if x > 0 else "-inf"
+    if abs(x) < 1e-12:  # floating-point residue of an exact zero (e.g. normalised floor)
+        return "0"
     return f"{x:.{digits}g}" if abs(x) < 10**digits else f"{x:.0f}"
 
 

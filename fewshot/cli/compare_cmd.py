@@ -79,7 +79,7 @@ def compare(
     """Arms against a baseline: paired differences, P(improvement), effective data, episodes to a threshold."""
     from fewshot.analysis import compare_report
     from fewshot.stats import CurveSettings
-    from fewshot.tables import latex_table, threshold_cell, transfer_rows, with_interval
+    from fewshot.tables import latex_table, transfer_rows
 
     with reporting():
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
@@ -115,15 +115,28 @@ def compare(
     if fmt is CompareFormat.csv:
         typer.echo(rep.table.to_csv(index=False), nl=False)
         return
+    if fmt is CompareFormat.latex:
+        rows = transfer_rows(rep.table)
+        typer.echo(latex_table(rows, _caption(rep)), nl=False)
+        return
+    print_transfer(rep)
+
+
+def _caption(rep) -> str:  # type: ignore[no-untyped-def]
+    unit = "normalised" if rep.value == "normalised" else rep.scores.metric
+    s = rep.settings
+    return (
+        f"Each arm against {rep.baseline}, paired by seed: difference in {unit} ({s.estimator}, "
+        f"{s.confidence:.0%} intervals), probability of improvement, effective data D_E (data multiplier)."
+    )
+
+
+def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
+    """The transfer tables of a compare report, on the terminal."""
+    from fewshot.tables import threshold_cell, transfer_rows, with_interval
+
     rows = transfer_rows(rep.table)
     unit = "normalised" if rep.value == "normalised" else rep.scores.metric
-    caption = (
-        f"Each arm against {rep.baseline}, paired by seed: difference in {unit} ({settings.estimator}, "
-        f"{settings.confidence:.0%} intervals), probability of improvement, effective data D_E (data multiplier)."
-    )
-    if fmt is CompareFormat.latex:
-        typer.echo(latex_table(rows, caption), nl=False)
-        return
     table = Table(
         title=f"against {rep.baseline}: {unit} difference, P(improvement), effective data",
         title_justify="left",

@@ -44,9 +44,9 @@ SeedOpt = Annotated[
 
 
 def _fmt(x: float) -> str:
-    if x is None or (isinstance(x, float) and math.isnan(x)):
-        return "-"
-    return f"{x:.3g}" if abs(x) < 1000 else f"{x:.0f}"
+    from fewshot.tables import number
+
+    return number(x)
 
 
 def _cell(row: pd.Series, show_n: bool) -> str:
