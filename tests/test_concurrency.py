@@ -97,9 +97,9 @@ def test_killed_ingest_then_rerun_stores_each_result_once(tmp_path: Path, ledger
     env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
     cmd = [sys.executable, "-m", "fewshot.cli", "ingest", str(results), "--ledger", ledger_url]
     rng = random.Random(7)
-    for _ in range(3):
+    for _ in range(20):  # kill at random points: during start-up, parsing, or inside a transaction
         proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        time.sleep(rng.uniform(0.3, 1.5))
+        time.sleep(rng.uniform(0.2, 1.6))
         proc.send_signal(signal.SIGKILL)
         proc.wait()
     done = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=300)
