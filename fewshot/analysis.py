@@ -301,6 +301,7 @@ def make_figure(
     normalised: bool = False,
     baseline: str | None = None,
     size: int | None = None,
+    by_group: bool = False,
 ):  # type: ignore[no-untyped-def]
     """One figure of the study (a matplotlib Figure), from the same statistics the tables print."""
     from fewshot import plots
@@ -317,7 +318,8 @@ def make_figure(
             metric=metric,
             select=select,
             normalised=normalised,
-            across_tasks=kind == "aggregate",
+            across_tasks=kind == "aggregate" and not by_group,
+            by_group=kind == "aggregate" and by_group,
         )
         if kind == "curves":
             return plots.curves_figure(

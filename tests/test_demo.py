@@ -143,3 +143,12 @@ def test_the_demo_command_resumes_and_reports(quick_demo: Path):
     assert "resuming the demo study" in result.output
     assert "against scratch" in result.output and "report.html" in result.output
     assert (quick_demo / "report.html").exists()
+
+
+def test_studies_keeps_the_full_demos_study_file():
+    # studies/dock-demo.toml is the file `fewshot demo` writes for the full study: regenerate its text
+    # from the scenario (the references come from deterministic rollouts) and compare.
+    from fewshot.demo.scenario import FULL, TARGETS, _study_text, references
+
+    refs = {task.name: references(task, FULL) for task in TARGETS[: FULL.targets]}
+    assert (STUDIES / "dock-demo.toml").read_text() == _study_text(FULL, refs)

@@ -198,6 +198,9 @@ def plot(
     size: Annotated[
         int | None, typer.Option("--size", help="Size for the performance profile.")
     ] = None,
+    by_group: Annotated[
+        bool, typer.Option("--by-group", help="Aggregate per task group (--kind aggregate).")
+    ] = False,
     estimator: EstimatorOpt = "mean",
     ci: CiOpt = DEFAULT_METHOD,
     confidence: ConfidenceOpt = 0.95,
@@ -226,6 +229,7 @@ def plot(
                 normalised=normalised,
                 baseline=baseline,
                 size=size,
+                by_group=by_group,
             )
         finally:
             led.close()

@@ -96,6 +96,15 @@ def eval_starts(task: Task, n: int) -> np.ndarray:
     return starts(np.random.default_rng(stable_seed("eval", task.name)), n)
 
 
+def references(task: Task, config: DemoConfig) -> tuple[float, float]:
+    """The task's floor (a random policy) and expert (the scripted controller) mean returns."""
+    ev = eval_starts(task, config.eval_episodes)
+    rng = np.random.default_rng(stable_seed("floor", task.name))
+    floor = rollout(task, lambda o: random_actions(rng, len(o)), ev)
+    expert = rollout(task, lambda o: expert_actions(task, o), ev)
+    return float(floor.mean()), float(expert.mean())
+
+
 def _source_tasks(kind: str, k: int, rng: np.random.Generator) -> list[Task]:
     out = []
     for i in range(k):
@@ -215,11 +224,7 @@ def write_scenario(folder: Path, config: DemoConfig) -> Path:
             act=act.astype(np.float32),
             live=live,
         )
-        ev = eval_starts(task, config.eval_episodes)
-        floor_rng = np.random.default_rng(stable_seed("floor", task.name))
-        floor = rollout(task, lambda o, g=floor_rng: random_actions(g, len(o)), ev)
-        expert = rollout(task, lambda o, t=task: expert_actions(t, o), ev)
-        refs[task.name] = (float(floor.mean()), float(expert.mean()))
+        refs[task.name] = references(task, config)
     study_file.write_text(_study_text(config, refs), encoding="utf-8")
     marker.write_text(
         json.dumps(
