@@ -67,7 +67,8 @@ def _size_axis(ax, sizes: Sequence[int]) -> float | None:  # type: ignore[no-unt
     positive = sorted(s for s in sizes if s > 0)
     ax.set_xscale("log")
     zero_at = None
-    ticks, labels = list(positive), [str(s) for s in positive]
+    ticks: list[float] = [float(s) for s in positive]
+    labels = [str(s) for s in positive]
     if 0 in sizes and positive:
         zero_at = positive[0] / 4
         ticks, labels = [zero_at, *ticks], ["0", *labels]

@@ -27,7 +27,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from fractions import Fraction
 from types import MappingProxyType
-from typing import Literal
+from typing import Literal, cast
 
 import numpy as np
 
@@ -145,10 +145,11 @@ def check_ids(ids: Sequence[object], *, where: str = "ids") -> list[str]:
 
     ``where`` names the source (a file and column) in the messages.
     """
-    out = list(ids)
-    bad = [i for i in out if not isinstance(i, str)]
+    raw = list(ids)
+    bad = [i for i in raw if not isinstance(i, str)]
     if bad:
         raise InvalidInput(f"{where}: ids must be strings. Got {bad[0]!r}.")
+    out = cast(list[str], raw)
     empty = sum(1 for i in out if i == "")
     if empty:
         raise InvalidInput(f"{where}: {empty} empty id(s). Every episode needs a non-empty id.")
@@ -177,7 +178,7 @@ def _check_sizes(sizes: Iterable[object]) -> tuple[int, ...]:
             raise InvalidInput(
                 f"sizes must be whole numbers of 0 or more (0 = no fine-tuning). Got {raw}."
             )
-    values = [int(s) for s in raw]
+    values = [int(cast(int, s)) for s in raw]
     if len(set(values)) != len(values):
         raise InvalidInput(f"sizes must not repeat. Got {values}.")
     return tuple(sorted(values))

@@ -11,7 +11,7 @@ import difflib
 import math
 import re
 import tomllib
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -360,7 +360,8 @@ def _build(doc: dict[str, Any], base: Path, path: Path, where: _Where) -> Study:
         raise StudyError(f"{path}: the study needs at least one [[arms]] table.")
     if not tasks:
         raise StudyError(f"{path}: the study needs at least one [[tasks]] table.")
-    for label, items in (("arms", arms), ("tasks", tasks)):
+    named: tuple[tuple[str, Sequence[Arm | Task]], ...] = (("arms", arms), ("tasks", tasks))
+    for label, items in named:
         seen: set[str] = set()
         for i, item in enumerate(items):
             if item.name in seen:

@@ -168,7 +168,7 @@ def draw_task(spec: DrawSpec, *, on_seed: Callable[[int], None] | None = None) -
             "removed": removed,
         }
     positions = np.flatnonzero(keep)
-    filt = None
+    filt: dict[str, object] | None = None
     if spec.keep_top is not None:
         assert spec.rank_by is not None
         scores = pool.numeric(spec.rank_by, option="--rank-by")[positions]

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from enum import StrEnum
 from pathlib import Path
-from typing import Annotated, Any
+from typing import Annotated, Any, cast
 
 import typer
 from rich.table import Table
@@ -136,7 +136,8 @@ def _print_summary(result: TaskDraw, summary: dict[str, Any]) -> None:
         f = lin.filter
         out.print(f"  kept the {f['order']} {f['after']} of {f['before']} by {f['column']}")
     if lin.strata:
-        counts = ", ".join(f"{k} {v}" for k, v in lin.strata["pool_counts"].items())  # type: ignore[union-attr]
+        pool_counts = cast(dict[str, int], lin.strata["pool_counts"])
+        counts = ", ".join(f"{k} {v}" for k, v in pool_counts.items())
         out.print(f"  strata by {lin.strata['column']} ({lin.strata['allocation']}): {counts}")
     line = f"  {lin.eligible} eligible"
     if lin.reserve:

@@ -90,7 +90,7 @@ def plan_study(conn: Connection, study: Study, draws: dict[str, TaskDraw]) -> Pl
                 spec_json=_spec_json(study),
                 created_at=now,
             )
-        ).inserted_primary_key[0]
+        ).inserted_primary_key[0]  # type: ignore[index]
         old_sizes: set[int] = set()
         old_seeds: set[int] = set()
     else:
@@ -194,7 +194,7 @@ def _sync_arms(conn: Connection, sid: int, study: Study) -> tuple[dict[str, int]
                 zero_shot=arm.zero_shot,
                 attributes_json=json.dumps(dict(arm.attributes), sort_keys=True),
             )
-        ).inserted_primary_key[0]
+        ).inserted_primary_key[0]  # type: ignore[index]
         new.append(arm.name)
     return ids, new
 
@@ -241,7 +241,7 @@ def _sync_tasks(
                 expert=task.expert,
                 grp=task.group,
             )
-        ).inserted_primary_key[0]
+        ).inserted_primary_key[0]  # type: ignore[index]
         new.append(task.name)
     return ids, new
 
@@ -297,7 +297,7 @@ def _sync_subsets(
                             digest=d.digest(n),
                             ids_path=str(subset_path(study.draws_dir, name, d.seed, n)),
                         )
-                    ).inserted_primary_key[0]
+                    ).inserted_primary_key[0]  # type: ignore[index]
         for (seed, n), i in have.items():
             out[(name, seed, n)] = i
     return out

@@ -406,10 +406,9 @@ def _insert_fresh(
     with_values = [(row, ln) for row, ln in zip(rows, fresh.values(), strict=True) if ln.values]
     if not with_values:
         return
-    table = ResultRow.__table__
     ids = (
         conn.execute(
-            insert(table).returning(table.c.id, sort_by_parameter_order=True),
+            insert(ResultRow).returning(ResultRow.id, sort_by_parameter_order=True),
             [row for row, _ in with_values],
         )
         .scalars()
@@ -420,7 +419,7 @@ def _insert_fresh(
         for res_id, (_, ln) in zip(ids, with_values, strict=True)
         for i, v in enumerate(ln.values)
     ]
-    conn.execute(insert(ResultValueRow.__table__), value_rows)
+    conn.execute(insert(ResultValueRow), value_rows)
 
 
 def _budget(budget: dict[str, Any] | None) -> str | None:
