@@ -110,9 +110,19 @@ def curve_report(
     else:
         table = curves(sc.scores, settings, value=value)
         kind = "per-task"
+    table = _in_study_order(table, list(ledger.arms()["arm"]))
     report = CurveReport(table, kind, value, settings, sc)
     report.notes.extend(caveats(report))
     return report
+
+
+def _in_study_order(table: pd.DataFrame, arms: list[str]) -> pd.DataFrame:
+    """Rows in the study file's order of arms (then as they were), as every figure draws them."""
+    if table.empty:
+        return table
+    rank = {a: i for i, a in enumerate(arms)}
+    order = table["arm"].map(lambda a: rank.get(a, len(rank)))
+    return table.assign(_o=order).sort_values("_o", kind="stable").drop(columns="_o").reset_index(drop=True)
 
 
 def caveats(report: CurveReport) -> list[str]:
