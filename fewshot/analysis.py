@@ -122,7 +122,12 @@ def _in_study_order(table: pd.DataFrame, arms: list[str]) -> pd.DataFrame:
         return table
     rank = {a: i for i, a in enumerate(arms)}
     order = table["arm"].map(lambda a: rank.get(a, len(rank)))
-    return table.assign(_o=order).sort_values("_o", kind="stable").drop(columns="_o").reset_index(drop=True)
+    return (
+        table.assign(_o=order)
+        .sort_values("_o", kind="stable")
+        .drop(columns="_o")
+        .reset_index(drop=True)
+    )
 
 
 def caveats(report: CurveReport) -> list[str]:

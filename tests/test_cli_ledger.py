@@ -413,3 +413,18 @@ def test_an_interrupted_exec_hands_the_run_back(tmp_path: Path):
     assert proc.wait(timeout=60) == 130
     assert led.counts() == {"planned": 1, "running": 0, "done": 0, "failed": 0}
     led.close()
+
+
+def test_commands_other_than_init_never_create_a_ledger(tmp_path: Path):
+    missing = tmp_path / "nowhere.sqlite"
+    for args in (
+        ["status"],
+        ["next", "--worker", "w"],
+        ["export"],
+        ["curves"],
+        ["record", "a/b/n1/s0", "x=1"],
+    ):
+        result = run(*args, "--ledger", missing)
+        assert result.exit_code == 2, (args, result.output)
+        assert "no ledger at" in result.output and "fewshot init" in result.output
+    assert not missing.exists()

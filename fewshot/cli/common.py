@@ -105,11 +105,14 @@ def duration(text: str, *, option: str) -> float:
     return value
 
 
-def open_ledger(ledger: str | None, study: str | None) -> Any:
-    """Open the ledger (imported here so that commands without a ledger start fast)."""
+def open_ledger(ledger: str | None, study: str | None, *, create: bool = False) -> Any:
+    """Open the ledger (imported here so that commands without a ledger start fast).
+
+    Only ``init`` creates a ledger; every other command refuses a SQLite file that is not there.
+    """
     from fewshot.ledger import Ledger
 
-    return Ledger.open(ledger, study=study)
+    return Ledger.open(ledger, study=study, create=create)
 
 
 def print_frame(frame: Any, fmt: str) -> None:

@@ -88,7 +88,7 @@ def init(
     with reporting():
         study = load_study(study_file)
         with err.status("drawing subsets", spinner="dots") if err.is_terminal else nullcontext():
-            led = open_ledger(ledger, study.name)
+            led = open_ledger(ledger, study.name, create=True)
             report = led.plan(study)
         url = led.url
         led.close()

@@ -19,6 +19,7 @@ from fewshot.ledger.engine import (
     mask_url,
     resolve_url,
     retry_locked,
+    sqlite_path,
     upgrade_schema,
 )
 from fewshot.ledger.models import (
@@ -108,10 +109,22 @@ class Ledger:
     # ------------------------------------------------------------------ opening
 
     @classmethod
-    def open(cls, url: str | Path | None = None, *, study: str | None = None) -> Ledger:
+    def open(
+        cls, url: str | Path | None = None, *, study: str | None = None, create: bool = True
+    ) -> Ledger:
         """Open (creating or upgrading) the ledger at ``url``: a path or SQLAlchemy URL,
-        else ``$FEWSHOT_LEDGER``, else ``fewshot.sqlite`` in the working directory."""
+        else ``$FEWSHOT_LEDGER``, else ``fewshot.sqlite`` in the working directory.
+
+        With ``create=False`` a SQLite ledger file that does not exist yet is an error instead
+        of a new, empty ledger (what every command but ``init`` wants).
+        """
         resolved = resolve_url(url)
+        path = sqlite_path(resolved)
+        if not create and path is not None and not path.exists():
+            raise LedgerError(
+                f"no ledger at {path}. Run `fewshot init STUDY.toml` there first, or point --ledger "
+                "(or FEWSHOT_LEDGER) at the study's ledger."
+            )
         engine = make_engine(resolved)
         upgrade_schema(engine)
         return cls(engine, resolved, study)

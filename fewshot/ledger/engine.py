@@ -29,6 +29,7 @@ from fewshot.errors import FewshotError
 __all__ = [
     "LedgerError",
     "resolve_url",
+    "sqlite_path",
     "mask_url",
     "make_engine",
     "upgrade_schema",
@@ -61,6 +62,18 @@ def resolve_url(ledger: str | os.PathLike[str] | None = None) -> str:
     except ArgumentError:
         raise LedgerError(f"ledger URL {mask_url(value)!r} is not a valid database URL.") from None
     return value
+
+
+def sqlite_path(url: str) -> Path | None:
+    """The file of a SQLite URL (None for other databases and in-memory SQLite)."""
+    parsed = make_url(url)
+    if (
+        parsed.get_backend_name() != "sqlite"
+        or not parsed.database
+        or parsed.database == ":memory:"
+    ):
+        return None
+    return Path(parsed.database)
 
 
 def mask_url(url: str) -> str:
