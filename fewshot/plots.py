@@ -23,6 +23,7 @@ import pandas as pd  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
 from fewshot.errors import InvalidInput  # noqa: E402
+from fewshot.files import replacing  # noqa: E402
 
 __all__ = [
     "PALETTE",
@@ -388,13 +389,11 @@ def save_figure(fig: Figure, path: str | Path, *, dpi: int = 200) -> Path:
         raise InvalidInput(
             f"{p}: figures are written as .png, .svg or .pdf; got {p.suffix or 'no suffix'!r}."
         )
-    if not p.parent.exists():
-        raise InvalidInput(f"{p.parent}: the folder does not exist. Create it first.")
-    tmp = p.with_name(f".{p.name}.tmp{p.suffix}")
     try:
-        fig.savefig(tmp, dpi=dpi, metadata={"Date": None} if p.suffix.lower() == ".svg" else None)
-        tmp.replace(p)
+        with replacing(p, what="figure") as tmp:
+            fig.savefig(
+                tmp, dpi=dpi, metadata={"Date": None} if p.suffix.lower() == ".svg" else None
+            )
     finally:
-        tmp.unlink(missing_ok=True)
         plt.close(fig)
     return p

@@ -284,3 +284,35 @@ def test_bad_input_exits_2_names_the_place_and_changes_nothing(world, make, args
 
 def test_there_are_at_least_thirty_cases():
     assert len(CASES) >= 30
+
+
+@pytest.mark.parametrize(
+    "args",
+    [
+        ["demo", "--quick", "--out", "{d}/afile"],
+        ["demo", "--quick", "--workers", "-2", "--out", "{d}/new"],
+        ["report", "--ledger", "{ledger}", "--study", "mini", "--out", "{d}/afile/r.html"],
+        ["export", "--ledger", "{ledger}", "--study", "mini", "--out", "{d}/afile/x.csv"],
+        [
+            "plot",
+            "--kind",
+            "curves",
+            "--ledger",
+            "{ledger}",
+            "--study",
+            "mini",
+            "--out",
+            "{d}/afile/c.png",
+        ],
+    ],
+)
+def test_outputs_under_a_file_or_bad_options_write_nothing(world, args):
+    folder, _, ledger = world
+    (folder / "afile").write_text("not a folder")
+    before = tree_snapshot(folder)
+    result = runner.invoke(
+        app, [a.replace("{d}", str(folder)).replace("{ledger}", ledger) for a in args]
+    )
+    assert result.exit_code == 2, result.output
+    assert "Traceback" not in result.output
+    assert tree_snapshot(folder) == before

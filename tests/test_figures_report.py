@@ -194,5 +194,5 @@ def test_report_refuses_a_bad_path(ledger, tmp_path: Path):
     missing = run(
         "report", "--out", tmp_path / "no" / "r.html", "--ledger", ledger, "--resamples", "300"
     )
-    assert missing.exit_code == 2 and "does not exist" in missing.output
+    assert missing.exit_code == 2 and "no such folder" in missing.output
     assert not list(tmp_path.glob("*.html*"))

@@ -10,6 +10,7 @@ from typing import Annotated
 import typer
 
 from fewshot.cli.common import err, out, progress, reporting
+from fewshot.errors import InvalidInput
 
 
 def demo(
@@ -35,6 +36,10 @@ def demo(
 
     start = time.monotonic()
     with reporting():
+        if workers < 0:
+            raise InvalidInput(
+                f"--workers must be 1 or more (0: one per CPU, at most 4). Got {workers}."
+            )
         n = workers or min(4, os.cpu_count() or 1)
         err.print(
             f"writing the demo study in {out_dir} (pretraining three policies)..."

@@ -23,6 +23,7 @@ from fewshot.cli.common import (
     reporting,
 )
 from fewshot.errors import InvalidInput
+from fewshot.files import write_text_atomic
 
 
 def _pairs(items: list[str]) -> list[tuple[str, float]]:
@@ -230,15 +231,7 @@ def export(
                 if fmt is TableJsonCsv.csv
                 else frame.to_json(orient="records", indent=2, date_format="iso")
             )
-            tmp = out_file.with_name(out_file.name + ".tmp")
-            try:
-                tmp.write_text(text, encoding="utf-8")
-                tmp.replace(out_file)
-            except OSError as exc:
-                tmp.unlink(missing_ok=True)
-                raise InvalidInput(
-                    f"{out_file}: cannot write the export ({exc.strerror})."
-                ) from None
+            write_text_atomic(out_file, text, what="export")
             err.print(f"wrote {len(frame)} results to {out_file}")
             return
     print_frame(frame, fmt.value)

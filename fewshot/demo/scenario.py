@@ -182,7 +182,14 @@ def write_scenario(folder: Path, config: DemoConfig) -> Path:
 
     Returns the study file.
     """
-    folder.mkdir(parents=True, exist_ok=True)
+    if folder.exists() and not folder.is_dir():
+        raise InvalidInput(
+            f"{folder} is a file, not a folder. Give --out a folder (new or a demo's)."
+        )
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InvalidInput(f"{folder}: cannot create the demo folder ({exc.strerror}).") from None
     marker = folder / "scenario.json"
     study_file = folder / "study.toml"
     if marker.exists():

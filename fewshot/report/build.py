@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import os
-import tempfile
 from pathlib import Path
 
 import pandas as pd
 
 from fewshot.analysis import compare_report, curve_report, make_figure
-from fewshot.errors import FewshotError, InvalidInput
+from fewshot.errors import InvalidInput
+from fewshot.files import write_text_atomic
 from fewshot.ledger import Ledger
 from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
 from fewshot.stats import CurveSettings
@@ -299,18 +298,8 @@ def write_report(path: str | Path, ledger: Ledger, settings: CurveSettings, **kw
     p = Path(path)
     if p.suffix.lower() not in (".html", ".htm"):
         raise InvalidInput(f"{p}: the report is an HTML file; give --out a name ending in .html.")
-    if not p.parent.exists():
-        raise InvalidInput(f"{p.parent}: the folder does not exist. Create it first.")
-    text = build_report(ledger, settings, **kw)
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", dir=p.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(text)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes it private; a report is for sharing
-        os.replace(tmp, p)
-    except (OSError, FewshotError):
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return p
+    if not p.parent.is_dir():
+        raise InvalidInput(
+            f"{p.parent}: no such folder for the report. Create it first or pick another path."
+        )
+    return write_text_atomic(p, build_report(ledger, settings, **kw), what="report")
