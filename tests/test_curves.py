@@ -270,3 +270,19 @@ def test_by_group_and_missing_seed_notes():
 def test_bad_curve_settings(settings, fragment):
     with pytest.raises(InvalidInput, match=fragment):
         curves(run_scores(simple_results(), "return"), settings)
+
+
+def test_nan_aware_estimators_equal_scipy_on_the_present_runs():
+    from fewshot.stats.resample import nan_estimate
+
+    rng = np.random.default_rng(5)
+    x = rng.normal(size=(40, 9))
+    x[rng.random(x.shape) < 0.2] = np.nan
+    for i, row in enumerate(x):
+        kept = row[~np.isnan(row)]
+        if kept.size == 0:
+            continue
+        # scipy.stats.trim_mean and numpy are the references for the runs that are present
+        assert nan_estimate("iqm", x)[i] == pytest.approx(stats.trim_mean(kept, 0.25))
+        assert nan_estimate("median", x)[i] == pytest.approx(np.median(kept))
+        assert nan_estimate("optimality_gap", x)[i] == pytest.approx(np.mean(np.maximum(0, 1 - kept)))

@@ -15,6 +15,7 @@ import pandas as pd
 from fewshot.errors import InvalidInput
 from fewshot.stats.curves import CurveSettings
 from fewshot.stats.estimators import AGGREGATES
+from fewshot.stats.resample import nan_estimate
 
 __all__ = ["AGGREGATE_COLUMNS", "aggregate_curves"]
 
@@ -96,9 +97,8 @@ def aggregate_curves(
         )  # resamples × runs
         pooled = np.concatenate([full for _, full in parts])
         for name in aggregates:
-            f = AGGREGATES[name]
-            est = float(_nan_apply(f, pooled[None, :])[0])
-            theta = _nan_apply(f, pooled_b)
+            est = float(nan_estimate(name, pooled[None, :])[0])
+            theta = nan_estimate(name, pooled_b)
             lo, hi = (
                 np.nanquantile(theta, [alpha / 2, 1 - alpha / 2])
                 if min(n_seeds) >= 2
@@ -124,10 +124,3 @@ def aggregate_curves(
                 }
             )
     return pd.DataFrame(rows, columns=AGGREGATE_COLUMNS)
-
-
-def _nan_apply(f, x: np.ndarray) -> np.ndarray:  # type: ignore[no-untyped-def]
-    """Apply an aggregate row by row, leaving out missing runs (NaN)."""
-    if not np.isnan(x).any():
-        return np.asarray(f(x))
-    return np.array([f(row[~np.isnan(row)][None, :])[0] for row in x])
