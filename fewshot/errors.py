@@ -16,6 +16,7 @@ __all__ = [
     "InvalidName",
     "PoolError",
     "ManifestError",
+    "RedrawRefused",
     "DrawError",
 ]
 
@@ -38,6 +39,10 @@ class PoolError(FewshotError, ValueError):
 
 class ManifestError(FewshotError, ValueError):
     """A manifest file is missing, malformed, or disagrees with its pool."""
+
+
+class RedrawRefused(ManifestError):
+    """A draw would change subsets an earlier draw already wrote, and replacing was not asked."""
 
 
 class DrawError(FewshotError, ValueError):

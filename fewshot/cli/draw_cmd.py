@@ -10,6 +10,7 @@ import typer
 from rich.table import Table
 
 from fewshot.cli.common import TableOrJson, err, int_list, out, print_json, progress, reporting
+from fewshot.errors import RedrawRefused
 from fewshot.manifest import (
     load_manifest,
     pool_matches,
@@ -98,7 +99,10 @@ def draw(
         with progress() as bar:
             job = bar.add_task(f"drawing {task}", total=len(spec.seeds))
             result = draw_task(spec, on_seed=lambda _s: bar.advance(job))
-        target = write_draw(out_dir, result, replace=replace)
+        try:
+            target = write_draw(out_dir, result, replace=replace)
+        except RedrawRefused as exc:
+            raise RedrawRefused(f"{exc} Pass --replace to do so.") from None
     summary = _summary(result, out_dir, target)
     if fmt is TableOrJson.json:
         print_json(summary)

@@ -177,6 +177,31 @@ def _study_text(config: DemoConfig, refs: dict[str, tuple[float, float]]) -> str
     return "\n".join(lines)
 
 
+DEMO_MARK = ".fewshot-demo"
+"""The file that marks a folder as a demo's own; the demo writes into no other folder."""
+
+
+def _claim_folder(folder: Path) -> None:
+    """Make ``folder`` the demo's, or refuse: the demo writes only into a new or empty folder,
+    or one an earlier demo made (which holds the mark), so it never overwrites a user's files."""
+    mark = folder / DEMO_MARK
+    if mark.is_file():
+        return
+    if (folder / "scenario.json").is_file() and (folder / "ledger.sqlite").is_file():
+        mark.write_text("This folder was written by `fewshot demo`.\n", encoding="utf-8")
+        return  # a demo folder written before the mark existed
+    present = sorted(p.name for p in folder.iterdir())
+    if present:
+        shown = ", ".join(present[:3]) + (
+            f" and {len(present) - 3} more" if len(present) > 3 else ""
+        )
+        raise InvalidInput(
+            f"{folder}: this folder holds files that are not a fewshot demo's ({shown}); the demo "
+            "writes only into a new or empty folder, or one it made. Pick another folder."
+        )
+    mark.write_text("This folder was written by `fewshot demo`.\n", encoding="utf-8")
+
+
 def write_scenario(folder: Path, config: DemoConfig) -> Path:
     """Write the scenario into ``folder`` (resumable: an existing scenario of the same config is kept).
 
@@ -192,6 +217,7 @@ def write_scenario(folder: Path, config: DemoConfig) -> Path:
         raise InvalidInput(f"{folder}: cannot create the demo folder ({exc.strerror}).") from None
     marker = folder / "scenario.json"
     study_file = folder / "study.toml"
+    _claim_folder(folder)
     if marker.exists():
         made = json.loads(marker.read_text())["config"]
         if made["name"] != config.name:
