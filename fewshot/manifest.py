@@ -44,6 +44,7 @@ __all__ = [
     "subset_path",
     "manifest_dict",
     "write_draw",
+    "check_draw_target",
     "load_manifest",
     "verify_subset",
     "pool_matches",
@@ -173,6 +174,13 @@ def write_draw(out_dir: str | Path, draw: TaskDraw, *, replace: bool = False) ->
     finally:
         shutil.rmtree(staging, ignore_errors=True)
     return target
+
+
+def check_draw_target(out_dir: str | Path, task: str) -> None:
+    """Refuse, before anything is written, when ``task``'s draws could not be written under
+    ``out_dir`` without replacing something fewshot did not write."""
+    out = Path(out_dir)
+    _check_owned(out / task, _existing_manifest(manifest_path(out, task)))
 
 
 DRAWS_MARKER = ".fewshot-draws"

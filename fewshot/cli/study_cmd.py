@@ -19,6 +19,7 @@ from fewshot.cli.common import (
     reporting,
 )
 from fewshot.ledger.planning import draw_all
+from fewshot.manifest import check_draw_target
 from fewshot.study import Study, load_study
 
 
@@ -87,6 +88,8 @@ def init(
     """Create or upgrade the ledger, draw every task's subsets, and plan every run not yet planned."""
     with reporting():
         study = load_study(study_file)
+        for task in study.tasks:  # refuse before the ledger is created
+            check_draw_target(study.draws_dir, task.name)
         with err.status("drawing subsets", spinner="dots") if err.is_terminal else nullcontext():
             led = open_ledger(ledger, study.name, create=True)
             report = led.plan(study)
