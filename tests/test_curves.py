@@ -285,4 +285,6 @@ def test_nan_aware_estimators_equal_scipy_on_the_present_runs():
         # scipy.stats.trim_mean and numpy are the references for the runs that are present
         assert nan_estimate("iqm", x)[i] == pytest.approx(stats.trim_mean(kept, 0.25))
         assert nan_estimate("median", x)[i] == pytest.approx(np.median(kept))
-        assert nan_estimate("optimality_gap", x)[i] == pytest.approx(np.mean(np.maximum(0, 1 - kept)))
+        assert nan_estimate("optimality_gap", x)[i] == pytest.approx(
+            np.mean(np.maximum(0, 1 - kept))
+        )

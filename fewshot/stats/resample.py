@@ -27,7 +27,9 @@ def nan_estimate(name: str, x: np.ndarray) -> np.ndarray:
         return np.nanmean(x, axis=-1)
     if name == "median":
         return np.nanmedian(x, axis=-1)
-    if name == "optimality_gap":  # Agarwal et al. (2021): mean shortfall below 1, missing runs left out
+    if (
+        name == "optimality_gap"
+    ):  # Agarwal et al. (2021): mean shortfall below 1, missing runs left out
         return np.nanmean(np.maximum(0.0, 1.0 - x), axis=-1)
     s = np.sort(x, axis=-1)  # NaN last
     m = np.isfinite(s).sum(axis=-1)
