@@ -15,6 +15,7 @@ from collections.abc import Callable
 from importlib import resources
 from pathlib import Path
 from typing import TypeVar
+from urllib.parse import quote
 
 from alembic import command
 from alembic.config import Config
@@ -25,6 +26,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.exc import ArgumentError, OperationalError
 
 from fewshot.errors import FewshotError
+from fewshot.masking import mask_secrets
 
 __all__ = [
     "LedgerError",
@@ -57,11 +59,24 @@ def resolve_url(ledger: str | os.PathLike[str] | None = None) -> str:
         return f"sqlite:///{Path(value).expanduser().resolve()}"
     if value.startswith("postgresql://") or value.startswith("postgres://"):
         value = "postgresql+psycopg://" + value.split("://", 1)[1]
+    value = _encode_at_in_password(value)
     try:
         make_url(value)
     except ArgumentError:
         raise LedgerError(f"ledger URL {mask_url(value)!r} is not a valid database URL.") from None
     return value
+
+
+def _encode_at_in_password(url: str) -> str:
+    """Percent-encode a password that holds ``@`` (``user:p@ss@host``), which URL parsers would
+    otherwise split at its first ``@``, leaking the rest of it into the host name."""
+    scheme, rest = url.split("://", 1)
+    head, sep, query = rest.partition("?")
+    if head.count("@") < 2:
+        return url
+    userinfo, host = head.rsplit("@", 1)
+    user, colon, password = userinfo.partition(":")
+    return f"{scheme}://{user}{colon}{quote(password, safe='')}@{host}{sep}{query}"
 
 
 def sqlite_path(url: str) -> Path | None:
@@ -77,14 +92,9 @@ def sqlite_path(url: str) -> Path | None:
 
 
 def mask_url(url: str) -> str:
-    """The URL with its password replaced by ``***``, for every message and table."""
-    try:
-        return make_url(url).render_as_string(hide_password=True)
-    except ArgumentError:
-        if "@" in url and "://" in url:
-            scheme, rest = url.split("://", 1)
-            return f"{scheme}://***@{rest.rsplit('@', 1)[1]}"
-        return url
+    """The URL with its password (user part or ``password=`` parameter) replaced by ``***``,
+    for every message and table (see :func:`fewshot.masking.mask_secrets`)."""
+    return mask_secrets(url)
 
 
 def make_engine(url: str) -> Engine:
