@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import signal
 from dataclasses import asdict
 from pathlib import Path
 from typing import Annotated
@@ -117,9 +118,13 @@ def exec_runs(
                     sep="",
                 ),
             )
-        except KeyboardInterrupt:
-            err.print("interrupted: the current run went back to the plan")
-            raise typer.Exit(130) from None
+        except KeyboardInterrupt as exc:  # Ctrl-C, SIGTERM or SIGHUP (see run_claims)
+            signum = int(getattr(exc, "signum", signal.SIGINT))
+            err.print(
+                f"stopped by {signal.Signals(signum).name}: the trainer was stopped and its run "
+                "went back to the plan"
+            )
+            raise typer.Exit(128 + signum) from None
         finally:
             led.close()
     failed = sum(1 for o in outcomes if o.status != "done")

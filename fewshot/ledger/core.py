@@ -297,15 +297,41 @@ class Ledger:
         """
         return [self.ingest_file(p, replace=replace) for p in expand_result_paths(paths)]
 
-    def ingest_file(self, path: str | Path, *, replace: bool = False) -> IngestReport:
-        """Ingest one results file: all of it or none of it."""
+    def ingest_file(
+        self, path: str | Path, *, replace: bool = False, run: str | None = None
+    ) -> IngestReport:
+        """Ingest one results file: all of it or none of it.
+
+        A file whose content was ingested before is skipped before it is parsed. With ``run``,
+        every line must belong to that run (what ``exec`` asks of the file of the run it ran).
+        """
         p = Path(path)
         try:
             data = p.read_bytes()
         except OSError as exc:
             raise ResultFileError(f"{p}: cannot read the results file ({exc.strerror}).") from None
         digest = file_digest_bytes(data)
+
+        def seen_rows(c: Connection) -> int | None:
+            sid, _ = self._sid(c)
+            return c.execute(
+                select(IngestedFileRow.rows).where(
+                    IngestedFileRow.study_id == sid, IngestedFileRow.digest == digest
+                )
+            ).scalar()
+
+        known = self._tx(seen_rows)
+        if known is not None:
+            return IngestReport(str(p), int(known), True)
         lines = parse_result_file(p, data)
+        if run is not None:
+            for ln in lines:
+                if ln.run != run:
+                    raise ResultFileError(
+                        f"{ln.where}: a result of run {ln.run!r}, but this file belongs to run "
+                        f"{run!r}. A run's results file holds only that run's results; write "
+                        "other runs' results to their own files."
+                    )
 
         def go(c: Connection) -> IngestReport:
             sid, name = self._sid(c)
