@@ -11,6 +11,7 @@ from typing import Any, TypeVar
 
 import pandas as pd
 from sqlalchemy import Connection, Engine, func, insert, select
+from sqlalchemy.exc import IntegrityError
 
 from fewshot.errors import FewshotError
 from fewshot.ledger.engine import (
@@ -49,6 +50,7 @@ from fewshot.study import Study
 __all__ = ["Ledger", "IngestReport", "RESULT_COLUMNS"]
 
 T = TypeVar("T")
+CONFLICT_RETRIES = 5
 
 RESULT_COLUMNS = [
     "study",
@@ -150,11 +152,29 @@ class Ledger:
         self.close()
 
     def _tx(self, fn: Callable[[Connection], T]) -> T:
+        """Run ``fn`` in one transaction.
+
+        A unique-constraint violation means another process wrote the same thing first (two
+        ``init`` of one study, one file ingested twice at once, ``record`` against ``ingest``): the
+        transaction is run again, and now sees that write and gives the usual answer (nothing new
+        to plan, the file was ingested before, the value is already there or conflicts).
+        """
+
         def attempt() -> T:
             with self.engine.begin() as conn:
                 return fn(conn)
 
-        return retry_locked(attempt)
+        for k in range(CONFLICT_RETRIES):
+            try:
+                return retry_locked(attempt)
+            except IntegrityError as exc:
+                if k == CONFLICT_RETRIES - 1:
+                    raise LedgerError(
+                        f"the ledger {self.url} refused a write {CONFLICT_RETRIES} times because "
+                        f"another process kept writing the same rows ({_first_line(exc.orig)}). "
+                        "Nothing of this call was stored; run it again."
+                    ) from None
+        raise AssertionError("unreachable")
 
     def studies(self) -> list[str]:
         """The names of the studies in this ledger."""
@@ -543,8 +563,14 @@ class Ledger:
         return self._tx(go)
 
 
+def _first_line(error: object) -> str:
+    return mask_url(
+        str(error).strip().splitlines()[0] if str(error).strip() else type(error).__name__
+    )
+
+
 def _check_worker(worker: str) -> None:
-    if not isinstance(worker, str) or not worker.strip() or len(worker) > 200:
+    if not isinstance(worker, str) or not worker.strip() or len(worker) > 200 or "\x00" in worker:
         raise FewshotError(
             "worker must be a non-empty name of at most 200 characters, e.g. the host name."
         )

@@ -21,7 +21,7 @@ from alembic import command
 from alembic.config import Config
 from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Engine, create_engine, event, text
 from sqlalchemy.engine import make_url
 from sqlalchemy.exc import ArgumentError, OperationalError
 
@@ -40,6 +40,9 @@ __all__ = [
 ]
 
 DEFAULT_LEDGER = "fewshot.sqlite"
+# The PostgreSQL advisory lock held while the schema is created or upgraded (any fixed 64-bit
+# number unlikely to be used by another application of the same database: b"fewshot" as an integer).
+SCHEMA_LOCK_KEY = int.from_bytes(b"fewshot", "big")
 T = TypeVar("T")
 
 
@@ -159,6 +162,10 @@ def upgrade_schema(engine: Engine, *, revision: str = "head") -> None:
 
     def _do() -> None:
         with engine.begin() as conn:
+            if conn.dialect.name == "postgresql":
+                # One process at a time creates or upgrades the schema; the others wait here, then
+                # find it at the head revision. Released when this transaction ends.
+                conn.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": SCHEMA_LOCK_KEY})
             current = MigrationContext.configure(conn).get_current_revision()
             if current is not None and current not in known:
                 raise LedgerError(

@@ -108,9 +108,9 @@ def check_line(
         v = value
     else:
         v = _finite(value, f"value of {metric!r}", where)
-    if not isinstance(run, str) or not run:
+    if not isinstance(run, str) or not run or "\x00" in run:
         raise ResultRefused(f"{at}'run' must be a run key such as 'arm/task/n10/s0'. Got {run!r}.")
-    if not isinstance(metric, str) or not metric.strip() or len(metric) > 200:
+    if not isinstance(metric, str) or not metric.strip() or len(metric) > 200 or "\x00" in metric:
         raise ResultRefused(f"{at}'metric' must be a non-empty name. Got {metric!r}.")
     if step is not None and (isinstance(step, bool) or not isinstance(step, int) or step < 0):
         raise ResultRefused(
