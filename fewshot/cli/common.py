@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -119,6 +120,7 @@ LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
 StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
 
 _UNITS = {"s": 1, "m": 60, "h": 3600, "d": 86400}
+MAX_DURATION = 30 * 86400.0
 
 
 def duration(text: str, *, option: str) -> float:
@@ -132,6 +134,10 @@ def duration(text: str, *, option: str) -> float:
         raise InvalidInput(
             f"{option} must be a duration such as 90s, 15m, 2h or 1d. Got {text!r}."
         ) from None
+    if not math.isfinite(value) or value > MAX_DURATION:
+        raise InvalidInput(
+            f"{option} must be a finite duration of at most 30 days (30d). Got {text!r}."
+        )
     if not value > 0:
         raise InvalidInput(f"{option} must be longer than zero. Got {text!r}.")
     return value

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
@@ -11,7 +12,7 @@ from typing import Any, TypeVar
 
 import pandas as pd
 from sqlalchemy import Connection, Engine, func, insert, select
-from sqlalchemy.exc import IntegrityError
+from sqlalchemy.exc import IntegrityError, OperationalError
 
 from fewshot.errors import FewshotError
 from fewshot.ledger.engine import (
@@ -127,6 +128,11 @@ class Ledger:
                 f"no ledger at {path}. Run `fewshot init STUDY.toml` there first, or point --ledger "
                 "(or FEWSHOT_LEDGER) at the study's ledger."
             )
+        if not create and path is not None and path.is_file() and path.stat().st_size == 0:
+            raise LedgerError(
+                f"{path} is an empty file, not a ledger; it was left as it is. Run `fewshot init "
+                "STUDY.toml --ledger PATH` to make a ledger, or point --ledger at the study's ledger."
+            )
         engine = make_engine(resolved)
         upgrade_schema(engine)
         return cls(engine, resolved, study)
@@ -167,6 +173,14 @@ class Ledger:
         for k in range(CONFLICT_RETRIES):
             try:
                 return retry_locked(attempt)
+            except OperationalError as exc:
+                if "readonly" in str(exc.orig).lower().replace("-", "").replace(" ", ""):
+                    raise LedgerError(
+                        f"the ledger {self.url} is read-only for you: reading works, but this "
+                        "command writes to it. Run it as a user who may write the ledger file and "
+                        "its folder."
+                    ) from None
+                raise
             except IntegrityError as exc:
                 if k == CONFLICT_RETRIES - 1:
                     raise LedgerError(
@@ -223,6 +237,7 @@ class Ledger:
     def claim(self, worker: str, lease: float = 7200.0) -> Claim | None:
         """Atomically claim one planned run (or one whose lease expired) for ``worker``."""
         _check_worker(worker)
+        _check_lease(lease)
 
         def go(c: Connection) -> Claim | None:
             sid, _ = self._sid(c)
@@ -232,6 +247,7 @@ class Ledger:
 
     def heartbeat(self, run: str, worker: str, lease: float = 7200.0) -> bool:
         """Extend ``worker``'s lease on ``run``; False when the worker no longer holds it."""
+        _check_lease(lease)
 
         def go(c: Connection) -> bool:
             sid, name = self._sid(c)
@@ -567,6 +583,18 @@ def _first_line(error: object) -> str:
     return mask_url(
         str(error).strip().splitlines()[0] if str(error).strip() else type(error).__name__
     )
+
+
+MAX_LEASE = 30 * 86400.0
+
+
+def _check_lease(lease: float) -> None:
+    ok = isinstance(lease, int | float) and not isinstance(lease, bool)
+    if not ok or not math.isfinite(lease) or not 0 < lease <= MAX_LEASE:
+        raise FewshotError(
+            f"lease must be a finite number of seconds, more than 0 and at most 30 days "
+            f"({MAX_LEASE:.0f}). Got {lease!r}."
+        )
 
 
 def _check_worker(worker: str) -> None:

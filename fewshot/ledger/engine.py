@@ -10,8 +10,9 @@ from __future__ import annotations
 
 import os
 import random
+import sqlite3
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from importlib import resources
 from pathlib import Path
 from typing import TypeVar
@@ -64,10 +65,32 @@ def resolve_url(ledger: str | os.PathLike[str] | None = None) -> str:
         value = "postgresql+psycopg://" + value.split("://", 1)[1]
     value = _encode_at_in_password(value)
     try:
-        make_url(value)
+        parsed = make_url(value)
     except ArgumentError:
         raise LedgerError(f"ledger URL {mask_url(value)!r} is not a valid database URL.") from None
+    backend = parsed.get_backend_name()
+    if backend not in ("sqlite", "postgresql"):
+        raise LedgerError(
+            f"ledger URL {mask_url(value)!r}: fewshot keeps ledgers in SQLite (a file path) or "
+            f"PostgreSQL (postgresql://...), not in {backend!r}."
+        )
+    if backend == "sqlite" and _in_memory(parsed.database, parsed.query):
+        raise LedgerError(
+            f"ledger URL {mask_url(value)!r} is an in-memory SQLite database, which is lost when "
+            "the command ends. Give a file path instead, e.g. --ledger fewshot.sqlite."
+        )
     return value
+
+
+def _in_memory(database: str | None, query: Mapping[str, object]) -> bool:
+    name = database or ""
+    mode = str(query.get("mode", ""))
+    return (
+        name in ("", ":memory:")
+        or name.startswith("file::memory:")
+        or "mode=memory" in name
+        or mode == "memory"
+    )
 
 
 def _encode_at_in_password(url: str) -> str:
@@ -109,7 +132,25 @@ def make_engine(url: str) -> Engine:
             raise LedgerError(
                 f"ledger folder {Path(path).parent} does not exist. Create it or pick another --ledger."
             )
-        engine = create_engine(url, connect_args={"timeout": 60})
+        if path and _read_only_folder(Path(path)):
+            # SQLite cannot create the WAL's shared-memory file beside a ledger in a folder we
+            # may not write, so open the file itself read-only and immutable: reads work, writes
+            # fail with "read-only". Safe only when no write-ahead log holds newer transactions.
+            wal = Path(path + "-wal")
+            if wal.exists() and wal.stat().st_size > 0:
+                raise LedgerError(
+                    f"the ledger {path} is in a folder you cannot write, and its write-ahead log "
+                    f"{wal.name} holds transactions not yet in the file, so it cannot be read "
+                    "safely. Ask its owner to close the writers (or give you write access to the "
+                    "folder), or read a copy."
+                )
+            uri = f"file:{quote(path)}?mode=ro&immutable=1"
+            engine = create_engine(
+                url,
+                creator=lambda: sqlite3.connect(uri, uri=True, timeout=60, check_same_thread=False),
+            )
+        else:
+            engine = create_engine(url, connect_args={"timeout": 60})
 
         @event.listens_for(engine, "connect")
         def _sqlite_connect(dbapi_conn, _record):  # type: ignore[no-untyped-def]
@@ -135,6 +176,11 @@ def make_engine(url: str) -> Engine:
             f"the ledger URL {mask_url(url)!r} needs the database driver {exc.name!r}. "
             "Install it with: pip install 'fewshot[postgres]'."
         ) from None
+
+
+def _read_only_folder(path: Path) -> bool:
+    """A ledger file that exists in a folder this process may not write."""
+    return path.is_file() and not os.access(path.parent, os.W_OK)
 
 
 def _alembic_config() -> Config:
