@@ -9,9 +9,11 @@ numbers when a setting asks for them.
 
 from __future__ import annotations
 
+import csv
 import hashlib
 import io
 import json
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -188,6 +190,13 @@ def _decode(p: Path, data: bytes) -> str:
 def _parse_csv(p: Path, text: str, body: bytes, id_column: str) -> pd.DataFrame:
     if not text.strip():
         raise PoolError(f"{p}: the file is empty. A pool CSV needs a header and rows.")
+    header = next(csv.reader(io.StringIO(text)), [])
+    twice = repeated_names(header)
+    if twice:
+        raise PoolError(
+            f"{p}, line 1: column(s) {', '.join(map(repr, twice))} appear more than once in the "
+            "header; which one holds the data is ambiguous. Rename or remove the copies."
+        )
     try:
         # Ids must stay text exactly as written ("007", "NA"). Inference keeps text as text and
         # is several times faster than asking for a str column, so ask only when the id column
@@ -207,15 +216,40 @@ def _parse_jsonl(p: Path, text: str) -> pd.DataFrame:
         if not line.strip():
             continue
         try:
-            obj = json.loads(line)
+            obj = json.loads(line, object_pairs_hook=unique_keys)
         except json.JSONDecodeError as exc:
             raise PoolError(f"{p}: line {n} is not valid JSON ({exc.msg}).") from None
+        except DuplicateKey as exc:
+            raise PoolError(
+                f"{p}: line {n} gives the field {exc.key!r} more than once; keep one."
+            ) from None
         if not isinstance(obj, dict):
             raise PoolError(f"{p}: line {n} must be a JSON object, got {type(obj).__name__}.")
         rows.append({k: _text(v) for k, v in obj.items()})
     if not rows:
         raise PoolError(f"{p}: the file is empty. A pool JSONL file needs one object a line.")
     return pd.DataFrame.from_records(rows).astype(object).where(lambda f: f.notna(), None)
+
+
+def repeated_names(names: list[str]) -> list[str]:
+    """The names that occur more than once in ``names``, sorted."""
+    return sorted(n for n, k in Counter(names).items() if k > 1)
+
+
+class DuplicateKey(ValueError):
+    """A JSON object that gives one key twice (``json`` would silently keep the last)."""
+
+    def __init__(self, key: str) -> None:
+        super().__init__(key)
+        self.key = key
+
+
+def unique_keys(pairs: list[tuple[str, object]]) -> dict[str, object]:
+    """``object_pairs_hook`` for ``json.loads`` that refuses a key given twice."""
+    obj = dict(pairs)
+    if len(obj) != len(pairs):
+        raise DuplicateKey(repeated_names([k for k, _ in pairs])[0])
+    return obj
 
 
 def _text(value: object) -> str | None:

@@ -266,6 +266,8 @@ def load_study(path: str | Path) -> Study:
         raise StudyError(
             f"{p}, line {line}: not valid UTF-8. Save the study file as UTF-8."
         ) from None
+    if text.startswith("\ufeff"):  # a byte-order mark, as some editors write: not part of the TOML
+        text = text[1:]
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

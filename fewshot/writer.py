@@ -9,19 +9,31 @@ written. Take the lines in with ``fewshot ingest FILE``.
 Example::
 
     from writer import ResultWriter          # or: from fewshot.writer import ResultWriter
-    out = ResultWriter.from_env()            # FEWSHOT_RESULTS, FEWSHOT_RUN, FEWSHOT_SUBSET_DIGEST
+    out = ResultWriter.from_env()            # FEWSHOT_RESULTS, FEWSHOT_RUN, digest of FEWSHOT_SUBSET
     out.write("return", 71.5, values=[70.1, 73.0, 71.4])
     out.write("return", 40.2, step=1000)
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
 import os
 from typing import Any
 
-__all__ = ["ResultWriter"]
+__all__ = ["ResultWriter", "id_file_digest"]
+
+
+def id_file_digest(path: str) -> str:
+    """The subset digest of an id file (one id a line; blank lines skipped, CR LF accepted):
+    SHA-256 of the sorted ids, each followed by a newline, as ``LC_ALL=C sort FILE | sha256sum``."""
+    with open(path, "rb") as f:
+        text = f.read().decode("utf-8")
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    ids = sorted(line.rstrip("\r") for line in text.split("\n") if line.strip())
+    return hashlib.sha256("".join(i + "\n" for i in ids).encode("utf-8")).hexdigest()
 
 
 class ResultWriter:
@@ -45,14 +57,21 @@ class ResultWriter:
         self.subset_digest = subset_digest
 
     @classmethod
-    def from_env(cls, path: str | None = None) -> ResultWriter:
-        """A writer for the run that ``fewshot exec`` started: reads ``FEWSHOT_RUN``,
-        ``FEWSHOT_SUBSET_DIGEST`` and (unless ``path`` is given) ``FEWSHOT_RESULTS``."""
+    def from_env(cls, path: str | None = None, *, subset_file: str | None = None) -> ResultWriter:
+        """A writer for the run that ``fewshot exec`` started: reads ``FEWSHOT_RUN`` and (unless
+        ``path`` is given) ``FEWSHOT_RESULTS``.
+
+        The subset digest on each line is computed from the id file the trainer was given
+        (``subset_file``, else ``FEWSHOT_SUBSET``), never copied from ``FEWSHOT_SUBSET_DIGEST``:
+        an id file edited or redrawn since the run was planned then shows as a mismatch that the
+        ledger refuses, instead of being stored under the planned digest.
+        """
         run = os.environ.get("FEWSHOT_RUN")
         if not run:
             raise RuntimeError("FEWSHOT_RUN is not set: start the trainer with `fewshot exec`.")
         target = path or os.environ.get("FEWSHOT_RESULTS") or "results.jsonl"
-        return cls(target, run, os.environ.get("FEWSHOT_SUBSET_DIGEST") or None)
+        ids_file = subset_file or os.environ.get("FEWSHOT_SUBSET")
+        return cls(target, run, id_file_digest(ids_file) if ids_file else None)
 
     def write(
         self,

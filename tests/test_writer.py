@@ -5,13 +5,16 @@ from __future__ import annotations
 import ast
 import json
 import multiprocessing
+import os
+import shutil
+import subprocess
 import sys
 from pathlib import Path
 
 import pytest
 
 import fewshot.writer as writer_module
-from fewshot.writer import ResultWriter
+from fewshot.writer import ResultWriter, id_file_digest
 
 
 def test_imports_only_the_standard_library():
@@ -58,9 +61,41 @@ def test_from_env(monkeypatch, tmp_path: Path):
         ResultWriter.from_env()
     monkeypatch.setenv("FEWSHOT_RUN", "a/t/n3/s1")
     monkeypatch.setenv("FEWSHOT_RESULTS", str(tmp_path / "x.jsonl"))
-    monkeypatch.setenv("FEWSHOT_SUBSET_DIGEST", "e" * 64)
+    monkeypatch.delenv("FEWSHOT_SUBSET", raising=False)
     w = ResultWriter.from_env()
-    assert (w.path, w.run, w.subset_digest) == (str(tmp_path / "x.jsonl"), "a/t/n3/s1", "e" * 64)
+    assert (w.path, w.run, w.subset_digest) == (str(tmp_path / "x.jsonl"), "a/t/n3/s1", None)
+
+
+@pytest.mark.skipif(
+    shutil.which("sort") is None or shutil.which("sha256sum") is None,
+    reason="needs coreutils sort and sha256sum",
+)
+def test_from_env_digests_the_id_file_it_was_given(monkeypatch, tmp_path: Path):
+    # The planned digest in the environment is ignored: the writer hashes the file itself, so an
+    # edited id file shows as a mismatch. Reference: coreutils `LC_ALL=C sort FILE | sha256sum`.
+    ids = tmp_path / "n3.txt"
+    ids.write_text("ep7\nep10\nep2\n", encoding="utf-8")
+    monkeypatch.setenv("FEWSHOT_RUN", "a/t/n3/s1")
+    monkeypatch.setenv("FEWSHOT_SUBSET", str(ids))
+    monkeypatch.setenv("FEWSHOT_SUBSET_DIGEST", "e" * 64)
+    expected = subprocess.run(
+        f"sort {ids} | sha256sum",
+        shell=True,
+        env={"LC_ALL": "C", "PATH": os.environ["PATH"]},
+        capture_output=True,
+        text=True,
+        check=True,
+    ).stdout.split()[0]
+    assert ResultWriter.from_env(str(tmp_path / "r.jsonl")).subset_digest == expected
+    assert id_file_digest(str(ids)) == expected
+    other = tmp_path / "copy.txt"
+    other.write_text("ep7\r\nep2\r\n\nep10\r\n", encoding="utf-8")  # CR LF and a blank line
+    assert (
+        ResultWriter.from_env(str(tmp_path / "r.jsonl"), subset_file=str(other)).subset_digest
+        == expected
+    )
+    ids.write_text("ep7\nep10\nep3\n", encoding="utf-8")  # edited: another episode
+    assert ResultWriter.from_env(str(tmp_path / "r.jsonl")).subset_digest != expected
 
 
 def _append_many(path: str, k: int) -> None:

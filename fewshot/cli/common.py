@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -12,11 +13,16 @@ from typing import Annotated, Any
 import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+from rich.text import Span, Text
 
 from fewshot.errors import FewshotError, InvalidInput
+from fewshot.masking import mask_secrets
 
-out = Console(highlight=False, soft_wrap=True)
-err = Console(stderr=True, highlight=False, soft_wrap=True)
+# User and file text (run keys, messages, paths, a trainer's stderr) is never markup: both
+# consoles print text as it is (no markup, no emoji codes, no highlighting). A deliberate style
+# goes through `styled`, which escapes every value it is given.
+out = Console(highlight=False, soft_wrap=True, markup=False, emoji=False)
+err = Console(stderr=True, highlight=False, soft_wrap=True, markup=False, emoji=False)
 
 STATE = {"debug": False}
 
@@ -37,8 +43,35 @@ def reporting() -> Iterator[None]:
     except FewshotError as exc:
         if STATE["debug"]:
             raise
-        err.print(f"[bold red]error:[/] {exc}", markup=True, highlight=False)
+        err.print(styled("[bold red]error:[/] {}", mask_secrets(str(exc))))
         raise typer.Exit(2) from None
+
+
+def styled(template: str, *values: object) -> Text:
+    """``template`` (rich markup written by us) with each ``{}`` replaced by a value shown as
+    plain text: brackets, backslashes and emoji codes in the values stay as they are.
+
+    The values never pass through the markup parser: each ``{}`` becomes a private-use character,
+    the template is parsed, and each such character is replaced by its value in the same style.
+    """
+    parts = template.split("{}")
+    if len(parts) != len(values) + 1:
+        raise ValueError("styled() needs one value per {} in the template")
+    marks = [chr(0xE000 + k) for k in range(len(values))]
+    parsed = Text.from_markup(
+        parts[0] + "".join(m + p for m, p in zip(marks, parts[1:], strict=True)), emoji=False
+    )
+    cuts = [k for k, c in enumerate(parsed.plain) if c in marks]
+    pieces = parsed.divide(sorted({c for k in cuts for c in (k, k + 1)}))
+    swapped = []
+    for piece in pieces:
+        if len(piece) == 1 and piece.plain in marks:
+            value = str(values[marks.index(piece.plain)])
+            spans = [Span(0, len(value), sp.style) for sp in piece.spans]
+            swapped.append(Text(value, style=piece.style, spans=spans))
+        else:
+            swapped.append(piece)
+    return Text("").join(swapped)
 
 
 def int_list(text: str, *, option: str) -> tuple[int, ...]:
@@ -65,7 +98,7 @@ def print_json(data: Any) -> None:
 def progress() -> Progress:
     """A progress bar on stderr that shows only on a terminal."""
     return Progress(
-        TextColumn("{task.description}"),
+        TextColumn("{task.description}", markup=False),
         BarColumn(),
         MofNCompleteColumn(),
         TimeElapsedColumn(),
@@ -87,6 +120,7 @@ LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
 StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
 
 _UNITS = {"s": 1, "m": 60, "h": 3600, "d": 86400}
+MAX_DURATION = 30 * 86400.0
 
 
 def duration(text: str, *, option: str) -> float:
@@ -100,6 +134,10 @@ def duration(text: str, *, option: str) -> float:
         raise InvalidInput(
             f"{option} must be a duration such as 90s, 15m, 2h or 1d. Got {text!r}."
         ) from None
+    if not math.isfinite(value) or value > MAX_DURATION:
+        raise InvalidInput(
+            f"{option} must be a finite duration of at most 30 days (30d). Got {text!r}."
+        )
     if not value > 0:
         raise InvalidInput(f"{option} must be longer than zero. Got {text!r}.")
     return value

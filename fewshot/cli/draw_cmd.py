@@ -9,7 +9,16 @@ from typing import Annotated, Any, cast
 import typer
 from rich.table import Table
 
-from fewshot.cli.common import TableOrJson, err, int_list, out, print_json, progress, reporting
+from fewshot.cli.common import (
+    TableOrJson,
+    err,
+    int_list,
+    out,
+    print_json,
+    progress,
+    reporting,
+    styled,
+)
 from fewshot.errors import RedrawRefused
 from fewshot.manifest import (
     load_manifest,
@@ -133,7 +142,7 @@ def _summary(result: TaskDraw, out_dir: Path, target: Path) -> dict[str, Any]:
 
 def _print_summary(result: TaskDraw, summary: dict[str, Any]) -> None:
     lin = result.lineage
-    out.print(f"[bold]{result.task}[/]: {lin.pool_rows} episodes in {lin.pool_file}", markup=True)
+    out.print(styled("[bold]{}[/]: {} episodes in {}", result.task, lin.pool_rows, lin.pool_file))
     if lin.exclusions:
         out.print(f"  excluded {lin.exclusions['removed']} listed in {lin.exclusions['file']}")
     if lin.filter:

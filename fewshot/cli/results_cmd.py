@@ -9,6 +9,7 @@ from typing import Annotated
 
 import typer
 from rich.table import Table
+from rich.text import Text
 
 from fewshot.cli.common import (
     LedgerOpt,
@@ -173,7 +174,7 @@ def status(
         table.add_column(f"n{n}", justify="right")
     for arm, cells in rep.cells.groupby("arm", sort=False):
         by = {int(c.size): c for c in cells.itertuples()}
-        row = []
+        row: list[str | Text] = []
         for n in sizes:
             c = by.get(n)
             if c is None:
@@ -185,7 +186,7 @@ def status(
                     f" [red]{c.failed}f[/]" if c.failed else "",
                 ]
             )
-            row.append(f"{c.done}/{c.total}{extra}")
+            row.append(Text.from_markup(f"{c.done}/{c.total}{extra}"))
         table.add_row(str(arm), *row)
     out.print(table)
     if len(rep.expired):

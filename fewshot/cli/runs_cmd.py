@@ -2,8 +2,7 @@
 
 from __future__ import annotations
 
-import shlex
-import string
+import signal
 from dataclasses import asdict
 from pathlib import Path
 from typing import Annotated
@@ -20,8 +19,10 @@ from fewshot.cli.common import (
     out,
     print_json,
     reporting,
+    styled,
 )
 from fewshot.errors import InvalidInput
+from fewshot.jobtemplate import parse_template
 
 WorkerOpt = Annotated[
     str, typer.Option("--worker", help="A name for this worker, e.g. the host name.")
@@ -104,17 +105,26 @@ def exec_runs(
                 results_dir=results,
                 ledger_url=led.connect_url,
                 on_start=lambda c: err.print(
-                    f"[dim]start[/] {c.key} (attempt {c.attempt})", markup=True
+                    styled("[dim]start[/] {} (attempt {})", c.key, c.attempt)
                 ),
                 on_end=lambda o: err.print(
-                    f"[{'green' if o.status == 'done' else 'red'}]{o.status}[/] {o.key} "
-                    f"in {o.seconds:.1f} s" + (f", {o.ingested} results" if o.ingested else ""),
-                    markup=True,
+                    styled(
+                        f"[{'green' if o.status == 'done' else 'red'}]{{}}[/] {{}} in {{}} s",
+                        o.status,
+                        o.key,
+                        f"{o.seconds:.1f}",
+                    ),
+                    f", {o.ingested} results" if o.ingested else "",
+                    sep="",
                 ),
             )
-        except KeyboardInterrupt:
-            err.print("interrupted: the current run went back to the plan")
-            raise typer.Exit(130) from None
+        except KeyboardInterrupt as exc:  # Ctrl-C, SIGTERM or SIGHUP (see run_claims)
+            signum = int(getattr(exc, "signum", signal.SIGINT))
+            err.print(
+                f"stopped by {signal.Signals(signum).name}: the trainer was stopped and its run "
+                "went back to the plan"
+            )
+            raise typer.Exit(128 + signum) from None
         finally:
             led.close()
     failed = sum(1 for o in outcomes if o.status != "done")
@@ -137,22 +147,6 @@ PLACEHOLDERS = (
 )
 
 
-def _template_fields(template: str) -> list[str]:
-    try:
-        fields = [f for _, f, _, _ in string.Formatter().parse(template) if f is not None]
-    except ValueError as exc:
-        raise InvalidInput(
-            f"--template is not a valid template ({exc}). Use {{run}}, {{subset}}, ..."
-        ) from None
-    unknown = sorted({f for f in fields if f not in PLACEHOLDERS})
-    if unknown or "" in fields:
-        bad = ", ".join("{" + f + "}" for f in unknown) or "{}"
-        raise InvalidInput(
-            f"--template has unknown placeholder(s) {bad}. Known: {', '.join('{' + p + '}' for p in PLACEHOLDERS)}."
-        )
-    return fields
-
-
 def jobs(
     *,
     template: Annotated[
@@ -164,9 +158,11 @@ def jobs(
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
-    """Print one command line per pending run, for any scheduler (values are shell-quoted)."""
+    """Print one command line per pending run, for any scheduler (values are shell-quoted for
+    where they stand: bare, in '...' or in "...")."""
     with reporting():
-        fields = _template_fields(template)
+        parsed = parse_template(template, PLACEHOLDERS, option="--template")
+        fields = parsed.fields
         led = open_ledger(ledger, study)
         if "ledger" in fields and led.url != led.connect_url:
             raise InvalidInput(
@@ -191,7 +187,7 @@ def jobs(
             "ledger": url,
             "study": name,
         }
-        typer.echo(template.format(**{k: shlex.quote(str(v)) for k, v in values.items()}))
+        typer.echo(parsed.render(values))
 
 
 def done(

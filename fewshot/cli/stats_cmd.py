@@ -10,6 +10,7 @@ from typing import Annotated
 import pandas as pd
 import typer
 from rich.table import Table
+from rich.text import Text
 
 from fewshot.cli.common import (
     LedgerOpt,
@@ -19,6 +20,7 @@ from fewshot.cli.common import (
     out,
     print_json,
     reporting,
+    styled,
 )
 from fewshot.errors import InvalidInput
 from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS
@@ -82,7 +84,8 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
         by = {int(r["size"]): r for _, r in rows.iterrows()}
         keys = key if isinstance(key, tuple) else (key,)
         table.add_row(
-            *[str(k) for k in keys], *[_cell(by[n], show_n) if n in by else "" for n in sizes]
+            *[str(k) for k in keys],
+            *[Text.from_markup(_cell(by[n], show_n)) if n in by else "" for n in sizes],
         )
     out.print(table)
     seeds = (
@@ -93,9 +96,14 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
         else ""
     )
     out.print(
-        f"score rule: {report.scores.rule}; {s.resamples} resamples, seed {s.seed}; {seeds}; "
-        "[dim]\\[low, high] = interval; ! = fewer than 3 seeds[/]",
-        markup=True,
+        styled(
+            "score rule: {}; {} resamples, seed {}; {}; "
+            "[dim]\\[low, high] = interval; ! = fewer than 3 seeds[/]",
+            report.scores.rule,
+            s.resamples,
+            s.seed,
+            seeds,
+        )
     )
     for note in report.notes:
         err.print(f"note: {note}")

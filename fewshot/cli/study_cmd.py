@@ -17,6 +17,7 @@ from fewshot.cli.common import (
     out,
     print_json,
     reporting,
+    styled,
 )
 from fewshot.ledger.planning import draw_all
 from fewshot.manifest import check_draw_target
@@ -96,7 +97,7 @@ def init(
         url = led.url
         led.close()
     verb = "created" if report.created else "updated"
-    out.print(f"{verb} study [bold]{report.study}[/] in {url}", markup=True)
+    out.print(styled(f"{verb} study [bold]{{}}[/] in {{}}", report.study, url))
     if not report.created:
         for label, items in (
             ("arms", report.new_arms),

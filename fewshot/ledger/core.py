@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
@@ -11,6 +12,7 @@ from typing import Any, TypeVar
 
 import pandas as pd
 from sqlalchemy import Connection, Engine, func, insert, select
+from sqlalchemy.exc import IntegrityError, OperationalError
 
 from fewshot.errors import FewshotError
 from fewshot.ledger.engine import (
@@ -49,6 +51,7 @@ from fewshot.study import Study
 __all__ = ["Ledger", "IngestReport", "RESULT_COLUMNS"]
 
 T = TypeVar("T")
+CONFLICT_RETRIES = 5
 
 RESULT_COLUMNS = [
     "study",
@@ -125,6 +128,11 @@ class Ledger:
                 f"no ledger at {path}. Run `fewshot init STUDY.toml` there first, or point --ledger "
                 "(or FEWSHOT_LEDGER) at the study's ledger."
             )
+        if not create and path is not None and path.is_file() and path.stat().st_size == 0:
+            raise LedgerError(
+                f"{path} is an empty file, not a ledger; it was left as it is. Run `fewshot init "
+                "STUDY.toml --ledger PATH` to make a ledger, or point --ledger at the study's ledger."
+            )
         engine = make_engine(resolved)
         upgrade_schema(engine)
         return cls(engine, resolved, study)
@@ -150,11 +158,37 @@ class Ledger:
         self.close()
 
     def _tx(self, fn: Callable[[Connection], T]) -> T:
+        """Run ``fn`` in one transaction.
+
+        A unique-constraint violation means another process wrote the same thing first (two
+        ``init`` of one study, one file ingested twice at once, ``record`` against ``ingest``): the
+        transaction is run again, and now sees that write and gives the usual answer (nothing new
+        to plan, the file was ingested before, the value is already there or conflicts).
+        """
+
         def attempt() -> T:
             with self.engine.begin() as conn:
                 return fn(conn)
 
-        return retry_locked(attempt)
+        for k in range(CONFLICT_RETRIES):
+            try:
+                return retry_locked(attempt)
+            except OperationalError as exc:
+                if "readonly" in str(exc.orig).lower().replace("-", "").replace(" ", ""):
+                    raise LedgerError(
+                        f"the ledger {self.url} is read-only for you: reading works, but this "
+                        "command writes to it. Run it as a user who may write the ledger file and "
+                        "its folder."
+                    ) from None
+                raise
+            except IntegrityError as exc:
+                if k == CONFLICT_RETRIES - 1:
+                    raise LedgerError(
+                        f"the ledger {self.url} refused a write {CONFLICT_RETRIES} times because "
+                        f"another process kept writing the same rows ({_first_line(exc.orig)}). "
+                        "Nothing of this call was stored; run it again."
+                    ) from None
+        raise AssertionError("unreachable")
 
     def studies(self) -> list[str]:
         """The names of the studies in this ledger."""
@@ -203,6 +237,7 @@ class Ledger:
     def claim(self, worker: str, lease: float = 7200.0) -> Claim | None:
         """Atomically claim one planned run (or one whose lease expired) for ``worker``."""
         _check_worker(worker)
+        _check_lease(lease)
 
         def go(c: Connection) -> Claim | None:
             sid, _ = self._sid(c)
@@ -212,6 +247,7 @@ class Ledger:
 
     def heartbeat(self, run: str, worker: str, lease: float = 7200.0) -> bool:
         """Extend ``worker``'s lease on ``run``; False when the worker no longer holds it."""
+        _check_lease(lease)
 
         def go(c: Connection) -> bool:
             sid, name = self._sid(c)
@@ -297,15 +333,41 @@ class Ledger:
         """
         return [self.ingest_file(p, replace=replace) for p in expand_result_paths(paths)]
 
-    def ingest_file(self, path: str | Path, *, replace: bool = False) -> IngestReport:
-        """Ingest one results file: all of it or none of it."""
+    def ingest_file(
+        self, path: str | Path, *, replace: bool = False, run: str | None = None
+    ) -> IngestReport:
+        """Ingest one results file: all of it or none of it.
+
+        A file whose content was ingested before is skipped before it is parsed. With ``run``,
+        every line must belong to that run (what ``exec`` asks of the file of the run it ran).
+        """
         p = Path(path)
         try:
             data = p.read_bytes()
         except OSError as exc:
             raise ResultFileError(f"{p}: cannot read the results file ({exc.strerror}).") from None
         digest = file_digest_bytes(data)
+
+        def seen_rows(c: Connection) -> int | None:
+            sid, _ = self._sid(c)
+            return c.execute(
+                select(IngestedFileRow.rows).where(
+                    IngestedFileRow.study_id == sid, IngestedFileRow.digest == digest
+                )
+            ).scalar()
+
+        known = self._tx(seen_rows)
+        if known is not None:
+            return IngestReport(str(p), int(known), True)
         lines = parse_result_file(p, data)
+        if run is not None:
+            for ln in lines:
+                if ln.run != run:
+                    raise ResultFileError(
+                        f"{ln.where}: a result of run {ln.run!r}, but this file belongs to run "
+                        f"{run!r}. A run's results file holds only that run's results; write "
+                        "other runs' results to their own files."
+                    )
 
         def go(c: Connection) -> IngestReport:
             sid, name = self._sid(c)
@@ -517,8 +579,26 @@ class Ledger:
         return self._tx(go)
 
 
+def _first_line(error: object) -> str:
+    return mask_url(
+        str(error).strip().splitlines()[0] if str(error).strip() else type(error).__name__
+    )
+
+
+MAX_LEASE = 30 * 86400.0
+
+
+def _check_lease(lease: float) -> None:
+    ok = isinstance(lease, int | float) and not isinstance(lease, bool)
+    if not ok or not math.isfinite(lease) or not 0 < lease <= MAX_LEASE:
+        raise FewshotError(
+            f"lease must be a finite number of seconds, more than 0 and at most 30 days "
+            f"({MAX_LEASE:.0f}). Got {lease!r}."
+        )
+
+
 def _check_worker(worker: str) -> None:
-    if not isinstance(worker, str) or not worker.strip() or len(worker) > 200:
+    if not isinstance(worker, str) or not worker.strip() or len(worker) > 200 or "\x00" in worker:
         raise FewshotError(
             "worker must be a non-empty name of at most 200 characters, e.g. the host name."
         )

@@ -10,21 +10,24 @@ from __future__ import annotations
 
 import os
 import random
+import sqlite3
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from importlib import resources
 from pathlib import Path
 from typing import TypeVar
+from urllib.parse import quote
 
 from alembic import command
 from alembic.config import Config
 from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Engine, create_engine, event, text
 from sqlalchemy.engine import make_url
 from sqlalchemy.exc import ArgumentError, OperationalError
 
 from fewshot.errors import FewshotError
+from fewshot.masking import mask_secrets
 
 __all__ = [
     "LedgerError",
@@ -38,6 +41,9 @@ __all__ = [
 ]
 
 DEFAULT_LEDGER = "fewshot.sqlite"
+# The PostgreSQL advisory lock held while the schema is created or upgraded (any fixed 64-bit
+# number unlikely to be used by another application of the same database: b"fewshot" as an integer).
+SCHEMA_LOCK_KEY = int.from_bytes(b"fewshot", "big")
 T = TypeVar("T")
 
 
@@ -57,11 +63,46 @@ def resolve_url(ledger: str | os.PathLike[str] | None = None) -> str:
         return f"sqlite:///{Path(value).expanduser().resolve()}"
     if value.startswith("postgresql://") or value.startswith("postgres://"):
         value = "postgresql+psycopg://" + value.split("://", 1)[1]
+    value = _encode_at_in_password(value)
     try:
-        make_url(value)
+        parsed = make_url(value)
     except ArgumentError:
         raise LedgerError(f"ledger URL {mask_url(value)!r} is not a valid database URL.") from None
+    backend = parsed.get_backend_name()
+    if backend not in ("sqlite", "postgresql"):
+        raise LedgerError(
+            f"ledger URL {mask_url(value)!r}: fewshot keeps ledgers in SQLite (a file path) or "
+            f"PostgreSQL (postgresql://...), not in {backend!r}."
+        )
+    if backend == "sqlite" and _in_memory(parsed.database, parsed.query):
+        raise LedgerError(
+            f"ledger URL {mask_url(value)!r} is an in-memory SQLite database, which is lost when "
+            "the command ends. Give a file path instead, e.g. --ledger fewshot.sqlite."
+        )
     return value
+
+
+def _in_memory(database: str | None, query: Mapping[str, object]) -> bool:
+    name = database or ""
+    mode = str(query.get("mode", ""))
+    return (
+        name in ("", ":memory:")
+        or name.startswith("file::memory:")
+        or "mode=memory" in name
+        or mode == "memory"
+    )
+
+
+def _encode_at_in_password(url: str) -> str:
+    """Percent-encode a password that holds ``@`` (``user:p@ss@host``), which URL parsers would
+    otherwise split at its first ``@``, leaking the rest of it into the host name."""
+    scheme, rest = url.split("://", 1)
+    head, sep, query = rest.partition("?")
+    if head.count("@") < 2:
+        return url
+    userinfo, host = head.rsplit("@", 1)
+    user, colon, password = userinfo.partition(":")
+    return f"{scheme}://{user}{colon}{quote(password, safe='')}@{host}{sep}{query}"
 
 
 def sqlite_path(url: str) -> Path | None:
@@ -77,14 +118,9 @@ def sqlite_path(url: str) -> Path | None:
 
 
 def mask_url(url: str) -> str:
-    """The URL with its password replaced by ``***``, for every message and table."""
-    try:
-        return make_url(url).render_as_string(hide_password=True)
-    except ArgumentError:
-        if "@" in url and "://" in url:
-            scheme, rest = url.split("://", 1)
-            return f"{scheme}://***@{rest.rsplit('@', 1)[1]}"
-        return url
+    """The URL with its password (user part or ``password=`` parameter) replaced by ``***``,
+    for every message and table (see :func:`fewshot.masking.mask_secrets`)."""
+    return mask_secrets(url)
 
 
 def make_engine(url: str) -> Engine:
@@ -96,7 +132,25 @@ def make_engine(url: str) -> Engine:
             raise LedgerError(
                 f"ledger folder {Path(path).parent} does not exist. Create it or pick another --ledger."
             )
-        engine = create_engine(url, connect_args={"timeout": 60})
+        if path and _read_only_folder(Path(path)):
+            # SQLite cannot create the WAL's shared-memory file beside a ledger in a folder we
+            # may not write, so open the file itself read-only and immutable: reads work, writes
+            # fail with "read-only". Safe only when no write-ahead log holds newer transactions.
+            wal = Path(path + "-wal")
+            if wal.exists() and wal.stat().st_size > 0:
+                raise LedgerError(
+                    f"the ledger {path} is in a folder you cannot write, and its write-ahead log "
+                    f"{wal.name} holds transactions not yet in the file, so it cannot be read "
+                    "safely. Ask its owner to close the writers (or give you write access to the "
+                    "folder), or read a copy."
+                )
+            uri = f"file:{quote(path)}?mode=ro&immutable=1"
+            engine = create_engine(
+                url,
+                creator=lambda: sqlite3.connect(uri, uri=True, timeout=60, check_same_thread=False),
+            )
+        else:
+            engine = create_engine(url, connect_args={"timeout": 60})
 
         @event.listens_for(engine, "connect")
         def _sqlite_connect(dbapi_conn, _record):  # type: ignore[no-untyped-def]
@@ -124,6 +178,11 @@ def make_engine(url: str) -> Engine:
         ) from None
 
 
+def _read_only_folder(path: Path) -> bool:
+    """A ledger file that exists in a folder this process may not write."""
+    return path.is_file() and not os.access(path.parent, os.W_OK)
+
+
 def _alembic_config() -> Config:
     cfg = Config()
     cfg.set_main_option("script_location", str(resources.files("fewshot.migrations")))
@@ -149,6 +208,10 @@ def upgrade_schema(engine: Engine, *, revision: str = "head") -> None:
 
     def _do() -> None:
         with engine.begin() as conn:
+            if conn.dialect.name == "postgresql":
+                # One process at a time creates or upgrades the schema; the others wait here, then
+                # find it at the head revision. Released when this transaction ends.
+                conn.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": SCHEMA_LOCK_KEY})
             current = MigrationContext.configure(conn).get_current_revision()
             if current is not None and current not in known:
                 raise LedgerError(

@@ -5,6 +5,17 @@ run's ``FEWSHOT_*`` variables in its environment. While it runs, a thread keeps
 the lease alive; its stderr is passed through and its tail kept for the failure
 message. Exit status 0 marks the run done, anything else failed, unless the
 trainer already marked the run itself.
+
+Before the trainer starts, the run's id file is checked against the digest planned in the
+ledger. A file that is missing or differs (edited or redrawn since ``init``) fails the run with
+the reason and the trainer is not started: handing the run back would only let the next worker
+claim it and meet the same file, and training on it would store results for episodes other than
+the planned ones. A results file may only hold lines of the run that was executed.
+
+SIGTERM (what batch schedulers send on pre-emption), SIGHUP (a closed terminal) and SIGINT
+(Ctrl-C) stop the worker the same way: the trainer's whole process group is stopped (SIGTERM,
+then SIGKILL after a grace period) and the run goes back to the plan. A signal that arrives while
+the worker claims a run or stores a finished one's results is held until that step is done.
 """
 
 from __future__ import annotations
@@ -12,6 +23,7 @@ from __future__ import annotations
 import collections
 import os
 import shutil
+import signal
 import subprocess
 import sys
 import threading
@@ -23,10 +35,56 @@ from pathlib import Path
 from fewshot.errors import FewshotError, InvalidInput
 from fewshot.ledger.core import Ledger
 from fewshot.ledger.runs import Claim
+from fewshot.pools import read_id_list
+from fewshot.sampling import subset_digest
 
-__all__ = ["ExecOutcome", "run_claims", "run_environment", "results_file_for"]
+__all__ = ["ExecOutcome", "Stopped", "run_claims", "run_environment", "results_file_for"]
 
 STDERR_TAIL_LINES = 40
+STOP_GRACE_SECONDS = 10.0
+STOP_SIGNALS = tuple(
+    s for s in (signal.SIGINT, signal.SIGTERM, getattr(signal, "SIGHUP", None)) if s is not None
+)
+
+
+class Stopped(KeyboardInterrupt):
+    """The worker was stopped by a signal; ``signum`` says which (SIGINT for Ctrl-C)."""
+
+    def __init__(self, signum: int) -> None:
+        super().__init__(signum)
+        self.signum = signum
+
+
+class _Signals:
+    """Turns stop signals into :class:`Stopped`, raised only while the trainer runs; a signal
+    that arrives at any other moment is held (``pending``) until a safe point checks it."""
+
+    def __init__(self) -> None:
+        self.waiting = False
+        self.pending: int | None = None
+        self._previous: dict[int, object] = {}
+
+    def _handle(self, signum: int, _frame: object) -> None:
+        first = self.pending is None
+        if first:
+            self.pending = signum
+        if self.waiting or not first:  # a second signal stops at once, wherever the worker is
+            self.waiting = False
+            raise Stopped(signum)
+
+    def check(self) -> None:
+        if self.pending is not None:
+            raise Stopped(self.pending)
+
+    def __enter__(self) -> _Signals:
+        if threading.current_thread() is threading.main_thread():
+            for s in STOP_SIGNALS:
+                self._previous[s] = signal.signal(s, self._handle)
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        for s, handler in self._previous.items():
+            signal.signal(s, handler)  # type: ignore[arg-type]
 
 
 @dataclass(frozen=True)
@@ -113,23 +171,66 @@ def run_claims(
         results_dir.mkdir(parents=True, exist_ok=True)
     study = ledger.study
     outcomes: list[ExecOutcome] = []
-    while max_runs is None or len(outcomes) < max_runs:
-        claim = ledger.claim(worker, lease)
-        if claim is None:
-            break
-        try:
-            if on_start is not None:
-                on_start(claim)
-            outcome = _run_one(ledger, claim, command, lease, results_dir, ledger_url, study)
-        except KeyboardInterrupt:
-            # Stopped by the user: hand the run back to the plan at once rather than
-            # leaving it to wait for its lease to expire.
-            ledger.release(claim.key, claim.worker)
-            raise
-        outcomes.append(outcome)
-        if on_end is not None:
-            on_end(outcome)
+    with _Signals() as signals:
+        while max_runs is None or len(outcomes) < max_runs:
+            signals.check()
+            claim = ledger.claim(worker, lease)
+            if claim is None:
+                break
+            try:
+                signals.check()
+                if on_start is not None:
+                    on_start(claim)
+                outcome = _run_one(
+                    ledger, claim, command, lease, results_dir, ledger_url, study, signals
+                )
+            except KeyboardInterrupt as exc:
+                # Stopped (Ctrl-C, SIGTERM, SIGHUP): hand the run back to the plan at once rather
+                # than leaving it to wait for its lease to expire.
+                ledger.release(claim.key, claim.worker)
+                if isinstance(exc, Stopped):
+                    raise
+                raise Stopped(signal.SIGINT) from None
+            outcomes.append(outcome)
+            if on_end is not None:
+                on_end(outcome)
     return outcomes
+
+
+def check_subset_file(claim: Claim) -> str | None:
+    """Why the run's id file cannot be trained on (missing, or not the planned subset), or None."""
+    try:
+        ids = read_id_list(claim.subset_file, what="id file")
+    except FewshotError as exc:
+        return f"the run's id file cannot be read, so the trainer was not started: {exc}"
+    actual = subset_digest(ids)
+    if actual == claim.subset_digest:
+        return None
+    return (
+        f"the run's id file {claim.subset_file} has digest {actual[:12]}... but the ledger planned "
+        f"{claim.subset_digest[:12]}... ({len(ids)} ids listed, {claim.size} planned): it was edited "
+        "or redrawn after the run was planned, so the trainer was not started. Restore the planned "
+        "file (`fewshot verify MANIFEST FILE --seed S --size N` shows the difference)."
+    )
+
+
+def _stop_group(proc: subprocess.Popen[str]) -> None:
+    """Stop the trainer and every process it started: SIGTERM to its process group, then
+    SIGKILL to what is left after the grace period."""
+
+    def send(sig: int) -> None:
+        try:
+            os.killpg(proc.pid, sig)
+        except (ProcessLookupError, PermissionError):
+            pass
+
+    send(signal.SIGTERM)
+    try:
+        proc.wait(timeout=STOP_GRACE_SECONDS)
+    except subprocess.TimeoutExpired:
+        pass
+    send(signal.SIGKILL)
+    proc.wait()
 
 
 def _run_one(
@@ -140,13 +241,26 @@ def _run_one(
     results_dir: Path | None,
     ledger_url: str,
     study: str,
+    signals: _Signals,
 ) -> ExecOutcome:
+    start = time.monotonic()
+    refused = check_subset_file(claim)
+    if refused is not None:
+        ledger.fail(claim.key, refused)
+        return ExecOutcome(claim.key, "failed", -1, time.monotonic() - start, 0)
     results = None if results_dir is None else results_file_for(results_dir, claim.key)
     env = {**os.environ, **run_environment(claim, ledger_url, study, results)}
-    start = time.monotonic()
     tail: collections.deque[str] = collections.deque(maxlen=STDERR_TAIL_LINES)
+    signals.check()
+    # The trainer gets its own process group, so that stopping the worker stops everything the
+    # trainer started (data loaders, launchers) and a terminal's Ctrl-C reaches only the worker.
     proc = subprocess.Popen(
-        list(command), env=env, stderr=subprocess.PIPE, text=True, errors="replace"
+        list(command),
+        env=env,
+        stderr=subprocess.PIPE,
+        text=True,
+        errors="replace",
+        process_group=0,
     )
     stop = threading.Event()
 
@@ -168,14 +282,14 @@ def _run_one(
     for t in threads:
         t.start()
     try:
+        signals.waiting = True
+        signals.check()  # a signal that came while the trainer was being started
         rc = proc.wait()
+        signals.waiting = False
     except KeyboardInterrupt:
+        signals.waiting = False
         stop.set()
-        proc.terminate()
-        try:
-            proc.wait(timeout=10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
+        _stop_group(proc)
         raise
     stop.set()
     threads[0].join()
@@ -183,7 +297,7 @@ def _run_one(
     message = None
     if results is not None and results.exists():
         try:
-            ingested = sum(r.stored for r in ledger.ingest([results]))
+            ingested = ledger.ingest_file(results, run=claim.key).stored
         except FewshotError as exc:  # a refused results file fails the run, with the reason
             rc = rc or 1
             message = f"results file {results} was refused: {exc}"

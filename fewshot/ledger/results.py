@@ -24,6 +24,7 @@ from sqlalchemy import Connection, delete, insert, select, update
 from fewshot.errors import FewshotError
 from fewshot.ledger.models import FINAL_STEP, ResultRow, ResultValueRow, RunRow, SubsetRow
 from fewshot.ledger.runs import find_run
+from fewshot.pools import DuplicateKey, repeated_names, unique_keys
 
 __all__ = [
     "ResultLine",
@@ -108,9 +109,9 @@ def check_line(
         v = value
     else:
         v = _finite(value, f"value of {metric!r}", where)
-    if not isinstance(run, str) or not run:
+    if not isinstance(run, str) or not run or "\x00" in run:
         raise ResultRefused(f"{at}'run' must be a run key such as 'arm/task/n10/s0'. Got {run!r}.")
-    if not isinstance(metric, str) or not metric.strip() or len(metric) > 200:
+    if not isinstance(metric, str) or not metric.strip() or len(metric) > 200 or "\x00" in metric:
         raise ResultRefused(f"{at}'metric' must be a non-empty name. Got {metric!r}.")
     if step is not None and (isinstance(step, bool) or not isinstance(step, int) or step < 0):
         raise ResultRefused(
@@ -172,7 +173,11 @@ def _parse_jsonl(path: Path, text: str) -> list[ResultLine]:
                 f"{where}: the line is {len(line)} characters long; results lines are short. The file is damaged."
             )
         try:
-            obj = json.loads(line)
+            obj = json.loads(line, object_pairs_hook=unique_keys)
+        except DuplicateKey as exc:
+            raise ResultFileError(
+                f"{where}: the field {exc.key!r} is given more than once; keep one."
+            ) from None
         except json.JSONDecodeError as exc:
             last = n == len(lines) or (n == len(lines) - 1 and lines[-1] == "")
             hint = " (the last line is cut short: was the trainer still writing?)" if last else ""
@@ -210,7 +215,13 @@ def _from_mapping(obj: object, where: str) -> ResultLine:
 
 def _parse_csv(path: Path, text: str) -> list[ResultLine]:
     reader = csv.DictReader(io.StringIO(text))
-    header = reader.fieldnames or []
+    header = list(reader.fieldnames or [])
+    twice = repeated_names(header)
+    if twice:
+        raise ResultFileError(
+            f"{path}, line 1: column(s) {', '.join(map(repr, twice))} appear more than once in the "
+            "header; keep one of each."
+        )
     missing = [k for k in ("run", "metric", "value") if k not in header]
     if missing:
         raise ResultFileError(

@@ -62,6 +62,10 @@ class Claim:
 
 def find_run(conn: Connection, sid: int, key: str, study_name: str) -> Row[Any]:
     """The run row of ``key`` in study ``sid``; an unknown key suggests the nearest one."""
+    if "\x00" in key:
+        raise UnknownRun(
+            f"study {study_name!r} has no run {key!r}: run keys hold no NUL characters."
+        )
     row = conn.execute(select(RunRow).where(RunRow.study_id == sid, RunRow.key == key)).first()
     if row is not None:
         return row
@@ -160,7 +164,8 @@ def extend_lease(conn: Connection, run: Row[Any], worker: str, lease: float) -> 
 
 def finish_run(conn: Connection, run: Row[Any], status: str, message: str | None = None) -> None:
     """Mark a run ``done`` or ``failed`` (with the tail of a message) and drop its lease."""
-    text = None if message is None else message[-MESSAGE_LIMIT:]
+    # NUL characters (a trainer's binary stderr) cannot be stored in PostgreSQL text: drop them.
+    text = None if message is None else message.replace("\x00", "")[-MESSAGE_LIMIT:]
     conn.execute(
         update(RunRow)
         .where(RunRow.id == run.id)
