@@ -96,6 +96,7 @@ def transfer_rows(table: pd.DataFrame) -> list[dict[str, str]]:
     Cells resting on fewer than 3 seeds end in `` !``.
     """
     out = []
+    mixed = "unit" in table and table["unit"].nunique() > 1  # say each row's unit when they differ
     for _, r in table.iterrows():
         n = r["n_seeds"]
         out.append(
@@ -103,6 +104,7 @@ def transfer_rows(table: pd.DataFrame) -> list[dict[str, str]]:
                 "arm": str(r["arm"]),
                 "task": str(r["task"]),
                 "size": str(r["size"]),
+                **({"unit": str(r["unit"])} if mixed else {}),
                 "difference": flagged(with_interval(r["difference"], r["low"], r["high"]), n),
                 "P(improvement)": flagged(
                     with_interval(r.get("probability"), r.get("p_low"), r.get("p_high")),

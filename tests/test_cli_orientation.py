@@ -208,3 +208,13 @@ def test_record_done_refuses_whole_and_marks_nothing(tmp_path: Path, key, pair, 
         assert led.counts()["done"] == 0
     finally:
         led.close()
+
+
+def test_report_methods_say_how_a_loss_was_turned(tmp_path: Path):
+    ledger = ledger_of(tmp_path, loss=True, refs=False)
+    out = tmp_path / "r.html"
+    result = run("report", "--ledger", ledger, "--resamples", "300", "--out", out)
+    assert result.exit_code == 0, result.output
+    html = out.read_text(encoding="utf-8")
+    assert "Lower loss is better" in html and "negated raw score" in html
+    assert "left out of every mean over tasks" in html

@@ -278,6 +278,7 @@ def test_one_task_without_references_leaves_the_others_normalised():
         mean_all = t[(t["task"] == "all") & (t["size"] == size)]["difference"].iloc[0]
         assert mean_all == pytest.approx((per["a"] + per["b"]) / 2)  # the raw task left out
     assert any("left out: raw" in n for n in rep.notes)
+    assert {r["unit"] for r in transfer_rows(t)} == {"normalised", "return"}  # said per row
 
 
 def test_seeds_needed_uses_only_tasks_with_references_or_refuses():

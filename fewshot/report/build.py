@@ -283,6 +283,16 @@ def _methods(curves, settings: CurveSettings, cmp) -> str:  # type: ignore[no-un
         "Aggregates over tasks pool the normalised scores of all runs and use a stratified bootstrap (seeds resampled "
         "within each task).",
     ]
+    if not curves.scores.higher_is_better:
+        parts.append(
+            f"Lower {curves.scores.metric} is better: every statistic was computed on normalised scores (0 at the "
+            "floor, 1 at the expert) or, for tasks without them, on the negated raw score, so that higher is better "
+            "throughout; raw values are shown back in the metric's own units."
+        )
+    if cmp is not None and cmp.value != "normalised":
+        parts.append(
+            "Tasks without floor and expert are compared in raw units and left out of every mean over tasks."
+        )
     if cmp is not None:
         parts.append(
             f"Arms were compared with {cmp.baseline} on the same subsets, paired by seed. Effective data transferred is "
