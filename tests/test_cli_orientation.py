@@ -218,3 +218,12 @@ def test_report_methods_say_how_a_loss_was_turned(tmp_path: Path):
     html = out.read_text(encoding="utf-8")
     assert "Lower loss is better" in html and "negated raw score" in html
     assert "left out of every mean over tasks" in html
+
+
+def test_report_flags_transfer_cells_under_three_seeds(tmp_path: Path):
+    ledger = ledger_of(tmp_path, seeds=2)
+    out = tmp_path / "r.html"
+    assert run("report", "--ledger", ledger, "--resamples", "300", "--out", out).exit_code == 0
+    html = out.read_text(encoding="utf-8")
+    assert "(flagged !)" in html
+    assert html.count(" !</td>") >= 8 * 3  # difference, P(improvement), effective data per row

@@ -13,7 +13,7 @@ from fewshot.ledger import Ledger
 from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
 from fewshot.stats import CurveSettings
 from fewshot.stats.coverage import coverage_sentence
-from fewshot.tables import number, threshold_cell, transfer_rows, with_interval
+from fewshot.tables import flagged, number, threshold_cell, transfer_rows, with_interval
 
 __all__ = ["build_report", "write_report", "HARDWARE_CAUTION"]
 
@@ -209,7 +209,7 @@ def build_report(
                     {
                         "arm": r["arm"],
                         "task": r["task"],
-                        "episodes": threshold_cell(r),
+                        "episodes": flagged(threshold_cell(r), r["n_seeds"]),
                         "seeds": str(r["n_seeds"]),
                     }
                     for _, r in cmp.thresholds.iterrows()
@@ -221,7 +221,7 @@ def build_report(
                     {
                         "arm": r["arm"],
                         "task": r["task"],
-                        "area": with_interval(r["auc"], r["low"], r["high"]),
+                        "area": flagged(with_interval(r["auc"], r["low"], r["high"]), r["n_seeds"]),
                         "sizes": r["sizes"],
                         "seeds": str(r["n_seeds"]),
                     }

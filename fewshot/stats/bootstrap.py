@@ -134,7 +134,8 @@ def bootstrap_cells(
     With replicates, each resample draws seeds, then replicates within each drawn seed,
     so the interval carries both sources of variance; the estimator then sees the mean
     of each seed's replicates. ``is_mean`` says the estimator is the mean (for the
-    closed-form t and bootstrap-t intervals).
+    closed-form t and bootstrap-t intervals). Cells with values beyond 2^300 are scaled by a
+    power of two first (so the estimator must be scale-equivariant, as mean, median and IQM are).
     """
     data = _iv(values, method, confidence, resamples, is_mean)
     scale = _huge_scale(data)
