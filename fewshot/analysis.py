@@ -540,9 +540,7 @@ def make_figure(
     if kind == "summary":
         if len(cmp.areas):
             areas = cmp.areas
-            if (
-                areas["sizes"].nunique() > 1
-            ):  # areas over different ranges: each labelled with its own
+            if areas["sizes"].nunique() > 1:  # different ranges: each area labelled with its own
                 areas = areas.assign(task=areas["task"] + " (" + areas["sizes"] + ")")
             return plots.summary_figure(
                 areas, value="auc", label="area under the normalised curve (log size)"

@@ -227,3 +227,12 @@ def test_report_flags_transfer_cells_under_three_seeds(tmp_path: Path):
     html = out.read_text(encoding="utf-8")
     assert "(flagged !)" in html
     assert html.count(" !</td>") >= 8 * 3  # difference, P(improvement), effective data per row
+
+
+def test_json_names_the_tasks_behind_the_mean_rows(tmp_path: Path):
+    ledger = ledger_of(tmp_path)
+    data = json.loads(
+        run("compare", "--ledger", ledger, "--resamples", "300", "--format", "json").stdout
+    )
+    assert data["tasks_in_all_rows"] == ["push", "reach"] and data["value"] == "normalised"
+    assert {r["unit"] for r in data["rows"]} == {"normalised"}

@@ -103,7 +103,7 @@ def compare(
                 "value": rep.value,
                 "rule": rep.scores.rule,
                 "threshold": rep.threshold,
-                "all_rows_over": list(rep.over_tasks),
+                "tasks_in_all_rows": list(rep.over_tasks),
                 "rows": records(rep.table),
                 "thresholds": records(rep.thresholds),
                 "areas": records(rep.areas),
