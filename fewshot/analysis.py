@@ -13,9 +13,29 @@ import pandas as pd
 
 from fewshot.errors import InvalidInput
 from fewshot.ledger import Ledger
-from fewshot.stats import CurveSettings, aggregate_curves, curves, normalise, parse_rule, run_scores
+from fewshot.stats import (
+    CurveSettings,
+    aggregate_curves,
+    curves,
+    orient,
+    parse_rule,
+    run_scores,
+    to_metric_units,
+)
 
-__all__ = ["StudyScores", "CurveReport", "load_scores", "curve_report", "caveats"]
+__all__ = [
+    "StudyScores",
+    "CurveReport",
+    "CompareReport",
+    "load_scores",
+    "score_tables",
+    "curve_report",
+    "curve_scores",
+    "caveats",
+    "compare_report",
+    "compare_scores",
+    "seeds_report",
+]
 
 
 @dataclass(frozen=True)
@@ -25,7 +45,8 @@ class StudyScores:
     Attributes
     ----------
     scores : DataFrame
-        :func:`fewshot.stats.run_scores` columns plus ``normalised`` and ``reference``.
+        :func:`fewshot.stats.run_scores` columns plus :func:`fewshot.stats.orient`'s ``normalised``,
+        ``reference``, ``oriented`` and ``value`` (every statistic reads those: higher is better).
     metric, rule : str
     higher_is_better : bool
     raw_tasks : tuple of str
@@ -74,11 +95,31 @@ def load_scores(ledger: Ledger, *, metric: str | None = None, select: str = "fin
         raise InvalidInput(
             f"study {study['name']!r} has no results yet. Run trainers (fewshot exec) or ingest results first."
         )
+    return score_tables(
+        results,
+        ledger.tasks(),
+        metric=metric,
+        higher_is_better=bool(study["higher_is_better"]),
+        select=str(rule),
+    )
+
+
+def score_tables(
+    results: pd.DataFrame,
+    tasks: pd.DataFrame,
+    *,
+    metric: str,
+    higher_is_better: bool,
+    select: str = "final",
+) -> StudyScores:
+    """Run scores from a results table (:meth:`Ledger.results` columns) and a tasks table (task,
+    floor, expert): :func:`load_scores` without the ledger."""
+    rule = parse_rule(select)
     scores = run_scores(results, metric, rule)
-    tasks = ledger.tasks()
-    normed = normalise(scores, tasks, higher_is_better=bool(study["higher_is_better"]))
+    # the metric's direction is applied here, once: everything downstream reads higher-is-better
+    normed = orient(scores, tasks, higher_is_better=higher_is_better)
     raw = tuple(sorted(set(tasks.loc[tasks["floor"].isna() | tasks["expert"].isna(), "task"])))
-    return StudyScores(normed, metric, str(rule), bool(study["higher_is_better"]), raw)
+    return StudyScores(normed, metric, str(rule), higher_is_better, raw)
 
 
 def curve_report(
@@ -96,21 +137,45 @@ def curve_report(
         raise InvalidInput("choose one of --across-tasks and --by-group.")
     settings.check()
     sc = load_scores(ledger, metric=metric, select=select)
+    return curve_scores(
+        sc,
+        settings,
+        normalised=normalised,
+        across_tasks=across_tasks,
+        by_group=by_group,
+        arms=list(ledger.arms()["arm"]),
+    )
+
+
+def curve_scores(
+    sc: StudyScores,
+    settings: CurveSettings,
+    *,
+    normalised: bool = False,
+    across_tasks: bool = False,
+    by_group: bool = False,
+    arms: list[str] | None = None,
+) -> CurveReport:
+    """:func:`curve_report` on scores already read (no ledger); ``arms`` gives the rows' order."""
+    if across_tasks and by_group:
+        raise InvalidInput("choose one of --across-tasks and --by-group.")
     aggregate = across_tasks or by_group
     value = "normalised" if (normalised or aggregate) else "score"
-    if value == "normalised" and sc.raw_tasks:
-        if len(sc.raw_tasks) == sc.scores["task"].nunique():
-            raise InvalidInput(
-                "no task has both floor and expert, so there are no normalised scores. "
-                "Add floor and expert to the tasks in the study file, or drop --normalised."
-            )
+    if value == "normalised" and not (sc.scores["reference"] == "floor/expert").any():
+        raise InvalidInput(
+            "no task has both floor and expert, so there are no normalised scores. "
+            "Add floor and expert to the tasks in the study file, or drop --normalised."
+        )
     if aggregate:
         table = aggregate_curves(sc.scores, settings, value="normalised", by_group=by_group)
         kind = "by-group" if by_group else "across-tasks"
     else:
-        table = curves(sc.scores, settings, value=value)
+        # raw curves are computed higher-is-better (oriented) and shown in the metric's units
+        table = curves(sc.scores, settings, value="normalised" if normalised else "oriented")
+        if value == "score":
+            table = to_metric_units(table, higher_is_better=sc.higher_is_better)
         kind = "per-task"
-    table = _in_study_order(table, list(ledger.arms()["arm"]))
+    table = _in_study_order(table, arms or list(dict.fromkeys(sc.scores["arm"])))
     report = CurveReport(table, kind, value, settings, sc)
     report.notes.extend(caveats(report))
     return report
@@ -184,11 +249,16 @@ class CompareReport:
     scaling : DataFrame
         Across-task IQM per arm and size beside the arms' first shared numeric attribute (empty
         when no attribute is shared).
-    baseline, value : str
+    baseline : str
+    value : str
+        ``normalised`` (every task has floor and expert), ``score`` (none has) or ``mixed``; the
+        table's ``unit`` column says which per row. Raw rows are in the metric's own units.
     threshold : float
     settings : CurveSettings
     scores : StudyScores
     notes : list of str
+    over_tasks : tuple of str
+        The tasks behind the ``"all"`` rows (tasks with floor and expert); empty without them.
     """
 
     table: pd.DataFrame
@@ -202,6 +272,7 @@ class CompareReport:
     settings: CurveSettings
     scores: StudyScores
     notes: list[str] = field(default_factory=list)
+    over_tasks: tuple[str, ...] = ()
 
 
 def compare_report(
@@ -215,6 +286,26 @@ def compare_report(
     select: str = "final",
 ) -> CompareReport:
     """Arms against the baseline (the study's by default): the transfer table and friends."""
+    settings.check()
+    sc = load_scores(ledger, metric=metric, select=select)
+    base = baseline or ledger.study_row()["baseline"]
+    return compare_scores(
+        sc, settings, baseline=base, arms=arms, threshold=threshold, arm_table=ledger.arms()
+    )
+
+
+def compare_scores(
+    sc: StudyScores,
+    settings: CurveSettings,
+    *,
+    baseline: str,
+    arms: list[str] | None = None,
+    threshold: float = 1.0,
+    arm_table: pd.DataFrame | None = None,
+) -> CompareReport:
+    """:func:`compare_report` on scores already read (no ledger): what the tests hold to the mirror
+    property. Each task is compared in normalised units when it has floor and expert, else in raw
+    units; means over tasks use only tasks with floor and expert."""
     from fewshot.stats.profiles import performance_profile, scaling_view
     from fewshot.stats.transfer import (
         check_baseline,
@@ -222,23 +313,21 @@ def compare_report(
         effective_data,
         improvement_probability,
         paired_differences,
+        thin_baselines,
         threshold_sizes,
     )
 
     settings.check()
-    sc = load_scores(ledger, metric=metric, select=select)
-    base = baseline or ledger.study_row()["baseline"]
+    base = baseline
     chosen = check_baseline(sc.scores, base, arms)
     tasks = sorted(sc.scores["task"].unique())
-    value = "normalised" if not sc.raw_tasks else "score"
-    notes = []
-    if value == "score":
-        notes.append(
-            f"differences are in raw {sc.metric} (tasks without floor/expert: {', '.join(sc.raw_tasks)})"
-        )
-    diff = paired_differences(sc.scores, base, settings, value=value, arms=chosen)
-    poi = improvement_probability(sc.scores, base, settings, value=value, arms=chosen)
-    eff = effective_data(sc.scores, base, settings, value="score", arms=chosen)
+    refs = sorted(set(sc.scores.loc[sc.scores["reference"] == "floor/expert", "task"]))
+    raw = [t for t in tasks if t not in refs]
+    value = "normalised" if not raw else ("score" if not refs else "mixed")
+    notes = _unit_notes(sc, tasks, refs, raw)
+    diff = paired_differences(sc.scores, base, settings, value="value", arms=chosen, over=refs)
+    poi = improvement_probability(sc.scores, base, settings, value="value", arms=chosen, over=refs)
+    eff = effective_data(sc.scores, base, settings, value="value", arms=chosen)
     keys = ["arm", "task", "size"]
     table = diff.merge(
         poi.rename(columns={"low": "p_low", "high": "p_high", "n_seeds": "p_seeds"}),
@@ -246,6 +335,17 @@ def compare_report(
         how="left",
     )
     table = table.merge(eff.drop(columns=["n_seeds"]), on=keys, how="left")
+    in_raw = table["task"].isin(raw)
+    table.insert(3, "unit", np.where(in_raw, sc.metric, "normalised"))
+    # raw values back into the metric's own units (a lower-is-better metric's differences turn sign)
+    table = to_metric_units(
+        table,
+        higher_is_better=sc.higher_is_better,
+        columns=("difference", "low", "high"),
+        rows=in_raw,
+    )
+    if not sc.higher_is_better and "arm_estimate" in table:
+        table.loc[in_raw, "arm_estimate"] = -table.loc[in_raw, "arm_estimate"]
     normed = sc.scores[sc.scores["reference"] == "floor/expert"]
     thresholds = pd.DataFrame()
     areas = pd.DataFrame()
@@ -261,14 +361,26 @@ def compare_report(
         thresholds = threshold_sizes(normed, threshold, settings)
         areas = curve_areas(normed, settings)
         headline = performance_profile(normed, settings, taus=np.array([threshold]), over="tasks")
-        arm_table = ledger.arms()
-        try:
-            scaling = scaling_view(aggregate_curves(normed, settings), arm_table)
-        except InvalidInput:
-            scaling = pd.DataFrame()
+        if arm_table is not None:
+            try:
+                scaling = scaling_view(aggregate_curves(normed, settings), arm_table)
+            except InvalidInput:
+                scaling = pd.DataFrame()
     else:
         notes.append(
             "no task has floor and expert: episodes-to-threshold and areas need normalised scores"
+        )
+    thin = thin_baselines(sc.scores, base, value="value")
+    if thin:
+        notes.append(
+            f"baseline {base!r} has results at fewer than two sizes >= 1 on {', '.join(thin)}: no "
+            "effective data or area there (a curve needs two sizes)"
+        )
+    if len(areas) and areas["sizes"].nunique() > 1:
+        notes.append(
+            "areas cover different size ranges ("
+            + ", ".join(sorted(set(areas["sizes"])))
+            + "): compare an area only with areas over the same range (the sizes column)"
         )
     for task in tasks:
         b_sizes = set(sc.scores[(sc.scores["arm"] == base) & (sc.scores["task"] == task)]["size"])
@@ -285,7 +397,9 @@ def compare_report(
     n_min = int(table["n_seeds"].min()) if len(table) else 0
     notes.append(f"pairs by seed (same subsets); seeds behind each comparison: {n_min} or more")
     if n_min < 3:
-        notes.append("some comparisons rest on fewer than 3 seeds: do not read them as evidence")
+        notes.append(
+            "some comparisons rest on fewer than 3 seeds (flagged !): do not read them as evidence"
+        )
     notes.append(
         "P(improvement), effective data, thresholds and areas use expanded percentile intervals of "
         "whole-curve resamples"
@@ -299,8 +413,76 @@ def compare_report(
             f"some arms never reach {threshold:g} (normalised) by the largest size: shown as '> largest'"
         )
     return CompareReport(
-        table, thresholds, areas, headline, scaling, base, value, threshold, settings, sc, notes
+        table,
+        thresholds,
+        areas,
+        headline,
+        scaling,
+        base,
+        value,
+        threshold,
+        settings,
+        sc,
+        notes,
+        tuple(refs) if len(refs) > 1 else (),
     )
+
+
+def _unit_notes(sc: StudyScores, tasks: list[str], refs: list[str], raw: list[str]) -> list[str]:
+    """What the units of a comparison are, and which tasks the means over tasks leave out."""
+    notes = []
+    if raw and refs:
+        notes.append(
+            f"differences are normalised except on tasks without floor/expert, in raw {sc.metric}: "
+            f"{', '.join(raw)}"
+        )
+        if len(refs) > 1:
+            notes.append(
+                f"means over tasks ('all') use only the {len(refs)} tasks with floor and expert; "
+                f"left out: {', '.join(raw)}"
+            )
+        else:
+            notes.append(
+                "no mean over tasks: only one task has floor and expert, and raw units of different "
+                "tasks do not average"
+            )
+    elif raw:
+        notes.append(f"no task has floor and expert: differences are in raw {sc.metric}")
+        if len(tasks) > 1:
+            notes.append("no mean over tasks: raw units of different tasks do not average")
+    if raw and not sc.higher_is_better:
+        notes.append(
+            f"lower {sc.metric} is better: a negative raw difference is an improvement "
+            "(P(improvement) and effective data count lower as better)"
+        )
+    return notes
+
+
+def seeds_report(
+    sc: StudyScores, baseline: str, *, effect: float, power: float = 0.8, alpha: float = 0.05
+) -> tuple[pd.DataFrame, list[str]]:
+    """Seeds each comparison needs to detect ``effect`` (normalised), with notes.
+
+    Only tasks with floor and expert count: ``effect`` is a normalised difference, and raw units
+    differ from task to task. Refused when no task has floor and expert.
+    """
+    from fewshot.stats.power import seeds_table
+
+    refs = sorted(set(sc.scores.loc[sc.scores["reference"] == "floor/expert", "task"]))
+    if not refs:
+        raise InvalidInput(
+            "no task has floor and expert, so a normalised effect means nothing here: add floor and "
+            "expert to the tasks in the study file."
+        )
+    normed = sc.scores[sc.scores["task"].isin(refs)]
+    table = seeds_table(
+        normed, baseline, effect=effect, power=power, alpha=alpha, value="normalised"
+    )
+    notes = []
+    left = sorted(set(sc.scores["task"]) - set(refs))
+    if left:
+        notes.append(f"tasks without floor/expert are left out: {', '.join(left)}")
+    return table, notes
 
 
 FIGURE_KINDS = ("curves", "aggregate", "difference", "summary", "profile", "scaling")
@@ -348,13 +530,20 @@ def make_figure(
             )
         return plots.aggregate_figure(rep.table, arms=arms, roles=roles, metric=rep.scores.metric)
     cmp = compare_report(ledger, settings, baseline=baseline, metric=metric, select=select)
-    unit = "normalised " + cmp.scores.metric if cmp.value == "normalised" else cmp.scores.metric
+    unit = {
+        "normalised": "normalised " + cmp.scores.metric,
+        "score": cmp.scores.metric,
+        "mixed": cmp.scores.metric + " (normalised where floor/expert exist)",
+    }[cmp.value]
     if kind == "difference":
         return plots.difference_figure(cmp.table, arms=arms, baseline=cmp.baseline, unit=unit)
     if kind == "summary":
         if len(cmp.areas):
+            areas = cmp.areas
+            if areas["sizes"].nunique() > 1:  # different ranges: each area labelled with its own
+                areas = areas.assign(task=areas["task"] + " (" + areas["sizes"] + ")")
             return plots.summary_figure(
-                cmp.areas, value="auc", label="area under the normalised curve (log size)"
+                areas, value="auc", label="area under the normalised curve (log size)"
             )
         eff = cmp.table[cmp.table["task"] != "all"]
         largest = eff.groupby(["arm", "task"])["size"].transform("max")

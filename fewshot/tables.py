@@ -16,6 +16,8 @@ __all__ = [
     "effective_cell",
     "threshold_cell",
     "transfer_rows",
+    "bound",
+    "flagged",
     "latex_table",
 ]
 
@@ -28,6 +30,8 @@ def number(x: float | None, digits: int = 3) -> str:
         return "inf" if x > 0 else "-inf"
     if abs(x) < 1e-12:  # floating-point residue of an exact zero (e.g. normalised floor)
         return "0"
+    if abs(x) >= 1e15:  # never print a number's every digit: 3.4e+307 is as wide as it gets
+        return f"{x:.{digits}g}"
     return f"{x:.{digits}g}" if abs(x) < 10**digits else f"{x:.0f}"
 
 
@@ -47,12 +51,31 @@ def effective_cell(row: pd.Series) -> str:
     )
     text = f"{mark}{number(row['effective'])} (x{number(row['multiplier'], 2)})"
     low = row.get("effective_low")
-    if not pd.isna(low) and not math.isinf(low):
+    if not pd.isna(low):
         high = row["effective_high"]
-        text += f" [{number(row['effective_low'])}, {'beyond ladder' if math.isinf(high) else number(high)}]"
+        both = math.isinf(low) and low > 0  # every resample beyond the ladder
+        text += " [beyond ladder]" if both else f" [{bound(low)}, {bound(high)}]"
     if row.get("hurts") and not row["censor"]:
         text += " hurts"
     return text
+
+
+def bound(x: float) -> str:
+    """An effective-data bound: an infinite one (a resample beyond the baseline's largest size)
+    reads "beyond ladder"."""
+    return "beyond ladder" if math.isinf(x) and x > 0 else number(x)
+
+
+FEW_SEEDS = 3  # below this many seeds a cell is flagged "!", as in the curves tables
+
+
+def flagged(text: str, n_seeds: object) -> str:
+    """``text`` with `` !`` when it rests on fewer than 3 seeds."""
+    try:
+        few = int(n_seeds) < FEW_SEEDS  # type: ignore[call-overload]
+    except (TypeError, ValueError):
+        return text
+    return f"{text} !" if few and text != "-" else text
 
 
 def threshold_cell(row: pd.Series) -> str:
@@ -68,20 +91,27 @@ def threshold_cell(row: pd.Series) -> str:
 
 
 def transfer_rows(table: pd.DataFrame) -> list[dict[str, str]]:
-    """The transfer table as text cells: arm, task, size, difference, P(improvement), effective data."""
+    """The transfer table as text cells: arm, task, size, difference, P(improvement), effective data.
+
+    Cells resting on fewer than 3 seeds end in `` !``.
+    """
     out = []
+    mixed = "unit" in table and table["unit"].nunique() > 1  # say each row's unit when they differ
     for _, r in table.iterrows():
+        n = r["n_seeds"]
         out.append(
             {
                 "arm": str(r["arm"]),
                 "task": str(r["task"]),
                 "size": str(r["size"]),
-                "difference": with_interval(r["difference"], r["low"], r["high"]),
-                "P(improvement)": with_interval(
-                    r.get("probability"), r.get("p_low"), r.get("p_high")
+                **({"unit": str(r["unit"])} if mixed else {}),
+                "difference": flagged(with_interval(r["difference"], r["low"], r["high"]), n),
+                "P(improvement)": flagged(
+                    with_interval(r.get("probability"), r.get("p_low"), r.get("p_high")),
+                    r.get("p_seeds", n),
                 ),
-                "effective data": effective_cell(r),
-                "seeds": str(r["n_seeds"]),
+                "effective data": flagged(effective_cell(r), n),
+                "seeds": str(n),
             }
         )
     return out

@@ -93,7 +93,7 @@ def test_next_record_done_fail_status_export(ready, tmp_path: Path):
     assert "1 of 21 runs done, 0 running, 1 failed, 19 planned" in status.output
     assert "CUDA went away" in status.output
     cells = run("status", "--ledger", ledger, "--format", "csv").stdout.splitlines()
-    assert cells[0] == "arm,size,done,running,failed,planned,total"
+    assert cells[0] == "arm,size,done,running,failed,planned,has_results,total"
     exported = run("export", "--ledger", ledger, "--format", "json")
     rows = json.loads(exported.stdout)
     assert len(rows) == 3 and {r["metric"] for r in rows} == {"return", "success", "length"}

@@ -249,10 +249,6 @@ def test_scaling_view_uses_the_shared_attribute():
             lambda f, s: paired_differences(f, "scratch", s, arms=["ghost"]),
             "arm 'ghost' has no scores",
         ),
-        (
-            lambda f, s: effective_data(f[~((f.arm == "scratch") & (f["size"] > 1))], "scratch", s),
-            "effective data needs its curve at two sizes",
-        ),
     ],
 )
 def test_bad_comparisons(call, fragment):

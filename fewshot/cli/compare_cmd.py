@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from enum import StrEnum
 from typing import Annotated
 
@@ -18,6 +17,7 @@ from fewshot.cli.common import (
     open_ledger,
     out,
     print_json,
+    records,
     reporting,
 )
 from fewshot.cli.stats_cmd import (
@@ -103,11 +103,12 @@ def compare(
                 "value": rep.value,
                 "rule": rep.scores.rule,
                 "threshold": rep.threshold,
-                "rows": json.loads(rep.table.to_json(orient="records")),
-                "thresholds": json.loads(rep.thresholds.to_json(orient="records")),
-                "areas": json.loads(rep.areas.to_json(orient="records")),
-                "headline": json.loads(rep.headline.to_json(orient="records")),
-                "scaling": json.loads(rep.scaling.to_json(orient="records")),
+                "tasks_in_all_rows": list(rep.over_tasks),
+                "rows": records(rep.table),
+                "thresholds": records(rep.thresholds),
+                "areas": records(rep.areas),
+                "headline": records(rep.headline),
+                "scaling": records(rep.scaling),
                 "notes": rep.notes,
             }
         )
@@ -122,23 +123,37 @@ def compare(
     print_transfer(rep)
 
 
+def _unit(rep) -> str:  # type: ignore[no-untyped-def]
+    m = rep.scores.metric
+    return {
+        "normalised": "normalised",
+        "score": m,
+        "mixed": f"normalised (raw {m} without floor/expert)",
+    }[rep.value]
+
+
 def _caption(rep) -> str:  # type: ignore[no-untyped-def]
-    unit = "normalised" if rep.value == "normalised" else rep.scores.metric
     s = rep.settings
     return (
-        f"Each arm against {rep.baseline}, paired by seed: difference in {unit} ({s.estimator}, "
+        f"Each arm against {rep.baseline}, paired by seed: difference in {_unit(rep)} ({s.estimator}, "
         f"{s.confidence:.0%} intervals), probability of improvement, effective data D_E (data multiplier)."
+        " ! = fewer than 3 seeds."
     )
+
+
+def _flag(text: str) -> Text:
+    t = Text(text)  # cells hold brackets: never read them as markup
+    t.highlight_regex(r" !$", "red")
+    return t
 
 
 def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
     """The transfer tables of a compare report, on the terminal."""
-    from fewshot.tables import threshold_cell, transfer_rows, with_interval
+    from fewshot.tables import flagged, threshold_cell, transfer_rows, with_interval
 
     rows = transfer_rows(rep.table)
-    unit = "normalised" if rep.value == "normalised" else rep.scores.metric
     table = Table(
-        title=f"against {rep.baseline}: {unit} difference, P(improvement), effective data",
+        title=f"against {rep.baseline}: {_unit(rep)} difference, P(improvement), effective data",
         title_justify="left",
     )
     for c in rows[0] if rows else []:
@@ -146,9 +161,7 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
             c, justify="right" if c not in ("arm", "task") else "left", no_wrap=c in ("arm", "task")
         )
     for r in rows:
-        table.add_row(
-            *[Text(v) for v in r.values()]
-        )  # cells hold brackets: never read them as markup
+        table.add_row(*[_flag(v) for v in r.values()])
     out.print(table)
     if len(rep.thresholds):
         t2 = Table(title=f"episodes to reach {rep.threshold:g} (normalised)", title_justify="left")
@@ -158,7 +171,7 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
             t2.add_row(
                 Text(str(r["arm"])),
                 Text(str(r["task"])),
-                Text(threshold_cell(r)),
+                _flag(flagged(threshold_cell(r), r["n_seeds"])),
                 str(r["n_seeds"]),
             )
         out.print(t2)
@@ -174,7 +187,7 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
                 str(r["arm"]),
                 str(r["task"]),
                 str(r["sizes"]),
-                Text(with_interval(r["auc"], r["low"], r["high"])),
+                _flag(flagged(with_interval(r["auc"], r["low"], r["high"]), r["n_seeds"])),
                 str(r["n_seeds"]),
             )
         out.print(t5)
@@ -211,6 +224,7 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
                 Text(with_interval(r["estimate"], r["low"], r["high"])),
             )
         out.print(t4)
+    out.print("[dim]\\[low, high] = interval; ! = fewer than 3 seeds[/]", markup=True)
     for note in rep.notes:
         err.print(f"note: {note}")
 
@@ -231,8 +245,7 @@ def seeds_needed_cmd(
     study: StudyOpt = None,
 ) -> None:
     """Seeds each comparison needs to detect --effect, by Welch's t power, from the spread seen so far."""
-    from fewshot.analysis import load_scores
-    from fewshot.stats.power import seeds_table
+    from fewshot.analysis import load_scores, seeds_report
 
     with reporting():
         led = open_ledger(ledger, study)
@@ -241,8 +254,8 @@ def seeds_needed_cmd(
             base = baseline or led.study_row()["baseline"]
         finally:
             led.close()
-        value = "normalised" if not sc.raw_tasks else "score"
-        table = seeds_table(sc.scores, base, effect=effect, power=power, alpha=alpha, value=value)
+        value = "normalised"
+        table, notes = seeds_report(sc, base, effect=effect, power=power, alpha=alpha)
         if table.empty:
             raise InvalidInput(
                 f"no comparison with {base!r} has 2 or more seeds on both sides yet: nothing to estimate from."
@@ -259,8 +272,8 @@ def seeds_needed_cmd(
                 "power": power,
                 "alpha": alpha,
                 "value": value,
-                "rows": json.loads(table.to_json(orient="records")),
-                "notes": [warn],
+                "rows": records(table),
+                "notes": [*notes, warn],
             }
         )
         return
@@ -300,4 +313,5 @@ def seeds_needed_cmd(
             needed,
         )
     out.print(t)
-    err.print(f"note: {warn}")
+    for note in [*notes, warn]:
+        err.print(f"note: {note}")

@@ -80,6 +80,9 @@ def record(
     replace: Annotated[
         bool, typer.Option("--replace", help="Overwrite a different earlier value.")
     ] = False,
+    done: Annotated[
+        bool, typer.Option("--done", help="Also mark the run done (its last results).")
+    ] = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -98,9 +101,14 @@ def record(
             for m, v in pairs
         ]
         led = open_ledger(ledger, study)
-        rep = led.record_lines(lines, replace=replace, source="cli")
-        led.close()
-    out.print(f"{run}: {rep.stored} stored, {rep.unchanged} unchanged, {rep.replaced} replaced")
+        try:
+            rep = led.record_lines(lines, replace=replace, source="cli", done=done)
+        finally:
+            led.close()
+    out.print(
+        f"{run}: {rep.stored} stored, {rep.unchanged} unchanged, {rep.replaced} replaced"
+        + ("; marked done" if done else "")
+    )
 
 
 def ingest(
@@ -164,11 +172,15 @@ def status(
                 "cells": json.loads(rep.cells.to_json(orient="records")),
                 "expired": json.loads(rep.expired.to_json(orient="records")),
                 "failed": json.loads(rep.failed.to_json(orient="records")),
+                "has_results_not_done": json.loads(rep.unmarked.to_json(orient="records")),
             }
         )
         return
     sizes = sorted(set(rep.cells["size"]))
-    table = Table(title=f"{rep.study}: runs done / total (running, failed)", title_justify="left")
+    table = Table(
+        title=f"{rep.study}: runs done / total (running, failed, has results but not marked done)",
+        title_justify="left",
+    )
     table.add_column("arm")
     for n in sizes:
         table.add_column(f"n{n}", justify="right")
@@ -184,6 +196,7 @@ def status(
                 [
                     f" [yellow]{c.running}r[/]" if c.running else "",
                     f" [red]{c.failed}f[/]" if c.failed else "",
+                    f" [cyan]{c.has_results}h[/]" if c.has_results else "",
                 ]
             )
             row.append(Text.from_markup(f"{c.done}/{c.total}{extra}"))
@@ -203,10 +216,24 @@ def status(
         for r in rep.failed.itertuples():
             first = (r.message or "").strip().splitlines()
             out.print(f"  {r.key}: {first[-1] if first else '(no message)'}")
+    if len(rep.unmarked):
+        keys = list(rep.unmarked["key"])
+        out.print(
+            f"[cyan]{len(keys)} run(s) have results, not marked done[/] (h): "
+            + ", ".join(keys[:5])
+            + (f" and {len(keys) - 5} more" if len(keys) > 5 else ""),
+            markup=True,
+        )
+        out.print(
+            "  mark each with `fewshot done RUN`; report a run's last result with "
+            "`fewshot record RUN ... --done` or `Ledger.record(..., done=True)` to do both at once"
+        )
     t = rep.totals
     out.print(
         f"{t['done']} of {t['total']} runs done, {t['running']} running, {t['failed']} failed, "
-        f"{t['planned']} planned  ({rep.ledger})"
+        f"{t['planned']} planned"
+        + (f", {t['has_results']} with results, not marked done" if t["has_results"] else "")
+        + f"  ({rep.ledger})"
     )
 
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import math
 from pathlib import Path
 from typing import Annotated
@@ -19,6 +18,7 @@ from fewshot.cli.common import (
     open_ledger,
     out,
     print_json,
+    records,
     reporting,
     styled,
 )
@@ -59,6 +59,27 @@ def _cell(row: pd.Series, show_n: bool) -> str:
     return f"{_fmt(row['estimate'])} [dim]\\[{_fmt(row['low'])}, {_fmt(row['high'])}]{n}[/]{flag}"
 
 
+def curve_title(report) -> str:  # type: ignore[no-untyped-def]
+    """What a curves table's numbers are: the estimator over seeds, or, across tasks, the
+    aggregates its rows actually hold."""
+    if report.kind == "per-task":
+        return f"{report.settings.estimator} over seeds"
+    names = list(dict.fromkeys(report.table["aggregate"])) if len(report.table) else []
+    shown = [AGGREGATE_NAMES.get(n, n) for n in names]
+    listed = (
+        ", ".join(shown[:-1]) + (" and " if len(shown) > 1 else "") + (shown[-1] if shown else "")
+    )
+    return f"{listed} of all runs pooled over tasks"
+
+
+AGGREGATE_NAMES = {
+    "iqm": "IQM",
+    "mean": "mean",
+    "median": "median",
+    "optimality_gap": "optimality gap",
+}
+
+
 def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     """The curves as a rich table: rows arm × task (or aggregate), columns sizes."""
     t = report.table
@@ -66,7 +87,7 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     label = "normalised " if report.value == "normalised" else ""
     s = report.settings
     title = (
-        f"{report.scores.metric} ({label}{report.kind}): {s.estimator} over seeds, "
+        f"{report.scores.metric} ({label}{report.kind}): {curve_title(report)}, "
         f"{s.confidence:.0%} {t['method'].iloc[0] if len(t) else s.method} intervals"
     )
     table = Table(title=title, title_justify="left")
@@ -158,7 +179,7 @@ def curves_cmd(
     table["rule"] = report.scores.rule
     table["value"] = report.value
     if fmt == "json":
-        print_json({"rows": json.loads(table.to_json(orient="records")), "notes": report.notes})
+        print_json({"rows": records(table), "notes": report.notes})
     elif fmt == "csv":
         typer.echo(table.to_csv(index=False), nl=False)
     elif fmt == "latex":
@@ -179,7 +200,7 @@ def curves_cmd(
         typer.echo(
             latex_table(
                 rows,
-                f"{s.estimator} of {report.scores.metric} over seeds with {s.confidence:.0%} "
+                f"{curve_title(report)} of {report.scores.metric} with {s.confidence:.0%} "
                 f"{report.table['method'].iloc[0]} intervals ({s.resamples} resamples).",
             ),
             nl=False,

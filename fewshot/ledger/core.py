@@ -301,8 +301,13 @@ class Ledger:
         subset_digest: str | None = None,
         budget: dict[str, float] | None = None,
         replace: bool = False,
+        done: bool = False,
     ) -> StoreReport:
-        """Record one result of ``run``; see the module ``fewshot.ledger.results`` for the rules."""
+        """Record one result of ``run``; see the module ``fewshot.ledger.results`` for the rules.
+
+        ``done=True`` also marks the run done, in the same transaction (for the last result a
+        trainer reports): without it a run whose results are all in still counts as not done.
+        """
         line = check_line(
             run,
             metric,
@@ -312,16 +317,26 @@ class Ledger:
             subset_digest=subset_digest,
             budget=budget,
         )
-        return self.record_lines([line], replace=replace)
+        return self.record_lines([line], replace=replace, done=done)
 
     def record_lines(
-        self, lines: Sequence[ResultLine], *, replace: bool = False, source: str = "api"
+        self,
+        lines: Sequence[ResultLine],
+        *,
+        replace: bool = False,
+        source: str = "api",
+        done: bool = False,
     ) -> StoreReport:
-        """Record several checked results at once: all of them or none."""
+        """Record several checked results at once: all of them or none. ``done=True`` also marks
+        their runs done, in the same transaction."""
 
         def go(c: Connection) -> StoreReport:
             sid, name = self._sid(c)
-            return store_results(c, sid, name, lines, replace=replace, source=source)
+            report = store_results(c, sid, name, lines, replace=replace, source=source)
+            if done:
+                for key in dict.fromkeys(ln.run for ln in lines):
+                    finish_run(c, find_run(c, sid, key, name), "done", None)
+            return report
 
         return self._tx(go)
 
@@ -505,7 +520,27 @@ class Ledger:
     def status(self) -> StatusReport:
         """The study's completion: runs per arm and size by status, expired leases, failures."""
         runs = self.runs()
-        return summarise(self.study, self.url, runs)
+        return summarise(self.study, self.url, runs, with_results=self._final_result_runs())
+
+    def _final_result_runs(self) -> set[str]:
+        """Keys of runs that are not done yet hold a final result of the study's metric."""
+
+        def go(c: Connection) -> set[str]:
+            sid, _ = self._sid(c)
+            metric = c.execute(select(StudyRow.metric).where(StudyRow.id == sid)).scalar_one()
+            q = (
+                select(RunRow.key)
+                .join(ResultRow, ResultRow.run_id == RunRow.id)
+                .where(
+                    RunRow.study_id == sid,
+                    RunRow.status.in_(["planned", "running"]),
+                    ResultRow.metric == metric,
+                    ResultRow.step == FINAL_STEP,
+                )
+            )
+            return set(c.execute(q).scalars())
+
+        return self._tx(go)
 
     def tasks(self) -> pd.DataFrame:
         """The study's tasks: columns task, group, floor, expert, pool_file, pool_digest."""

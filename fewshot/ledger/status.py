@@ -7,9 +7,10 @@ from dataclasses import dataclass
 
 import pandas as pd
 
-__all__ = ["StatusReport", "STATUSES", "summarise"]
+__all__ = ["StatusReport", "STATUSES", "UNMARKED", "summarise"]
 
 STATUSES = ("done", "running", "failed", "planned")
+UNMARKED = "has_results"  # not a stored status: planned or running, yet its final result is in
 
 
 @dataclass(frozen=True)
@@ -22,13 +23,18 @@ class StatusReport:
     ledger : str
         The ledger's URL, password masked.
     cells : pandas.DataFrame
-        One row per (arm, size): columns arm, size, done, running, failed, planned, total.
+        One row per (arm, size): columns arm, size, done, running, failed, planned, has_results,
+        total. ``has_results`` counts runs not marked done whose final result of the study's
+        metric is recorded ("has results, not marked done"); they are not counted as planned or
+        running.
     totals : dict of str to int
-        Runs per status and ``total``.
+        Runs per status, ``has_results`` and ``total``.
     expired : pandas.DataFrame
         Running runs whose lease has expired: key, worker, attempts, lease_expired_s_ago.
     failed : pandas.DataFrame
         Failed runs: key, attempts, message.
+    unmarked : pandas.DataFrame
+        Runs with results, not marked done: key, status.
     """
 
     study: str
@@ -37,33 +43,46 @@ class StatusReport:
     totals: dict[str, int]
     expired: pd.DataFrame
     failed: pd.DataFrame
+    unmarked: pd.DataFrame
 
 
 def summarise(
-    study: str, ledger: str, runs: pd.DataFrame, now: float | None = None
+    study: str,
+    ledger: str,
+    runs: pd.DataFrame,
+    now: float | None = None,
+    *,
+    with_results: set[str] | frozenset[str] = frozenset(),
 ) -> StatusReport:
-    """Build a :class:`StatusReport` from :meth:`Ledger.runs`' table."""
+    """Build a :class:`StatusReport` from :meth:`Ledger.runs`' table.
+
+    ``with_results`` holds the keys of runs whose final result is recorded; those that are not
+    done or failed are counted as "has results, not marked done".
+    """
     now = time.time() if now is None else now
+    kinds = (*STATUSES, UNMARKED)
+    unmarked_mask = runs["key"].isin(with_results) & runs["status"].isin(["planned", "running"])
+    shown = runs.assign(status=runs["status"].where(~unmarked_mask, UNMARKED))
     counts = (
-        runs.groupby(["arm", "size", "status"], sort=False).size().unstack("status", fill_value=0)
+        shown.groupby(["arm", "size", "status"], sort=False).size().unstack("status", fill_value=0)
         if len(runs)
-        else pd.DataFrame(columns=list(STATUSES))
+        else pd.DataFrame(columns=list(kinds))
     )
-    for s in STATUSES:
+    for s in kinds:
         if s not in counts.columns:
             counts[s] = 0
     cells = (
-        counts[list(STATUSES)].reset_index()
+        counts[list(kinds)].reset_index()
         if len(runs)
-        else pd.DataFrame(columns=["arm", "size", *STATUSES])
+        else pd.DataFrame(columns=["arm", "size", *kinds])
     )
-    cells["total"] = cells[list(STATUSES)].sum(axis=1)
+    cells["total"] = cells[list(kinds)].sum(axis=1)
     order = {a: i for i, a in enumerate(dict.fromkeys(runs["arm"]))}
     cells = cells.sort_values(
         ["arm", "size"], key=lambda col: col.map(order) if col.name == "arm" else col
     )
-    cells = cells.reset_index(drop=True).astype({s: int for s in (*STATUSES, "total")})
-    totals = {s: int((runs["status"] == s).sum()) for s in STATUSES}
+    cells = cells.reset_index(drop=True).astype({s: int for s in (*kinds, "total")})
+    totals = {s: int((shown["status"] == s).sum()) for s in kinds}
     totals["total"] = len(runs)
     running = runs[(runs["status"] == "running") & (runs["lease_expires"].fillna(now) < now)]
     expired = pd.DataFrame(
@@ -77,4 +96,5 @@ def summarise(
     failed = runs.loc[runs["status"] == "failed", ["key", "attempts", "message"]].reset_index(
         drop=True
     )
-    return StatusReport(study, ledger, cells, totals, expired, failed)
+    unmarked = runs.loc[unmarked_mask, ["key", "status"]].reset_index(drop=True)
+    return StatusReport(study, ledger, cells, totals, expired, failed, unmarked)

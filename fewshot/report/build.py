@@ -13,7 +13,7 @@ from fewshot.ledger import Ledger
 from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
 from fewshot.stats import CurveSettings
 from fewshot.stats.coverage import coverage_sentence
-from fewshot.tables import number, threshold_cell, transfer_rows, with_interval
+from fewshot.tables import flagged, number, threshold_cell, transfer_rows, with_interval
 
 __all__ = ["build_report", "write_report", "HARDWARE_CAUTION"]
 
@@ -209,7 +209,7 @@ def build_report(
                     {
                         "arm": r["arm"],
                         "task": r["task"],
-                        "episodes": threshold_cell(r),
+                        "episodes": flagged(threshold_cell(r), r["n_seeds"]),
                         "seeds": str(r["n_seeds"]),
                     }
                     for _, r in cmp.thresholds.iterrows()
@@ -221,7 +221,7 @@ def build_report(
                     {
                         "arm": r["arm"],
                         "task": r["task"],
-                        "area": with_interval(r["auc"], r["low"], r["high"]),
+                        "area": flagged(with_interval(r["auc"], r["low"], r["high"]), r["n_seeds"]),
                         "sizes": r["sizes"],
                         "seeds": str(r["n_seeds"]),
                     }
@@ -283,6 +283,16 @@ def _methods(curves, settings: CurveSettings, cmp) -> str:  # type: ignore[no-un
         "Aggregates over tasks pool the normalised scores of all runs and use a stratified bootstrap (seeds resampled "
         "within each task).",
     ]
+    if not curves.scores.higher_is_better:
+        parts.append(
+            f"Lower {curves.scores.metric} is better: every statistic was computed on normalised scores (0 at the "
+            "floor, 1 at the expert) or, for tasks without them, on the negated raw score, so that higher is better "
+            "throughout; raw values are shown back in the metric's own units."
+        )
+    if cmp is not None and cmp.value != "normalised":
+        parts.append(
+            "Tasks without floor and expert are compared in raw units and left out of every mean over tasks."
+        )
     if cmp is not None:
         parts.append(
             f"Arms were compared with {cmp.baseline} on the same subsets, paired by seed. Effective data transferred is "

@@ -4,7 +4,15 @@ from fewshot.stats.aggregate import AGGREGATE_COLUMNS, aggregate_curves
 from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS, CellIntervals, bootstrap_cells
 from fewshot.stats.curves import CURVE_COLUMNS, CurveSettings, curves, variance_share
 from fewshot.stats.estimators import AGGREGATES, ESTIMATORS, iqm, optimality_gap
-from fewshot.stats.scores import SCORE_COLUMNS, ScoreRule, normalise, parse_rule, run_scores
+from fewshot.stats.scores import (
+    SCORE_COLUMNS,
+    ScoreRule,
+    normalise,
+    orient,
+    parse_rule,
+    run_scores,
+    to_metric_units,
+)
 
 __all__ = [
     "AGGREGATES",
@@ -23,7 +31,9 @@ __all__ = [
     "iqm",
     "normalise",
     "optimality_gap",
+    "orient",
     "parse_rule",
     "run_scores",
+    "to_metric_units",
     "variance_share",
 ]

@@ -134,9 +134,23 @@ def bootstrap_cells(
     With replicates, each resample draws seeds, then replicates within each drawn seed,
     so the interval carries both sources of variance; the estimator then sees the mean
     of each seed's replicates. ``is_mean`` says the estimator is the mean (for the
-    closed-form t and bootstrap-t intervals).
+    closed-form t and bootstrap-t intervals). Cells with values beyond 2^300 are scaled by a
+    power of two first (so the estimator must be scale-equivariant, as mean, median and IQM are).
     """
     data = _iv(values, method, confidence, resamples, is_mean)
+    scale = _huge_scale(data)
+    if scale is not None:  # values near 1e200: squares and cubes would overflow to inf
+        res = bootstrap_cells(
+            data * scale[:, None, None],
+            estimator,
+            method=method,
+            confidence=confidence,
+            resamples=resamples,
+            rng=rng,
+            is_mean=is_mean,
+            keep_distribution=keep_distribution,
+        )
+        return _unscaled(res, scale)
     cells, n, r = data.shape
     seed_level = data.mean(axis=2)
     estimate = np.asarray(estimator(seed_level), dtype=float)
@@ -202,6 +216,50 @@ def bootstrap_cells(
     )
 
 
+HUGE = 2.0**300  # beyond this, s², the skewness's cubes and sums of squares may overflow
+
+
+def _huge_scale(data: np.ndarray) -> np.ndarray | None:
+    """Per cell, a power of two that brings the largest |value| near 1, when some cell is huge.
+
+    Multiplying by a power of two is exact in floating point, and every estimator and interval
+    here is scale-equivariant (mean, median, IQM; t, Hall, BCa, percentile), so the intervals of
+    the scaled cells, scaled back, are those of the originals, without overflow. None when no
+    cell needs it (then nothing is touched).
+    """
+    peak = np.abs(data).max(axis=(1, 2)) if data.size else np.zeros(len(data))
+    if not (peak >= HUGE).any():
+        return None
+    _, exponent = np.frexp(peak)
+    return np.where(peak >= HUGE, np.ldexp(1.0, -exponent), 1.0)
+
+
+def _unscaled(res: CellIntervals, scale: np.ndarray) -> CellIntervals:
+    back = 1.0 / scale
+    dist = None if res.distribution is None else res.distribution * back[:, None]
+    return CellIntervals(
+        res.estimate * back,
+        res.low * back,
+        res.high * back,
+        res.se * back,
+        res.n,
+        res.replicates,
+        res.method,
+        res.confidence,
+        res.resamples,
+        res.degenerate,
+        dist,
+    )
+
+
+def _row_scale(x: np.ndarray) -> np.ndarray:
+    """Per row, a power of two that brings the largest finite |value| near 1 (exact scaling)."""
+    with np.errstate(invalid="ignore"):
+        peak = np.nanmax(np.where(np.isfinite(x), np.abs(x), np.nan), axis=1, initial=0.0)
+    _, exponent = np.frexp(peak)
+    return np.ldexp(1.0, -exponent)[:, None]
+
+
 @dataclass(frozen=True)
 class _Dist:
     """A bootstrap distribution held compactly: the distinct resampled values of each cell and
@@ -226,8 +284,10 @@ class _Dist:
 
     def std(self) -> np.ndarray:
         w = self.weights
-        mean = (self.values * w).sum(axis=1) / w.sum()
-        return np.sqrt(((self.values - mean[:, None]) ** 2 * w).sum(axis=1) / (w.sum() - 1))
+        c = _row_scale(self.values)  # scaled first: the squares of values near 1e200 overflow
+        v = self.values * c
+        mean = (v * w).sum(axis=1) / w.sum()
+        return np.sqrt(((v - mean[:, None]) ** 2 * w).sum(axis=1) / (w.sum() - 1)) / c[:, 0]
 
     def count(self, estimate: np.ndarray, *, inclusive: bool) -> np.ndarray:
         hit = self.values <= estimate[:, None] if inclusive else self.values < estimate[:, None]

@@ -9,13 +9,19 @@ O(k³) cost is nothing. It equals scikit-learn's ``IsotonicRegression`` (tested)
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 
 __all__ = ["isotonic_rows", "first_reach", "interpolate_log"]
 
 
 def isotonic_rows(y: np.ndarray) -> np.ndarray:
-    """Non-decreasing least-squares fit of every row of ``y`` (rows × points), equal weights."""
+    """Non-decreasing least-squares fit of every row of ``y`` (rows × points), equal weights.
+
+    Rows must be higher-is-better (a lower-is-better curve is negated before it gets here, by
+    :func:`fewshot.stats.scores.orient`); a row with a missing point is NaN.
+    """
     rows, k = y.shape
     csum = np.concatenate([np.zeros((rows, 1)), np.cumsum(y, axis=1)], axis=1)
     j = np.arange(k)[:, None]
@@ -26,10 +32,12 @@ def isotonic_rows(y: np.ndarray) -> np.ndarray:
         )  # rows × j × end: mean(y_j..y_end)
     means = np.where(e >= j, means, np.nan)
     out = np.empty_like(y, dtype=float)
-    for i in range(k):
-        inner = np.nanmin(means[:, : i + 1, i:], axis=2)  # min over end >= i, for each start j <= i
-        out[:, i] = np.nanmax(inner, axis=1)
-    return out
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # rows of missing runs stay NaN, quietly
+        for i in range(k):
+            inner = np.nanmin(means[:, : i + 1, i:], axis=2)  # min over end >= i, per start j <= i
+            out[:, i] = np.nanmax(inner, axis=1)
+    return np.where(np.isnan(y).any(axis=1, keepdims=True), np.nan, out)
 
 
 def interpolate_log(sizes: np.ndarray, k: np.ndarray, frac: np.ndarray) -> np.ndarray:

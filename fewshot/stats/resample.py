@@ -18,11 +18,22 @@ from scipy import special, stats
 
 from fewshot.stats.curves import CurveSettings
 
-__all__ = ["CurveResampler", "nan_estimate", "expanded_level", "interval"]
+__all__ = ["CurveResampler", "nan_estimate", "expanded_level", "interval", "quantile_inf"]
 
 
 def nan_estimate(name: str, x: np.ndarray) -> np.ndarray:
-    """Estimator over the last axis that leaves out missing runs (NaN)."""
+    """Estimator over the last axis that leaves out missing runs (NaN); NaN where all are missing.
+
+    A cell with no run at all (e.g. a baseline run not yet reported) is NaN, quietly: numpy's
+    "Mean of empty slice" / "All-NaN slice" warnings would only reach the user as noise.
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return _nan_estimate(name, x)
+
+
+def _nan_estimate(name: str, x: np.ndarray) -> np.ndarray:
     if name == "mean":
         return np.nanmean(x, axis=-1)
     if name == "median":
@@ -53,14 +64,34 @@ def interval(draws: np.ndarray, confidence: float, n: int) -> tuple[float, float
     if n < 2:
         return float("nan"), float("nan")
     a = expanded_level(confidence, n)
-    kept = draws[~np.isnan(draws)]
+    kept = np.sort(draws[~np.isnan(draws)])
     if kept.size == 0:
         return float("nan"), float("nan")
-    # censored draws are +-inf: quantile them as the largest floats, then give the infinity back
-    big = np.finfo(float).max
-    lo, hi = np.quantile(np.clip(kept, -big, big), [a, 1 - a], method="linear")
-    back = lambda v: float(np.inf if v >= big else -np.inf if v <= -big else v)  # noqa: E731
-    return back(lo), back(hi)
+    return quantile_inf(kept, a), quantile_inf(kept, 1 - a)
+
+
+def quantile_inf(ordered: np.ndarray, q: float) -> float:
+    """numpy's default (linear) quantile of sorted values that may hold +-inf (censored draws).
+
+    Between two finite neighbours this is ``np.quantile(x, q)``. Next to an infinite neighbour the
+    quantile is that infinity: a quantile between the last finite resample and the first one
+    beyond the ladder is beyond the ladder too, never a number interpolated against the largest
+    float. (Interpolating with an infinity by hand gives inf - inf = NaN at exact positions, which
+    is why this is not left to numpy.)
+    """
+    m = len(ordered)
+    pos = q * (m - 1)  # numpy's "linear" method (Hyndman & Fan type 7)
+    k = int(np.floor(pos))
+    frac = pos - k
+    lo = float(ordered[k])
+    if frac == 0 or k + 1 >= m:
+        return lo
+    hi = float(ordered[k + 1])
+    if np.isinf(lo) or np.isinf(hi):
+        if np.isinf(lo) and np.isinf(hi) and lo != hi:  # -inf next to +inf: the nearer one
+            return lo if frac < 0.5 else hi
+        return hi if np.isinf(hi) and hi > 0 else lo if np.isinf(lo) else hi
+    return float(lo + (hi - lo) * frac) if frac < 0.5 else float(hi - (hi - lo) * (1 - frac))
 
 
 class CurveResampler:

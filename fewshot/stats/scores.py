@@ -25,7 +25,15 @@ import pandas as pd
 
 from fewshot.errors import InvalidInput
 
-__all__ = ["SCORE_COLUMNS", "ScoreRule", "parse_rule", "run_scores", "normalise"]
+__all__ = [
+    "SCORE_COLUMNS",
+    "ScoreRule",
+    "parse_rule",
+    "run_scores",
+    "normalise",
+    "orient",
+    "to_metric_units",
+]
 
 SCORE_COLUMNS = [
     "arm",
@@ -163,3 +171,52 @@ def normalise(
     )
     out["reference"] = np.where(has, "floor/expert", "none")
     return out.drop(columns=["floor", "expert"])
+
+
+def orient(
+    scores: pd.DataFrame, tasks: pd.DataFrame, *, higher_is_better: bool = True
+) -> pd.DataFrame:
+    """The one place the metric's direction is applied: every statistic downstream reads
+    values where higher is better.
+
+    Adds to :func:`normalise`'s columns:
+
+    ``oriented``
+        The raw score turned so that higher is better: ``score`` for a higher-is-better metric,
+        ``-score`` for a lower-is-better one (a loss of 2 is better than a loss of 3, and -2 > -3).
+    ``value``
+        What comparisons use, chosen per task: ``normalised`` where the task has floor and
+        expert, else ``oriented``. ``reference`` says which.
+
+    Normalised scores need no turning: ``(score - floor) / (expert - floor)`` is 0 at the floor
+    and 1 at the expert whichever way the metric runs. Tables that show raw values turn them back
+    with :func:`to_metric_units`.
+    """
+    out = normalise(scores, tasks, higher_is_better=higher_is_better)
+    out["oriented"] = out["score"] if higher_is_better else -out["score"]
+    out["value"] = np.where(out["reference"] == "floor/expert", out["normalised"], out["oriented"])
+    return out
+
+
+def to_metric_units(
+    table: pd.DataFrame,
+    *,
+    higher_is_better: bool,
+    columns: tuple[str, str, str] = ("estimate", "low", "high"),
+    rows: pd.Series | None = None,
+) -> pd.DataFrame:
+    """Turn oriented values (higher is better) back into the metric's own units for display.
+
+    ``columns`` is (estimate, low, high): for a lower-is-better metric the estimate is negated and
+    the interval's ends are negated and swapped. ``rows`` (a boolean mask) limits the change to
+    rows in raw units; by default every row. Returns a new table.
+    """
+    if higher_is_better or table.empty:
+        return table
+    est, lo, hi = columns
+    mask = pd.Series(True, index=table.index) if rows is None else rows.astype(bool)
+    out = table.copy()
+    out.loc[mask, est] = -table.loc[mask, est]
+    out.loc[mask, lo] = -table.loc[mask, hi]
+    out.loc[mask, hi] = -table.loc[mask, lo]
+    return out

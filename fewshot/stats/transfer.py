@@ -34,6 +34,7 @@ __all__ = [
     "threshold_sizes",
     "effective_data",
     "curve_areas",
+    "thin_baselines",
 ]
 
 
@@ -82,11 +83,14 @@ def paired_differences(
     *,
     value: str = "score",
     arms: list[str] | None = None,
+    over: list[str] | None = None,
 ) -> pd.DataFrame:
     """Arm minus baseline per (arm, task, size), paired by seed, plus each arm's mean over tasks.
 
-    Columns: arm, task (``"all"`` for the mean over tasks), size, difference, low, high, n_seeds,
-    method, note.
+    ``value`` must be higher-is-better (see :func:`fewshot.stats.scores.orient`). ``over`` names
+    the tasks whose differences may be averaged (tasks in one unit, e.g. normalised); by default
+    every task. Columns: arm, task (``"all"`` for the mean over tasks), size, difference, low,
+    high, n_seeds, method, note.
     """
     settings.check()
     chosen = check_baseline(scores, baseline, arms)
@@ -169,7 +173,8 @@ def paired_differences(
         rows,
         columns=["arm", "task", "size", "difference", "low", "high", "n_seeds", "method", "note"],
     )
-    across = _across_tasks(scores, baseline, chosen, settings, value)
+    pool = scores if over is None else scores[scores["task"].isin(over)]
+    across = _across_tasks(pool, baseline, chosen, settings, value)
     return pd.concat([frame, across], ignore_index=True) if len(across) else frame
 
 
@@ -228,10 +233,12 @@ def improvement_probability(
     *,
     value: str = "score",
     arms: list[str] | None = None,
+    over: list[str] | None = None,
 ) -> pd.DataFrame:
     """P(arm > baseline) per (arm, task, size) and averaged over tasks (task ``"all"``).
 
-    Columns: arm, task, size, probability, low, high, n_seeds.
+    ``value`` must be higher-is-better; ``over`` names the tasks the average may use (default:
+    all). Columns: arm, task, size, probability, low, high, n_seeds.
     """
     chosen = check_baseline(scores, baseline, arms)
     rs = CurveResampler(scores, value, settings)
@@ -265,7 +272,8 @@ def improvement_probability(
                         "n_seeds": n,
                     }
                 )
-                per_task.setdefault(int(size), []).append((p, draws, n))
+                if over is None or task in over:
+                    per_task.setdefault(int(size), []).append((p, draws, n))
         for size, items in sorted(per_task.items()):
             if len(items) < 2:
                 continue
@@ -362,7 +370,9 @@ def effective_data(
 ) -> pd.DataFrame:
     """Effective data transferred per (arm, task, size >= 1).
 
-    Columns: arm, task, size, arm_estimate, effective (D_E), transferred (D_T = D_E - n), multiplier
+    ``value`` must be higher-is-better (see :func:`fewshot.stats.scores.orient`): the baseline's
+    curve is fitted non-decreasing. Tasks where the baseline has results at fewer than two sizes
+    >= 1 have no curve to read and are left out (:func:`thin_baselines` names them). Columns: arm, task, size, arm_estimate, effective (D_E), transferred (D_T = D_E - n), multiplier
     (D_E / n) with lows and highs, censor (``""``; ``"lower_bound"`` when the arm beats the baseline's
     best point, so D_E exceeds the largest size; ``"upper_bound"`` when the arm is below the baseline's
     smallest point), hurts (D_T < 0: pretraining that hurts), n_seeds.
@@ -378,10 +388,7 @@ def effective_data(
             b_sizes = rs.sizes(baseline, task)
             b_sizes = b_sizes[b_sizes > 0]
             if len(b_sizes) < 2:
-                raise InvalidInput(
-                    f"baseline {baseline!r} has results at {len(b_sizes)} size(s) >= 1 on task {task!r}; "
-                    "effective data needs its curve at two sizes or more."
-                )
+                continue
             a_sizes = rs.sizes(arm, task)
             a_sizes = a_sizes[a_sizes > 0]
             fit = isotonic_rows(rs.point(baseline, task, b_sizes)[None, :])
@@ -417,6 +424,14 @@ def effective_data(
     return pd.DataFrame(rows)
 
 
+def thin_baselines(scores: pd.DataFrame, baseline: str, *, value: str = "score") -> list[str]:
+    """Tasks where ``baseline`` has results at fewer than two sizes >= 1 (no curve to read)."""
+    data = scores.dropna(subset=[value])
+    data = data[(data["arm"] == baseline) & (data["size"] > 0)]
+    counts = data.groupby("task")["size"].nunique()
+    return sorted(t for t in scores["task"].unique() if counts.get(t, 0) < 2)
+
+
 def _read_off(
     fit: np.ndarray, sizes: np.ndarray, level: np.ndarray, *, censored: bool = False
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -444,6 +459,9 @@ def _read_off(
         above, top_value, np.where(below, bottom_value, np.where(k == 0, sizes[0], inside))
     )
     censor = np.where(above, "lower_bound", np.where(below, "upper_bound", ""))
+    # a resample that drew only missing runs has no level or no fit: no value, not a size
+    missing = np.isnan(level) | np.isnan(fit).any(axis=1)
+    d_e = np.where(missing, np.nan, d_e)
     return d_e.astype(float), censor
 
 
