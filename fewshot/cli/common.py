@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -141,6 +142,47 @@ def duration(text: str, *, option: str) -> float:
     if not value > 0:
         raise InvalidInput(f"{option} must be longer than zero. Got {text!r}.")
     return value
+
+
+def attempt_for(run: str, given: int | None) -> int | None:
+    """The attempt a write about ``run`` carries: ``--attempt``, else ``FEWSHOT_ATTEMPT`` when the
+    work loop set it for this very run (``FEWSHOT_RUN``), else None (a write by hand)."""
+    if given is not None:
+        if given < 1:
+            raise InvalidInput(f"--attempt must be 1 or more. Got {given}.")
+        return given
+    raw = os.environ.get("FEWSHOT_ATTEMPT", "").strip()
+    if not raw or os.environ.get("FEWSHOT_RUN") != run:
+        return None
+    if not raw.isdigit() or not 1 <= int(raw) <= 2**63 - 1:
+        raise InvalidInput(
+            f"FEWSHOT_ATTEMPT must be a whole number of 1 or more (the work loop sets it). Got {raw!r}."
+        )
+    return int(raw)
+
+
+AttemptOpt = Annotated[
+    int | None,
+    typer.Option(
+        "--attempt",
+        help="The attempt this write belongs to (default: FEWSHOT_ATTEMPT, when FEWSHOT_RUN is "
+        "this run). A newer attempt's run is never marked by an older one.",
+    ),
+]
+
+
+def lease_seconds(text: str) -> float:
+    """``--lease`` in seconds: a duration from the lease floor (30 s) to 30 days."""
+    from fewshot.ledger.core import min_lease
+
+    seconds = duration(text, option="--lease")
+    floor = min_lease()
+    if seconds < floor:
+        raise InvalidInput(
+            f"--lease must be at least {floor:g}s: a shorter lease runs out while a busy machine "
+            f"renews it, and the run is then started twice. Got {text!r}."
+        )
+    return seconds
 
 
 def open_ledger(ledger: str | None, study: str | None, *, create: bool = False) -> Any:
