@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import json
 import math
 import os
@@ -16,6 +17,7 @@ from sqlalchemy import Connection, Engine, func, insert, select
 from sqlalchemy.exc import IntegrityError, OperationalError
 
 from fewshot.errors import FewshotError
+from fewshot.ledger import draws_undo
 from fewshot.ledger.engine import (
     LedgerError,
     first_line,
@@ -252,7 +254,23 @@ class Ledger:
     def plan(self, study: Study) -> PlanReport:
         """Draw every task's subsets and plan every run of ``study`` not yet planned."""
         draws = draw_all(study)
-        report = self._tx(lambda c: plan_study(c, study, draws))
+        before = draws_undo.snapshot(study.draws_dir, [t.name for t in study.tasks])
+        try:
+            report = self._tx(lambda c: plan_study(c, study, draws))
+        except BaseException as exc:
+            # the transaction failed: the ledger is as it was, and so must the draws be
+            draws_undo.restore(before)
+            if isinstance(exc, OSError):
+                raise LedgerError(
+                    f"cannot write the draws under {study.draws_dir} ({exc.strerror or exc}): "
+                    "nothing was planned and the draws were left as they were. "
+                    + (
+                        "Free some space on that disk, then run init again."
+                        if exc.errno == errno.ENOSPC
+                        else "Check that you may write there, then run init again."
+                    )
+                ) from None
+            raise
         if self._study_name is None:
             self._study_name = study.name
         return report

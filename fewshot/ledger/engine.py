@@ -22,7 +22,7 @@ from alembic import command
 from alembic.config import Config
 from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
-from sqlalchemy import Engine, create_engine, event, text
+from sqlalchemy import Engine, create_engine, event, inspect, text
 from sqlalchemy.engine import make_url
 from sqlalchemy.exc import ArgumentError, DBAPIError
 
@@ -45,6 +45,11 @@ DEFAULT_LEDGER = "fewshot.sqlite"
 # number unlikely to be used by another application of the same database: b"fewshot" as an integer).
 SCHEMA_LOCK_KEY = int.from_bytes(b"fewshot", "big")
 T = TypeVar("T")
+# The tables of a fewshot ledger (a database holding any of them without fewshot's schema
+# revision belongs to another program).
+LEDGER_TABLES = frozenset(
+    {"study", "arm", "task", "draw", "subset", "run", "result", "result_value"}
+)
 
 
 class LedgerError(FewshotError, RuntimeError):
@@ -216,6 +221,15 @@ def upgrade_schema(engine: Engine, *, revision: str = "head") -> None:
                 # find it at the head revision. Released when this transaction ends.
                 conn.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": SCHEMA_LOCK_KEY})
             current = MigrationContext.configure(conn).get_current_revision()
+            if current is None:
+                clash = sorted(LEDGER_TABLES & set(inspect(conn).get_table_names()))
+                if clash:
+                    raise LedgerError(
+                        f"the database {mask_url(str(engine.url))} holds tables of another program "
+                        f"({', '.join(clash)}) and no fewshot schema, so it is not a fewshot "
+                        "ledger; it was left as it is. Give fewshot a database (or schema) of its "
+                        "own."
+                    )
             if current is not None and current not in known:
                 raise LedgerError(
                     f"the ledger {mask_url(str(engine.url))} has schema revision {current!r}, which "

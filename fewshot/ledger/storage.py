@@ -16,12 +16,11 @@ from urllib.parse import quote
 
 from sqlalchemy.exc import DBAPIError
 
-from fewshot.ledger.engine import LedgerError, first_line, is_locked, mask_url
+from fewshot.ledger.engine import LEDGER_TABLES, LedgerError, first_line, is_locked, mask_url
 
 __all__ = ["check_ledger_file", "storage_error", "LEDGER_TABLES"]
 
 SQLITE_MAGIC = b"SQLite format 3\x00"
-LEDGER_TABLES = {"study", "arm", "task", "draw", "subset", "run", "result", "result_value"}
 # Below this many free bytes a write error of SQLite is a full disk.
 FULL_DISK_BYTES = 1 << 20
 
@@ -77,9 +76,10 @@ def _tables(path: Path) -> set[str]:
             conn.close()
     except sqlite3.DatabaseError as exc:
         text = str(exc).lower()
-        if "locked" in text or "busy" in text:
-            return set(LEDGER_TABLES) | {"alembic_version"}  # a writer holds it: a live ledger
-        raise _damaged(path, str(exc)) from None
+        if "not a database" in text or "malformed" in text:
+            raise _damaged(path, str(exc)) from None
+        # locked by a writer, or the disk is full: opening it for real says more
+        return set()
     return {r[0] for r in rows if not r[0].startswith("sqlite_")}
 
 
