@@ -37,15 +37,37 @@ class TableOrJson(StrEnum):
 def reporting() -> Iterator[None]:
     """Turn a :class:`FewshotError` into its message on stderr and exit status 2.
 
-    With ``fewshot --debug`` the exception propagates with its traceback.
+    With ``fewshot --debug`` the exception propagates with its traceback. Either way every
+    password in the messages is masked (:func:`fewshot.masking.mask_secrets`).
     """
     try:
         yield
     except FewshotError as exc:
         if STATE["debug"]:
+            _mask_chain(exc)
             raise
         err.print(styled("[bold red]error:[/] {}", mask_secrets(str(exc))))
         raise typer.Exit(2) from None
+    except Exception as exc:  # a bug: its traceback is shown, with any password masked
+        _mask_chain(exc)
+        raise
+
+
+def _mask_chain(exc: BaseException) -> None:
+    """Mask secrets in the messages of ``exc`` and of the exceptions it was raised from, so that
+    a traceback (``--debug``, or a bug) shows no password."""
+    seen: set[int] = set()
+    e: BaseException | None = exc
+    while e is not None and id(e) not in seen:
+        seen.add(id(e))
+        try:
+            e.args = tuple(mask_secrets(a) if isinstance(a, str) else a for a in e.args)
+        except (AttributeError, TypeError):
+            pass
+        orig = getattr(e, "orig", None)  # SQLAlchemy's wrapper keeps the driver's error
+        if isinstance(orig, BaseException) and id(orig) not in seen:
+            _mask_chain(orig)
+        e = e.__cause__ or e.__context__
 
 
 def styled(template: str, *values: object) -> Text:
