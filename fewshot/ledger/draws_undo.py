@@ -39,7 +39,8 @@ def snapshot(draws_dir: Path, tasks: list[str]) -> DrawsSnapshot:
     out = []
     for task in tasks:
         folder = draws_dir / task
-        files, dirs = set(), set()
+        files: set[str] = set()
+        dirs: set[str] = set()
         if folder.is_dir():
             for root, dnames, fnames in os.walk(folder):
                 rel = Path(root).relative_to(folder)
