@@ -134,6 +134,21 @@ def test_results_files_are_per_attempt_and_ingest_reads_the_attempt_from_the_nam
     led.close()
 
 
+def test_a_stale_file_left_out_does_not_make_the_same_content_count_as_ingested(tmp_path: Path):
+    ledger = str(tmp_path / "l.sqlite")
+    led = _planned(tmp_path, ledger)
+    key, old, new = _two_attempts(led)
+    line = f'{{"run": "{key}", "metric": "return", "value": 2.0}}\n'
+    a, b = results_file_for(tmp_path, key, old), results_file_for(tmp_path, key, new)
+    a.write_text(line, encoding="utf-8")
+    b.write_text(line, encoding="utf-8")  # the same bytes from both attempts
+    assert led.ingest_file(a, run=key, attempt=old).ignored == 1  # the older one comes first
+    got = led.ingest_file(b, run=key, attempt=new)
+    assert not got.skipped and got.stored == 1
+    assert led.results()["value"].tolist() == [2.0]
+    led.close()
+
+
 def test_the_lease_has_a_floor_of_thirty_seconds(tmp_path: Path, monkeypatch: pytest.MonkeyPatch):
     ledger = str(tmp_path / "l.sqlite")
     _planned(tmp_path, ledger).close()

@@ -460,6 +460,12 @@ class Ledger:
                 source=f"file:{digest[:16]}",
                 attempt=attempt,
             )
+            if rep.ignored:
+                # an older attempt's lines were left out: the same content from the current
+                # attempt must not be skipped as "ingested before"
+                return IngestReport(
+                    str(p), len(lines), False, rep.stored, rep.unchanged, rep.replaced, rep.ignored
+                )
             c.execute(
                 insert(IngestedFileRow).values(
                     study_id=sid,
