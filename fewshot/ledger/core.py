@@ -301,12 +301,13 @@ class Ledger:
 
         return self._tx(go)
 
-    def release(self, run: str, worker: str) -> bool:
-        """Hand ``run`` back to the plan when ``worker`` holds it (e.g. the worker was stopped)."""
+    def release(self, run: str, worker: str, *, attempt: int | None = None) -> bool:
+        """Hand ``run`` back to the plan when ``worker`` (and ``attempt``, when given) holds it
+        (e.g. the worker was stopped)."""
 
         def go(c: Connection) -> bool:
             sid, name = self._sid(c)
-            return release_run(c, find_run(c, sid, run, name), worker)
+            return release_run(c, find_run(c, sid, run, name), worker, attempt)
 
         return self._tx(go)
 

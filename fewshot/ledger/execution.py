@@ -212,7 +212,7 @@ def run_claims(
             except KeyboardInterrupt as exc:
                 # Stopped (Ctrl-C, SIGTERM, SIGHUP): hand the run back to the plan at once rather
                 # than leaving it to wait for its lease to expire.
-                ledger.release(claim.key, claim.worker)
+                ledger.release(claim.key, claim.worker, attempt=claim.attempt)
                 if isinstance(exc, Stopped):
                     raise
                 raise Stopped(signal.SIGINT) from None

@@ -233,9 +233,13 @@ def finish_run(
     )
 
 
-def release_run(conn: Connection, run: Row[Any], worker: str) -> bool:
-    """Hand a running run held by ``worker`` back to the plan (status planned, no lease)."""
+def release_run(conn: Connection, run: Row[Any], worker: str, attempt: int | None = None) -> bool:
+    """Hand a running run held by ``worker`` (and ``attempt``, when given) back to the plan
+    (status planned, no lease)."""
+    run = lock_run(conn, run)
     if run.status != "running" or run.worker != worker:
+        return False
+    if attempt is not None and attempt != run.attempts:
         return False
     conn.execute(
         update(RunRow)
