@@ -138,7 +138,7 @@ def test_ingest_on_a_full_disk_stores_nothing_then_succeeds(small_disk: Path):
     assert len(Ledger.open(ledger).results()) == 40 * len(keys)
 
 
-def test_exec_on_a_full_disk_claims_nothing_then_runs_everything(small_disk: Path):
+def test_exec_next_and_record_on_a_full_disk_write_nothing_then_exec_runs_everything(small_disk: Path):
     study = write_study(small_disk)
     ledger = small_disk / "l.sqlite"
     assert _fewshot("init", str(study), "--ledger", str(ledger)).returncode == 0
@@ -147,6 +147,8 @@ def test_exec_on_a_full_disk_claims_nothing_then_runs_everything(small_disk: Pat
     trainer = [sys.executable, "-c", "pass"]
     result = _fewshot("exec", "--worker", "w", "--ledger", str(ledger), "--", *trainer)
     _assert_full_disk_message(result, str(ledger))
+    for args in (("next", "--worker", "w"), ("record", "wide/reach/n1/s0", "return=1")):
+        _assert_full_disk_message(_fewshot(*args, "--ledger", str(ledger)), str(ledger))
     _free(fillers)
     assert ledger_dump(str(ledger)) == before
     again = _fewshot("exec", "--worker", "w", "--ledger", str(ledger), "--", *trainer)
