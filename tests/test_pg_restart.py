@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import glob
 import os
+import pwd
 import shutil
 import socket
 import subprocess
@@ -51,6 +52,10 @@ def server() -> Iterator[Server]:
     if os.geteuid() != 0 or shutil.which("su") is None:
         pytest.skip("starting a throwaway PostgreSQL server needs root (to run it as postgres)")
     pytest.importorskip("psycopg", reason="the PostgreSQL driver is not installed")
+    try:
+        pwd.getpwnam("postgres")
+    except KeyError:
+        pytest.skip("there is no postgres user to run a throwaway PostgreSQL server as")
     # its own folder under the system's temporary folder: the postgres user cannot enter
     # pytest's (private) temporary folders
     data = Path(tempfile.mkdtemp(prefix="fewshot-pg-test."))
