@@ -138,7 +138,9 @@ def test_ingest_on_a_full_disk_stores_nothing_then_succeeds(small_disk: Path):
     assert len(Ledger.open(ledger).results()) == 40 * len(keys)
 
 
-def test_exec_next_and_record_on_a_full_disk_write_nothing_then_exec_runs_everything(small_disk: Path):
+def test_exec_next_and_record_on_a_full_disk_write_nothing_then_exec_runs_everything(
+    small_disk: Path,
+):
     study = write_study(small_disk)
     ledger = small_disk / "l.sqlite"
     assert _fewshot("init", str(study), "--ledger", str(ledger)).returncode == 0
