@@ -18,7 +18,7 @@ from typing import Any
 
 from fewshot.errors import FewshotError, InvalidInput
 from fewshot.names import check_name
-from fewshot.sampling import MAX_SEED
+from fewshot.ranges import INT64_MAX, MAX_REPLICATES
 from fewshot.taskdraw import DrawSpec
 
 __all__ = ["Arm", "Task", "Study", "RunSpec", "StudyError", "load_study", "run_key"]
@@ -339,18 +339,26 @@ def _build(doc: dict[str, Any], base: Path, path: Path, where: _Where) -> Study:
     if not metric.strip():
         raise where.error("must not be empty.", "metric")
     sizes = _get(doc, "sizes", "intlist", where, required=True)
-    if not sizes or any(s < 0 for s in sizes) or len(set(sizes)) != len(sizes):
+    if not sizes or any(not 0 <= s <= INT64_MAX for s in sizes) or len(set(sizes)) != len(sizes):
         raise where.error(
-            f"must be distinct whole numbers of 0 or more (0 = zero-shot). Got {sizes}.", "sizes"
+            "must be distinct whole numbers from 0 (zero-shot) to 2**63-1 (what the ledger's "
+            f"columns hold). Got {sizes}.",
+            "sizes",
         )
     seeds = _get(doc, "seeds", "intlist", where, required=True)
-    if not seeds or any(not 0 <= s <= MAX_SEED for s in seeds) or len(set(seeds)) != len(seeds):
+    if not seeds or any(not 0 <= s <= INT64_MAX for s in seeds) or len(set(seeds)) != len(seeds):
         raise where.error(
-            f"must be distinct whole numbers from 0 to 2**64-1. Got {seeds}.", "seeds"
+            "must be distinct whole numbers from 0 to 2**63-1 (what the ledger's columns hold). "
+            f"Got {seeds}.",
+            "seeds",
         )
     replicates = _get(doc, "replicates", "int", where, default=1)
-    if replicates < 1:
-        raise where.error(f"must be 1 or more. Got {replicates}.", "replicates")
+    if not 1 <= replicates <= MAX_REPLICATES:
+        raise where.error(
+            f"must be from 1 to {MAX_REPLICATES} (more would plan millions of runs a cell). "
+            f"Got {replicates}.",
+            "replicates",
+        )
     arms = tuple(
         _arm(a, i, where) for i, a in enumerate(_get(doc, "arms", "tables", where, required=True))
     )

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sqlite3
 from pathlib import Path
 
 import pytest
@@ -309,6 +310,152 @@ CASES = [
 ]
 
 
+def _half_of(src: str, dst: str):  # type: ignore[no-untyped-def]
+    def make(d: Path) -> None:
+        data = (d / src).read_bytes()
+        (d / dst).write_bytes(data[: len(data) // 2])
+
+    return make
+
+
+def _foreign_sqlite(name: str):  # type: ignore[no-untyped-def]
+    def make(d: Path) -> None:
+        conn = sqlite3.connect(d / name)
+        conn.execute("CREATE TABLE notes (body TEXT)")
+        conn.commit()
+        conn.close()
+
+    return make
+
+
+BIG = str(2**63)  # one more than a 64-bit column holds
+LEDGER = ["--ledger", "{ledger}", "--study", "mini"]
+
+# Faults of a long study: numbers beyond the ledger's columns, files that are not ledgers,
+# attempts that are no longer current, leases below the floor.
+CASES += [
+    (
+        "toml-seed-beyond-64-bits",
+        _study(_edit("seeds = [0, 1, 2]", f"seeds = [0, {BIG}]")),
+        ["check", "{d}/bad.toml"],
+        "line 6: seeds: must be distinct whole numbers from 0 to 2**63-1",
+    ),
+    (
+        "init-seed-beyond-64-bits",
+        _study(_edit("seeds = [0, 1, 2]", f"seeds = [{BIG}]")),
+        ["init", "{d}/bad.toml", "--ledger", "{ledger}"],
+        "from 0 to 2**63-1",
+    ),
+    (
+        "toml-size-beyond-64-bits",
+        _study(_edit("sizes = [0, 1, 3, 10]", f"sizes = [1, {BIG}]")),
+        ["check", "{d}/bad.toml"],
+        "from 0 (zero-shot) to 2**63-1",
+    ),
+    (
+        "toml-replicates-absurd",
+        _study(_edit('baseline = "scratch"', 'baseline = "scratch"\nreplicates = 1000000')),
+        ["check", "{d}/bad.toml"],
+        "must be from 1 to 10000",
+    ),
+    (
+        "record-step-beyond-64-bits",
+        None,
+        ["record", "wide/reach/n1/s0", "return=1", "--step", BIG, *LEDGER],
+        "'step' must be a whole number from 0 to 2**63-1",
+    ),
+    (
+        "ingest-step-beyond-64-bits",
+        _bytes(
+            "r.jsonl",
+            f'{{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "step": {BIG}}}\n'.encode(),
+        ),
+        ["ingest", "{d}/r.jsonl", *LEDGER],
+        "r.jsonl, line 1: 'step' must be a whole number from 0 to 2**63-1",
+    ),
+    (
+        "ingest-value-beyond-float",
+        _bytes(
+            "r.jsonl",
+            f'{{"run": "wide/reach/n1/s0", "metric": "return", "value": {10**400}}}\n'.encode(),
+        ),
+        ["ingest", "{d}/r.jsonl", *LEDGER],
+        "too large for a floating-point number",
+    ),
+    (
+        "ingest-budget-beyond-float",
+        _bytes(
+            "r.jsonl",
+            b'{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "budget": {"steps": '
+            + str(10**400).encode()
+            + b"}}\n",
+        ),
+        ["ingest", "{d}/r.jsonl", *LEDGER],
+        "'budget' must map names to finite numbers",
+    ),
+    (
+        "record-values-beyond-float",
+        _bytes("v.txt", f"[1, {10**400}]".encode()),
+        ["record", "wide/reach/n1/s0", "return=1", "--values", "{d}/v.txt", *LEDGER],
+        "within a floating-point number's range",
+    ),
+    (
+        "next-lease-below-floor",
+        None,
+        ["next", "--worker", "w", "--lease", "0.01s", *LEDGER],
+        "--lease must be at least",
+    ),
+    (
+        "done-attempt-zero",
+        None,
+        ["done", "wide/reach/n1/s0", "--attempt", "0", *LEDGER],
+        "--attempt must be 1 or more",
+    ),
+    (
+        "done-attempt-never-handed-out",
+        None,
+        ["done", "wide/reach/n1/s0", "--attempt", "3", *LEDGER],
+        "has no attempt 3",
+    ),
+    (
+        "record-attempt-never-handed-out",
+        None,
+        ["record", "wide/reach/n1/s0", "return=1", "--attempt", "2", *LEDGER],
+        "has no attempt 2",
+    ),
+    (
+        "status-ledger-is-a-study-file",
+        None,
+        ["status", "--ledger", "{d}/study.toml"],
+        "study.toml is not a fewshot ledger",
+    ),
+    (
+        "status-ledger-is-a-pool",
+        None,
+        ["status", "--ledger", "{d}/pool.csv"],
+        "pool.csv is not a fewshot ledger",
+    ),
+    (
+        "next-ledger-truncated",
+        _half_of("l.sqlite", "half.sqlite"),
+        ["next", "--worker", "w", "--ledger", "{d}/half.sqlite"],
+        "half.sqlite is damaged",
+    ),
+    (
+        "record-ledger-of-another-program",
+        _foreign_sqlite("notes.sqlite"),
+        ["record", "wide/reach/n1/s0", "return=1", "--ledger", "{d}/notes.sqlite"],
+        "notes.sqlite is a SQLite database of another program",
+    ),
+    (
+        "exec-results-is-a-file",
+        None,
+        ["exec", "--worker", "w", *LEDGER, "--results", "{d}/pool.csv", "--", "true"],
+        "is a file, not a folder",
+    ),
+]
+
+
 @pytest.mark.parametrize(
     ("make", "args", "fragment"), [c[1:] for c in CASES], ids=[c[0] for c in CASES]
 )
@@ -327,8 +474,9 @@ def test_bad_input_exits_2_names_the_place_and_changes_nothing(world, make, args
     assert tree_snapshot(folder / "draws") == draws_before
 
 
-def test_there_are_at_least_thirty_cases():
-    assert len(CASES) >= 30
+def test_there_are_at_least_sixty_cases():
+    # the README's reliability paragraph states this count
+    assert len(CASES) >= 60
 
 
 @pytest.mark.parametrize(

@@ -57,7 +57,7 @@ def _edit(old: str, new: str) -> str:
         (_edit("sizes = [0, 1, 3, 10]", "sizes = [1, 1]"), "sizes: must be distinct"),
         (
             _edit("sizes = [0, 1, 3, 10]", "sizes = [-1, 3]"),
-            "sizes: must be distinct whole numbers of 0 or more",
+            "sizes: must be distinct whole numbers from 0 (zero-shot) to 2**63-1",
         ),
         (
             _edit("seeds = [0, 1, 2]", "seeds = [-4]"),

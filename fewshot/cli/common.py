@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -36,15 +37,37 @@ class TableOrJson(StrEnum):
 def reporting() -> Iterator[None]:
     """Turn a :class:`FewshotError` into its message on stderr and exit status 2.
 
-    With ``fewshot --debug`` the exception propagates with its traceback.
+    With ``fewshot --debug`` the exception propagates with its traceback. Either way every
+    password in the messages is masked (:func:`fewshot.masking.mask_secrets`).
     """
     try:
         yield
     except FewshotError as exc:
         if STATE["debug"]:
+            _mask_chain(exc)
             raise
         err.print(styled("[bold red]error:[/] {}", mask_secrets(str(exc))))
         raise typer.Exit(2) from None
+    except Exception as exc:  # a bug: its traceback is shown, with any password masked
+        _mask_chain(exc)
+        raise
+
+
+def _mask_chain(exc: BaseException) -> None:
+    """Mask secrets in the messages of ``exc`` and of the exceptions it was raised from, so that
+    a traceback (``--debug``, or a bug) shows no password."""
+    seen: set[int] = set()
+    e: BaseException | None = exc
+    while e is not None and id(e) not in seen:
+        seen.add(id(e))
+        try:
+            e.args = tuple(mask_secrets(a) if isinstance(a, str) else a for a in e.args)
+        except (AttributeError, TypeError):
+            pass
+        orig = getattr(e, "orig", None)  # SQLAlchemy's wrapper keeps the driver's error
+        if isinstance(orig, BaseException) and id(orig) not in seen:
+            _mask_chain(orig)
+        e = e.__cause__ or e.__context__
 
 
 def styled(template: str, *values: object) -> Text:
@@ -169,6 +192,47 @@ def duration(text: str, *, option: str) -> float:
     if not value > 0:
         raise InvalidInput(f"{option} must be longer than zero. Got {text!r}.")
     return value
+
+
+def attempt_for(run: str, given: int | None) -> int | None:
+    """The attempt a write about ``run`` carries: ``--attempt``, else ``FEWSHOT_ATTEMPT`` when the
+    work loop set it for this very run (``FEWSHOT_RUN``), else None (a write by hand)."""
+    if given is not None:
+        if given < 1:
+            raise InvalidInput(f"--attempt must be 1 or more. Got {given}.")
+        return given
+    raw = os.environ.get("FEWSHOT_ATTEMPT", "").strip()
+    if not raw or os.environ.get("FEWSHOT_RUN") != run:
+        return None
+    if not raw.isdigit() or not 1 <= int(raw) <= 2**63 - 1:
+        raise InvalidInput(
+            f"FEWSHOT_ATTEMPT must be a whole number of 1 or more (the work loop sets it). Got {raw!r}."
+        )
+    return int(raw)
+
+
+AttemptOpt = Annotated[
+    int | None,
+    typer.Option(
+        "--attempt",
+        help="The attempt this write belongs to (default: FEWSHOT_ATTEMPT, when FEWSHOT_RUN is "
+        "this run). A newer attempt's run is never marked by an older one.",
+    ),
+]
+
+
+def lease_seconds(text: str) -> float:
+    """``--lease`` in seconds: a duration from the lease floor (30 s) to 30 days."""
+    from fewshot.ledger.core import min_lease
+
+    seconds = duration(text, option="--lease")
+    floor = min_lease()
+    if seconds < floor:
+        raise InvalidInput(
+            f"--lease must be at least {floor:g}s: a shorter lease runs out while a busy machine "
+            f"renews it, and the run is then started twice. Got {text!r}."
+        )
+    return seconds
 
 
 def open_ledger(ledger: str | None, study: str | None, *, create: bool = False) -> Any:

@@ -12,9 +12,11 @@ from rich.table import Table
 from rich.text import Text
 
 from fewshot.cli.common import (
+    AttemptOpt,
     LedgerOpt,
     StudyOpt,
     TableJsonCsv,
+    attempt_for,
     err,
     open_ledger,
     out,
@@ -53,8 +55,11 @@ def _values_file(path: Path) -> list[float]:
     try:
         raw = json.loads(text) if text.startswith("[") else [float(x) for x in text.split()]
         values = [float(x) for x in raw]
-    except (ValueError, TypeError):
-        raise InvalidInput(f"{path}: values must be numbers, one a line or a JSON list.") from None
+    except (ValueError, TypeError, OverflowError):
+        raise InvalidInput(
+            f"{path}: values must be numbers within a floating-point number's range, one a line "
+            "or a JSON list."
+        ) from None
     bad = [v for v in values if not math.isfinite(v)]
     if bad:
         raise InvalidInput(f"{path}: values must be finite numbers. Got {bad[0]!r}.")
@@ -83,6 +88,7 @@ def record(
     done: Annotated[
         bool, typer.Option("--done", help="Also mark the run done (its last results).")
     ] = False,
+    attempt: AttemptOpt = None,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -100,13 +106,15 @@ def record(
             check_line(run, m, v, step=step, values=per_episode, subset_digest=subset_digest)
             for m, v in pairs
         ]
+        which = attempt_for(run, attempt)
         led = open_ledger(ledger, study)
         try:
-            rep = led.record_lines(lines, replace=replace, source="cli", done=done)
+            rep = led.record_lines(lines, replace=replace, source="cli", done=done, attempt=which)
         finally:
             led.close()
+    ignored = f", {rep.ignored} left out (a newer attempt holds the run)" if rep.ignored else ""
     out.print(
-        f"{run}: {rep.stored} stored, {rep.unchanged} unchanged, {rep.replaced} replaced"
+        f"{run}: {rep.stored} stored, {rep.unchanged} unchanged, {rep.replaced} replaced{ignored}"
         + ("; marked done" if done else "")
     )
 
@@ -124,6 +132,7 @@ def ingest(
 ) -> None:
     """Ingest results files, one transaction each; a file ingested before is skipped."""
     from fewshot.ledger.core import expand_result_paths
+    from fewshot.ledger.execution import attempt_of_file
 
     with reporting():
         files = expand_result_paths(paths)
@@ -133,7 +142,9 @@ def ingest(
             job = bar.add_task("ingesting", total=len(files))
             try:
                 for f in files:
-                    reports.append(led.ingest_file(f, replace=replace))
+                    # a work loop's results file names its attempt (run.attempt2.jsonl)
+                    which = attempt_of_file(f)
+                    reports.append(led.ingest_file(f, replace=replace, attempt=which))
                     bar.advance(job)
             finally:
                 led.close()
@@ -141,9 +152,12 @@ def ingest(
                     err.print(f"{len(reports)} file(s) before the refused one were ingested")
     stored = sum(r.stored for r in reports)
     skipped = sum(1 for r in reports if r.skipped)
+    ignored = sum(r.ignored for r in reports)
+    late = f", {ignored} of an older attempt left out (they differ)" if ignored else ""
     out.print(
         f"{len(reports)} file(s): {stored} results stored, "
         f"{sum(r.unchanged for r in reports)} already there, {skipped} file(s) ingested before"
+        f"{late}"
     )
 
 

@@ -10,11 +10,13 @@ from typing import Annotated
 import typer
 
 from fewshot.cli.common import (
+    AttemptOpt,
     LedgerOpt,
     StudyOpt,
     TableOrJson,
-    duration,
+    attempt_for,
     err,
+    lease_seconds,
     open_ledger,
     out,
     print_json,
@@ -47,7 +49,7 @@ def next_run(
 ) -> None:
     """Claim one planned run (or one whose lease expired) and print it; exit 1 when none is left."""
     with reporting():
-        seconds = duration(lease, option="--lease")
+        seconds = lease_seconds(lease)
         led = open_ledger(ledger, study)
         claim = led.claim(worker, seconds)
         led.close()
@@ -93,7 +95,7 @@ def exec_runs(
     from fewshot.ledger.execution import run_claims
 
     with reporting():
-        seconds = duration(lease, option="--lease")
+        seconds = lease_seconds(lease)
         led = open_ledger(ledger, study)
         try:
             outcomes = run_claims(
@@ -107,16 +109,7 @@ def exec_runs(
                 on_start=lambda c: err.print(
                     styled("[dim]start[/] {} (attempt {})", c.key, c.attempt)
                 ),
-                on_end=lambda o: err.print(
-                    styled(
-                        f"[{'green' if o.status == 'done' else 'red'}]{{}}[/] {{}} in {{}} s",
-                        o.status,
-                        o.key,
-                        f"{o.seconds:.1f}",
-                    ),
-                    f", {o.ingested} results" if o.ingested else "",
-                    sep="",
-                ),
+                on_end=_print_outcome,
             )
         except KeyboardInterrupt as exc:  # Ctrl-C, SIGTERM or SIGHUP (see run_claims)
             signum = int(getattr(exc, "signum", signal.SIGINT))
@@ -127,10 +120,39 @@ def exec_runs(
             raise typer.Exit(128 + signum) from None
         finally:
             led.close()
-    failed = sum(1 for o in outcomes if o.status != "done")
-    out.print(f"{len(outcomes)} runs: {len(outcomes) - failed} done, {failed} failed")
+    failed = sum(1 for o in outcomes if o.status not in ("done", "superseded"))
+    superseded = sum(1 for o in outcomes if o.status == "superseded")
+    done_ = len(outcomes) - failed - superseded
+    later = f", {superseded} taken over by a newer attempt" if superseded else ""
+    out.print(f"{len(outcomes)} runs: {done_} done, {failed} failed{later}")
     if failed:
         raise typer.Exit(1)
+
+
+def _print_outcome(o: object) -> None:
+    from fewshot.ledger.execution import ExecOutcome
+
+    assert isinstance(o, ExecOutcome)
+    if o.status == "superseded":
+        err.print(
+            styled(
+                "[yellow]superseded[/] {} after {} s: this attempt's lease ran out and a newer "
+                "attempt holds the run; it was left to that one (results kept where they agree)",
+                o.key,
+                f"{o.seconds:.1f}",
+            )
+        )
+        return
+    err.print(
+        styled(
+            f"[{'green' if o.status == 'done' else 'red'}]{{}}[/] {{}} in {{}} s",
+            o.status,
+            o.key,
+            f"{o.seconds:.1f}",
+        ),
+        f", {o.ingested} results" if o.ingested else "",
+        sep="",
+    )
 
 
 PLACEHOLDERS = (
@@ -193,14 +215,18 @@ def jobs(
 def done(
     run: Annotated[str, typer.Argument(help="The run key, e.g. arm/task/n10/s0.")],
     *,
+    attempt: AttemptOpt = None,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
     """Mark a run done."""
     with reporting():
+        which = attempt_for(run, attempt)
         led = open_ledger(ledger, study)
-        led.done(run)
-        led.close()
+        try:
+            led.done(run, attempt=which)
+        finally:
+            led.close()
     out.print(f"done {run}")
 
 
@@ -208,12 +234,16 @@ def fail(
     run: Annotated[str, typer.Argument(help="The run key, e.g. arm/task/n10/s0.")],
     *,
     message: Annotated[str, typer.Option("--message", help="Why it failed.")],
+    attempt: AttemptOpt = None,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
     """Mark a run failed, with a message."""
     with reporting():
+        which = attempt_for(run, attempt)
         led = open_ledger(ledger, study)
-        led.fail(run, message)
-        led.close()
+        try:
+            led.fail(run, message, attempt=which)
+        finally:
+            led.close()
     out.print(f"failed {run}")

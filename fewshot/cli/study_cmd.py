@@ -91,11 +91,21 @@ def init(
         study = load_study(study_file)
         for task in study.tasks:  # refuse before the ledger is created
             check_draw_target(study.draws_dir, task.name)
-        with err.status("drawing subsets", spinner="dots") if err.is_terminal else nullcontext():
-            led = open_ledger(ledger, study.name, create=True)
-            report = led.plan(study)
+        fresh = _new_sqlite_ledger(ledger)
+        try:
+            with (
+                err.status("drawing subsets", spinner="dots") if err.is_terminal else nullcontext()
+            ):
+                led = open_ledger(ledger, study.name, create=True)
+                try:
+                    report = led.plan(study)
+                finally:
+                    led.close()
+        except BaseException:
+            if fresh is not None:
+                _remove_unused_ledger(fresh)
+            raise
         url = led.url
-        led.close()
     verb = "created" if report.created else "updated"
     out.print(styled(f"{verb} study [bold]{{}}[/] in {{}}", report.study, url))
     if not report.created:
@@ -109,3 +119,31 @@ def init(
                 out.print(f"  new {label}: {', '.join(map(str, items))}")
     out.print(f"  {report.new_runs} new runs planned, {report.total_runs} in all")
     out.print(f"  subsets and manifests in {study.draws_dir}")
+
+
+def _new_sqlite_ledger(ledger: str | None) -> Path | None:
+    """The SQLite file ``init`` is about to create (None: it exists, or not SQLite)."""
+    from fewshot.ledger.engine import resolve_url, sqlite_path
+
+    path = sqlite_path(resolve_url(ledger))
+    return path if path is not None and not path.exists() else None
+
+
+def _remove_unused_ledger(path: Path) -> None:
+    """Remove a ledger file this ``init`` created but could not fill (a full disk), unless
+    another process planned a study in it meanwhile: the folder is left as it was."""
+    import sqlite3
+    from urllib.parse import quote
+
+    try:
+        conn = sqlite3.connect(f"file:{quote(str(path))}?mode=ro", uri=True, timeout=5)
+        try:
+            used = conn.execute("SELECT count(*) FROM study").fetchone()[0] > 0
+        finally:
+            conn.close()
+    except sqlite3.Error:
+        used = False
+    if used:
+        return
+    for p in (path, path.with_name(path.name + "-wal"), path.with_name(path.name + "-shm")):
+        p.unlink(missing_ok=True)

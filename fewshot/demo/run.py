@@ -8,6 +8,7 @@ where the first stopped: planned runs and runs whose lease expired are claimed a
 
 from __future__ import annotations
 
+import contextlib
 import multiprocessing
 import time
 import traceback
@@ -19,6 +20,7 @@ from fewshot.demo.scenario import FULL, QUICK, write_scenario
 from fewshot.demo.trainer import train_run
 from fewshot.errors import InvalidInput
 from fewshot.ledger import Ledger
+from fewshot.ledger.runs import StaleAttempt
 from fewshot.study import load_study
 
 __all__ = ["DemoRun", "prepare_demo", "run_workers", "worker_loop"]
@@ -76,10 +78,13 @@ def worker_loop(folder: str, ledger: str, name: str, lease: float = 600.0) -> in
                     values=values,
                     subset_digest=claim.subset_digest,
                     budget={"episodes": claim.size},
+                    attempt=claim.attempt,
                 )
-                led.done(claim.key)
+                led.done(claim.key, attempt=claim.attempt)
             except Exception as exc:  # a trainer's failure is the run's, not the worker's
-                led.fail(claim.key, "".join(traceback.format_exception_only(exc)).strip())
+                message = "".join(traceback.format_exception_only(exc)).strip()
+                with contextlib.suppress(StaleAttempt):  # a newer attempt holds the run
+                    led.fail(claim.key, message, attempt=claim.attempt)
             ran += 1
     finally:
         led.close()

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import errno
 import json
 import math
+import os
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
@@ -15,8 +17,10 @@ from sqlalchemy import Connection, Engine, func, insert, select
 from sqlalchemy.exc import IntegrityError, OperationalError
 
 from fewshot.errors import FewshotError
+from fewshot.ledger import draws_undo
 from fewshot.ledger.engine import (
     LedgerError,
+    first_line,
     make_engine,
     mask_url,
     resolve_url,
@@ -44,8 +48,17 @@ from fewshot.ledger.results import (
     parse_result_file,
     store_results,
 )
-from fewshot.ledger.runs import Claim, claim_run, extend_lease, find_run, finish_run, release_run
+from fewshot.ledger.runs import (
+    Claim,
+    claim_run,
+    extend_lease,
+    find_run,
+    finish_run,
+    release_run,
+    settle_run,
+)
 from fewshot.ledger.status import StatusReport, summarise
+from fewshot.ledger.storage import check_ledger_file, storage_error
 from fewshot.study import Study
 
 __all__ = ["Ledger", "IngestReport", "RESULT_COLUMNS"]
@@ -84,7 +97,9 @@ class IngestReport:
         Result lines in the file.
     skipped : bool
         True when a file with the same content was ingested before (nothing written).
-    stored, unchanged, replaced : int
+    stored, unchanged, replaced, ignored : int
+        ``ignored``: results of an attempt no longer current that were left out (see
+        :func:`fewshot.ledger.results.store_results`).
     """
 
     path: str
@@ -93,6 +108,7 @@ class IngestReport:
     stored: int = 0
     unchanged: int = 0
     replaced: int = 0
+    ignored: int = 0
 
 
 class Ledger:
@@ -103,11 +119,16 @@ class Ledger:
     :meth:`results`.
     """
 
+    #: How long a call keeps trying to reach a database server that went away (a restart, a
+    #: network blip) before it gives up with a message.
+    reconnect_seconds: float = 300.0
+
     def __init__(self, engine: Engine, url: str, study: str | None = None) -> None:
         self.engine = engine
         self._url = url
         self._study_name = study
         self._skip_locked = engine.dialect.name == "postgresql"
+        self._path = sqlite_path(url)
 
     # ------------------------------------------------------------------ opening
 
@@ -133,8 +154,17 @@ class Ledger:
                 f"{path} is an empty file, not a ledger; it was left as it is. Run `fewshot init "
                 "STUDY.toml --ledger PATH` to make a ledger, or point --ledger at the study's ledger."
             )
+        if path is not None:
+            check_ledger_file(path)
         engine = make_engine(resolved)
-        upgrade_schema(engine)
+        try:
+            upgrade_schema(engine)
+        except OperationalError as exc:
+            engine.dispose()
+            raise storage_error(exc, resolved, path, opening=True) from None
+        except BaseException:
+            engine.dispose()
+            raise
         return cls(engine, resolved, study)
 
     @property
@@ -172,20 +202,17 @@ class Ledger:
 
         for k in range(CONFLICT_RETRIES):
             try:
-                return retry_locked(attempt)
+                return retry_locked(
+                    attempt, reconnect_seconds=self.reconnect_seconds, url=self._url
+                )
             except OperationalError as exc:
-                if "readonly" in str(exc.orig).lower().replace("-", "").replace(" ", ""):
-                    raise LedgerError(
-                        f"the ledger {self.url} is read-only for you: reading works, but this "
-                        "command writes to it. Run it as a user who may write the ledger file and "
-                        "its folder."
-                    ) from None
-                raise
+                # a full disk, a read-only or damaged file, a lock held too long: a message
+                raise storage_error(exc, self._url, self._path) from None
             except IntegrityError as exc:
                 if k == CONFLICT_RETRIES - 1:
                     raise LedgerError(
                         f"the ledger {self.url} refused a write {CONFLICT_RETRIES} times because "
-                        f"another process kept writing the same rows ({_first_line(exc.orig)}). "
+                        f"another process kept writing the same rows ({first_line(exc.orig)}). "
                         "Nothing of this call was stored; run it again."
                     ) from None
         raise AssertionError("unreachable")
@@ -227,7 +254,23 @@ class Ledger:
     def plan(self, study: Study) -> PlanReport:
         """Draw every task's subsets and plan every run of ``study`` not yet planned."""
         draws = draw_all(study)
-        report = self._tx(lambda c: plan_study(c, study, draws))
+        before = draws_undo.snapshot(study.draws_dir, [t.name for t in study.tasks])
+        try:
+            report = self._tx(lambda c: plan_study(c, study, draws))
+        except BaseException as exc:
+            # the transaction failed: the ledger is as it was, and so must the draws be
+            draws_undo.restore(before)
+            if isinstance(exc, OSError):
+                raise LedgerError(
+                    f"cannot write the draws under {study.draws_dir} ({exc.strerror or exc}): "
+                    "nothing was planned and the draws were left as they were. "
+                    + (
+                        "Free some space on that disk, then run init again."
+                        if exc.errno == errno.ENOSPC
+                        else "Check that you may write there, then run init again."
+                    )
+                ) from None
+            raise
         if self._study_name is None:
             self._study_name = study.name
         return report
@@ -245,39 +288,56 @@ class Ledger:
 
         return self._tx(go)
 
-    def heartbeat(self, run: str, worker: str, lease: float = 7200.0) -> bool:
-        """Extend ``worker``'s lease on ``run``; False when the worker no longer holds it."""
+    def heartbeat(
+        self, run: str, worker: str, lease: float = 7200.0, *, attempt: int | None = None
+    ) -> bool:
+        """Extend ``worker``'s lease on ``run``; False when the worker (and ``attempt``, when
+        given) no longer holds it."""
         _check_lease(lease)
 
         def go(c: Connection) -> bool:
             sid, name = self._sid(c)
-            return extend_lease(c, find_run(c, sid, run, name), worker, lease)
+            return extend_lease(c, find_run(c, sid, run, name), worker, lease, attempt)
 
         return self._tx(go)
 
-    def release(self, run: str, worker: str) -> bool:
-        """Hand ``run`` back to the plan when ``worker`` holds it (e.g. the worker was stopped)."""
+    def release(self, run: str, worker: str, *, attempt: int | None = None) -> bool:
+        """Hand ``run`` back to the plan when ``worker`` (and ``attempt``, when given) holds it
+        (e.g. the worker was stopped)."""
 
         def go(c: Connection) -> bool:
             sid, name = self._sid(c)
-            return release_run(c, find_run(c, sid, run, name), worker)
+            return release_run(c, find_run(c, sid, run, name), worker, attempt)
 
         return self._tx(go)
 
-    def done(self, run: str) -> None:
-        """Mark ``run`` done."""
-        self._finish(run, "done", None)
+    def done(self, run: str, *, attempt: int | None = None) -> None:
+        """Mark ``run`` done. With ``attempt`` (a worker's ``FEWSHOT_ATTEMPT``), only while that
+        attempt is the run's current one: else :class:`StaleAttempt` and nothing changes."""
+        self._finish(run, "done", None, attempt)
 
-    def fail(self, run: str, message: str) -> None:
-        """Mark ``run`` failed, keeping the (tail of the) message."""
-        self._finish(run, "failed", message)
+    def fail(self, run: str, message: str, *, attempt: int | None = None) -> None:
+        """Mark ``run`` failed, keeping the (tail of the) message; ``attempt`` as for :meth:`done`."""
+        self._finish(run, "failed", message, attempt)
 
-    def _finish(self, run: str, status: str, message: str | None) -> None:
+    def _finish(self, run: str, status: str, message: str | None, attempt: int | None) -> None:
         def go(c: Connection) -> None:
             sid, name = self._sid(c)
-            finish_run(c, find_run(c, sid, run, name), status, message)
+            finish_run(c, find_run(c, sid, run, name), status, message, attempt=attempt)
 
         self._tx(go)
+
+    def settle(self, run: str, attempt: int, status: str, message: str | None = None) -> str:
+        """Mark ``run`` ``status`` if ``attempt`` still holds it and it is still running.
+
+        Returns the status the run is left in, or ``superseded`` when a newer attempt holds it.
+        """
+
+        def go(c: Connection) -> str:
+            sid, name = self._sid(c)
+            return settle_run(c, find_run(c, sid, run, name), attempt, status, message)
+
+        return self._tx(go)
 
     def run_status(self, run: str) -> str:
         """The status of ``run``: planned, running, done or failed."""
@@ -302,6 +362,7 @@ class Ledger:
         budget: dict[str, float] | None = None,
         replace: bool = False,
         done: bool = False,
+        attempt: int | None = None,
     ) -> StoreReport:
         """Record one result of ``run``; see the module ``fewshot.ledger.results`` for the rules.
 
@@ -317,7 +378,7 @@ class Ledger:
             subset_digest=subset_digest,
             budget=budget,
         )
-        return self.record_lines([line], replace=replace, done=done)
+        return self.record_lines([line], replace=replace, done=done, attempt=attempt)
 
     def record_lines(
         self,
@@ -326,16 +387,20 @@ class Ledger:
         replace: bool = False,
         source: str = "api",
         done: bool = False,
+        attempt: int | None = None,
     ) -> StoreReport:
         """Record several checked results at once: all of them or none. ``done=True`` also marks
-        their runs done, in the same transaction."""
+        their runs done, in the same transaction; ``attempt``: see
+        :func:`fewshot.ledger.results.store_results` (a stale attempt marks nothing done)."""
 
         def go(c: Connection) -> StoreReport:
             sid, name = self._sid(c)
-            report = store_results(c, sid, name, lines, replace=replace, source=source)
+            report = store_results(
+                c, sid, name, lines, replace=replace, source=source, attempt=attempt
+            )
             if done:
                 for key in dict.fromkeys(ln.run for ln in lines):
-                    finish_run(c, find_run(c, sid, key, name), "done", None)
+                    finish_run(c, find_run(c, sid, key, name), "done", None, attempt=attempt)
             return report
 
         return self._tx(go)
@@ -349,7 +414,12 @@ class Ledger:
         return [self.ingest_file(p, replace=replace) for p in expand_result_paths(paths)]
 
     def ingest_file(
-        self, path: str | Path, *, replace: bool = False, run: str | None = None
+        self,
+        path: str | Path,
+        *,
+        replace: bool = False,
+        run: str | None = None,
+        attempt: int | None = None,
     ) -> IngestReport:
         """Ingest one results file: all of it or none of it.
 
@@ -393,7 +463,21 @@ class Ledger:
             ).scalar()
             if seen is not None:
                 return IngestReport(str(p), len(lines), True)
-            rep = store_results(c, sid, name, lines, replace=replace, source=f"file:{digest[:16]}")
+            rep = store_results(
+                c,
+                sid,
+                name,
+                lines,
+                replace=replace,
+                source=f"file:{digest[:16]}",
+                attempt=attempt,
+            )
+            if rep.ignored:
+                # an older attempt's lines were left out: the same content from the current
+                # attempt must not be skipped as "ingested before"
+                return IngestReport(
+                    str(p), len(lines), False, rep.stored, rep.unchanged, rep.replaced, rep.ignored
+                )
             c.execute(
                 insert(IngestedFileRow).values(
                     study_id=sid,
@@ -403,7 +487,9 @@ class Ledger:
                     ingested_at=time.time(),
                 )
             )
-            return IngestReport(str(p), len(lines), False, rep.stored, rep.unchanged, rep.replaced)
+            return IngestReport(
+                str(p), len(lines), False, rep.stored, rep.unchanged, rep.replaced, rep.ignored
+            )
 
         return self._tx(go)
 
@@ -614,21 +700,33 @@ class Ledger:
         return self._tx(go)
 
 
-def _first_line(error: object) -> str:
-    return mask_url(
-        str(error).strip().splitlines()[0] if str(error).strip() else type(error).__name__
-    )
-
-
 MAX_LEASE = 30 * 86400.0
+MIN_LEASE = 30.0
+# Tests (only) may shorten the lease floor through this variable; see DEVELOPERS.md.
+TESTING_MIN_LEASE = "FEWSHOT_TESTING_MIN_LEASE"
+
+
+def min_lease() -> float:
+    """The shortest lease a claim may have: 30 s, less only under ``FEWSHOT_TESTING_MIN_LEASE``."""
+    raw = os.environ.get(TESTING_MIN_LEASE)
+    if raw:
+        try:
+            value = float(raw)
+        except ValueError:
+            value = MIN_LEASE
+        if math.isfinite(value) and value > 0:
+            return min(value, MIN_LEASE)
+    return MIN_LEASE
 
 
 def _check_lease(lease: float) -> None:
     ok = isinstance(lease, int | float) and not isinstance(lease, bool)
-    if not ok or not math.isfinite(lease) or not 0 < lease <= MAX_LEASE:
+    floor = min_lease()
+    if not ok or not math.isfinite(lease) or not floor <= lease <= MAX_LEASE:
         raise FewshotError(
-            f"lease must be a finite number of seconds, more than 0 and at most 30 days "
-            f"({MAX_LEASE:.0f}). Got {lease!r}."
+            f"lease must be a finite number of seconds from {floor:g} to 30 days "
+            f"({MAX_LEASE:.0f}); a shorter lease would run out while a busy machine renews it. "
+            f"Got {lease!r}."
         )
 
 

@@ -22,9 +22,9 @@ from alembic import command
 from alembic.config import Config
 from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
-from sqlalchemy import Engine, create_engine, event, text
+from sqlalchemy import Engine, create_engine, event, inspect, text
 from sqlalchemy.engine import make_url
-from sqlalchemy.exc import ArgumentError, OperationalError
+from sqlalchemy.exc import ArgumentError, DBAPIError
 
 from fewshot.errors import FewshotError
 from fewshot.masking import mask_secrets
@@ -45,6 +45,11 @@ DEFAULT_LEDGER = "fewshot.sqlite"
 # number unlikely to be used by another application of the same database: b"fewshot" as an integer).
 SCHEMA_LOCK_KEY = int.from_bytes(b"fewshot", "big")
 T = TypeVar("T")
+# The tables of a fewshot ledger (a database holding any of them without fewshot's schema
+# revision belongs to another program).
+LEDGER_TABLES = frozenset(
+    {"study", "arm", "task", "draw", "subset", "run", "result", "result_value"}
+)
 
 
 class LedgerError(FewshotError, RuntimeError):
@@ -199,6 +204,9 @@ def head_revision() -> str:
 def upgrade_schema(engine: Engine, *, revision: str = "head") -> None:
     """Bring the ledger's schema to ``revision`` (default: the newest), in one transaction.
 
+    Database errors (:class:`sqlalchemy.exc.OperationalError`) propagate; :meth:`Ledger.open`
+    turns them into messages.
+
     A ledger whose revision this fewshot does not know was written by a newer version:
     it is refused and left untouched.
     """
@@ -213,6 +221,15 @@ def upgrade_schema(engine: Engine, *, revision: str = "head") -> None:
                 # find it at the head revision. Released when this transaction ends.
                 conn.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": SCHEMA_LOCK_KEY})
             current = MigrationContext.configure(conn).get_current_revision()
+            if current is None:
+                clash = sorted(LEDGER_TABLES & set(inspect(conn).get_table_names()))
+                if clash:
+                    raise LedgerError(
+                        f"the database {mask_url(str(engine.url))} holds tables of another program "
+                        f"({', '.join(clash)}) and no fewshot schema, so it is not a fewshot "
+                        "ledger; it was left as it is. Give fewshot a database (or schema) of its "
+                        "own."
+                    )
             if current is not None and current not in known:
                 raise LedgerError(
                     f"the ledger {mask_url(str(engine.url))} has schema revision {current!r}, which "
@@ -224,23 +241,82 @@ def upgrade_schema(engine: Engine, *, revision: str = "head") -> None:
             cfg.attributes["connection"] = conn
             command.upgrade(cfg, revision)
 
-    try:
-        retry_locked(_do)
-    except OperationalError as exc:
-        raise LedgerError(
-            f"cannot open the ledger {mask_url(str(engine.url))}: {exc.orig}. "
-            "Check the URL, the server and your credentials."
-        ) from None
+    retry_locked(_do)  # errors are turned into messages by the caller (Ledger.open)
 
 
-def retry_locked(fn: Callable[[], T], *, attempts: int = 30) -> T:
-    """Call ``fn``, retrying with backoff while SQLite says the database is locked or busy."""
-    for k in range(attempts):
+def retry_locked(
+    fn: Callable[[], T],
+    *,
+    attempts: int = 30,
+    reconnect_seconds: float = 0.0,
+    url: str = "",
+) -> T:
+    """Call ``fn``, retrying with backoff while SQLite says the database is locked or busy, and,
+    for up to ``reconnect_seconds``, while the connection to the database server is lost (a
+    restart, a network blip). Giving up on a lost connection is a :class:`LedgerError`."""
+    locked = 0
+    lost = 0
+    deadline = 0.0
+    while True:
         try:
             return fn()
-        except OperationalError as exc:
-            text = str(exc.orig).lower()
-            if ("locked" not in text and "busy" not in text) or k == attempts - 1:
+        except DBAPIError as exc:
+            if is_locked(exc) and locked < attempts - 1:
+                time.sleep(min(2.0, 0.02 * 2**locked) * (0.5 + random.random()))
+                locked += 1
+                continue
+            if reconnect_seconds <= 0 or not is_connection_lost(exc):
                 raise
-            time.sleep(min(2.0, 0.02 * 2**k) * (0.5 + random.random()))
-    raise AssertionError("unreachable")
+            now = time.monotonic()
+            deadline = deadline or now + reconnect_seconds
+            if now >= deadline:
+                raise LedgerError(
+                    f"lost the connection to the ledger {mask_url(url)} and could not reconnect "
+                    f"within {reconnect_seconds:.0f} s ({first_line(exc.orig)}). Check that the "
+                    "database server is running and reachable, then run the command again; what "
+                    "this call was writing was not stored."
+                ) from None
+            time.sleep(min(5.0, 0.1 * 2**lost, deadline - now) * (0.5 + random.random() / 2))
+            lost += 1
+
+
+def is_locked(exc: DBAPIError) -> bool:
+    """SQLite's "database is locked" or "busy"."""
+    text = str(exc.orig).lower()
+    return "locked" in text or "busy" in text
+
+
+# What PostgreSQL and psycopg say when the server went away or is not there yet.
+_LOST = (
+    "terminating connection",
+    "server closed the connection",
+    "connection refused",
+    "could not connect",
+    "the database system is starting up",
+    "the database system is shutting down",
+    "the database system is in recovery mode",
+    "the database system is not yet accepting connections",
+    "connection is closed",
+    "connection already closed",
+    "consuming input failed",
+    "no connection to the server",
+    "ssl syscall error",
+    "connection timed out",
+    "connection reset",
+    "broken pipe",
+    "server conn crashed",
+)
+
+
+def is_connection_lost(exc: DBAPIError) -> bool:
+    """Whether ``exc`` says the connection to the database server was lost or refused."""
+    if exc.connection_invalidated:
+        return True
+    text = str(exc.orig).lower()
+    return any(t in text for t in _LOST)
+
+
+def first_line(error: object) -> str:
+    """The first line of an error's text, secrets masked."""
+    text = str(error).strip()
+    return mask_url(text.splitlines()[0] if text else type(error).__name__)

@@ -16,12 +16,18 @@ SIGTERM (what batch schedulers send on pre-emption), SIGHUP (a closed terminal) 
 (Ctrl-C) stop the worker the same way: the trainer's whole process group is stopped (SIGTERM,
 then SIGKILL after a grace period) and the run goes back to the plan. A signal that arrives while
 the worker claims a run or stores a finished one's results is held until that step is done.
+
+Every claim is an attempt (1, 2, ... as leases run out and the run is handed out again). The
+trainer sees its ``FEWSHOT_ATTEMPT``; the results file is per attempt; ingesting it and marking
+the run carry the attempt, so a worker whose lease ran out (a paused machine, a lost network)
+never marks a run that a newer attempt holds, and its results are kept only where they agree.
 """
 
 from __future__ import annotations
 
 import collections
 import os
+import re
 import shutil
 import signal
 import subprocess
@@ -38,7 +44,14 @@ from fewshot.ledger.runs import Claim
 from fewshot.pools import read_id_list
 from fewshot.sampling import subset_digest
 
-__all__ = ["ExecOutcome", "Stopped", "run_claims", "run_environment", "results_file_for"]
+__all__ = [
+    "ExecOutcome",
+    "Stopped",
+    "attempt_of_file",
+    "run_claims",
+    "run_environment",
+    "results_file_for",
+]
 
 STDERR_TAIL_LINES = 40
 STOP_GRACE_SECONDS = 10.0
@@ -95,7 +108,8 @@ class ExecOutcome:
     ----------
     key : str
     status : str
-        ``done`` or ``failed`` as left in the ledger.
+        ``done`` or ``failed`` as left in the ledger, or ``superseded`` when this attempt's
+        lease ran out and a newer attempt took the run over (its status was left to that one).
     returncode : int
     seconds : float
     ingested : int
@@ -109,9 +123,20 @@ class ExecOutcome:
     ingested: int
 
 
-def results_file_for(folder: Path, key: str) -> Path:
-    """Where a run's results file goes under ``folder`` (slashes of the key become ``__``)."""
-    return folder / (key.replace("/", "__") + ".jsonl")
+def results_file_for(folder: Path, key: str, attempt: int) -> Path:
+    """Where an attempt's results file goes under ``folder``: slashes of the run key become
+    ``__`` and the attempt is named (``arm__task__n10__s0.attempt2.jsonl``), so that two
+    attempts of a run never append to one file."""
+    return folder / f"{key.replace('/', '__')}.attempt{attempt}.jsonl"
+
+
+_ATTEMPT_FILE = re.compile(r"\.attempt([0-9]{1,18})\.(?:jsonl|csv)$", re.IGNORECASE)
+
+
+def attempt_of_file(path: Path) -> int | None:
+    """The attempt a results file of the work loop names (``*.attempt2.jsonl``), or None."""
+    m = _ATTEMPT_FILE.search(path.name)
+    return None if m is None else int(m.group(1)) or None
 
 
 def run_environment(
@@ -168,7 +193,7 @@ def run_claims(
     if max_runs is not None and max_runs < 1:
         raise InvalidInput(f"--max-runs must be 1 or more. Got {max_runs}.")
     if results_dir is not None:
-        results_dir.mkdir(parents=True, exist_ok=True)
+        _make_results_dir(results_dir)
     study = ledger.study
     outcomes: list[ExecOutcome] = []
     with _Signals() as signals:
@@ -187,7 +212,7 @@ def run_claims(
             except KeyboardInterrupt as exc:
                 # Stopped (Ctrl-C, SIGTERM, SIGHUP): hand the run back to the plan at once rather
                 # than leaving it to wait for its lease to expire.
-                ledger.release(claim.key, claim.worker)
+                ledger.release(claim.key, claim.worker, attempt=claim.attempt)
                 if isinstance(exc, Stopped):
                     raise
                 raise Stopped(signal.SIGINT) from None
@@ -246,9 +271,11 @@ def _run_one(
     start = time.monotonic()
     refused = check_subset_file(claim)
     if refused is not None:
-        ledger.fail(claim.key, refused)
-        return ExecOutcome(claim.key, "failed", -1, time.monotonic() - start, 0)
-    results = None if results_dir is None else results_file_for(results_dir, claim.key)
+        status = ledger.settle(claim.key, claim.attempt, "failed", refused)
+        return ExecOutcome(claim.key, status, -1, time.monotonic() - start, 0)
+    results = (
+        None if results_dir is None else results_file_for(results_dir, claim.key, claim.attempt)
+    )
     env = {**os.environ, **run_environment(claim, ledger_url, study, results)}
     tail: collections.deque[str] = collections.deque(maxlen=STDERR_TAIL_LINES)
     signals.check()
@@ -271,9 +298,19 @@ def _run_one(
             sys.stderr.write(line)
 
     def keep_lease() -> None:
-        # renew three times a lease, so that one slow renewal never lets the lease lapse
-        while not stop.wait(max(0.05, lease / 3)):
-            ledger.heartbeat(claim.key, claim.worker, lease)
+        # Renew four times a lease, so that a slow renewal on a loaded machine never lets the
+        # lease lapse; a renewal that fails (the server restarting) is tried again soon, and the
+        # thread never dies of it. When a newer attempt holds the run, renewing stops.
+        wait = lease / 4
+        while not stop.wait(wait):
+            try:
+                held = ledger.heartbeat(claim.key, claim.worker, lease, attempt=claim.attempt)
+            except Exception:  # noqa: BLE001 - kept trying until the trainer ends
+                wait = min(1.0, lease / 8)
+                continue
+            if not held:
+                return
+            wait = lease / 4
 
     threads = [
         threading.Thread(target=pump, daemon=True),
@@ -286,7 +323,7 @@ def _run_one(
         signals.check()  # a signal that came while the trainer was being started
         rc = proc.wait()
         signals.waiting = False
-    except KeyboardInterrupt:
+    except BaseException:  # Ctrl-C, SIGTERM, SIGHUP, or anything else: never orphan the trainer
         signals.waiting = False
         stop.set()
         _stop_group(proc)
@@ -297,17 +334,29 @@ def _run_one(
     message = None
     if results is not None and results.exists():
         try:
-            ingested = ledger.ingest_file(results, run=claim.key).stored
+            report = ledger.ingest_file(results, run=claim.key, attempt=claim.attempt)
+            ingested = report.stored + report.replaced
         except FewshotError as exc:  # a refused results file fails the run, with the reason
             rc = rc or 1
             message = f"results file {results} was refused: {exc}"
-    status = ledger.run_status(claim.key)
-    if status == "running":  # the trainer did not mark the run itself
-        if rc == 0 and message is None:
-            ledger.done(claim.key)
-            status = "done"
-        else:
-            text = message or "".join(tail).strip() or f"exited with status {rc}"
-            ledger.fail(claim.key, f"exit status {rc}: {text}")
-            status = "failed"
+    # Marked only while this attempt is current and the trainer did not mark the run itself.
+    if rc == 0 and message is None:
+        status = ledger.settle(claim.key, claim.attempt, "done")
+    else:
+        text = message or "".join(tail).strip() or f"exited with status {rc}"
+        status = ledger.settle(claim.key, claim.attempt, "failed", f"exit status {rc}: {text}")
     return ExecOutcome(claim.key, status, rc, time.monotonic() - start, ingested)
+
+
+def _make_results_dir(folder: Path) -> None:
+    if folder.exists() and not folder.is_dir():
+        raise InvalidInput(f"--results {folder} is a file, not a folder. Give a folder.")
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InvalidInput(
+            f"--results {folder}: cannot create the folder ({exc.strerror}). Pick a folder you "
+            "may write."
+        ) from None
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise InvalidInput(f"--results {folder}: you may not write in this folder. Pick another.")

@@ -3,12 +3,15 @@
 Times are seconds since the epoch (UTC) as floats, so SQLite and PostgreSQL compare
 them the same way. A result's ``step`` is ``-1`` for the final evaluation (a
 trainer's ``step: null``), so that (run, metric, step) can be a plain unique key.
-Every change here needs an Alembic revision in ``migrations/versions/``.
+Whole numbers a user gives (seeds, sizes, steps) are 64-bit on both engines (0 to 2**63-1,
+checked when they are parsed; see :mod:`fewshot.ranges`). Every change here needs an Alembic
+revision in ``migrations/versions/``.
 """
 
 from __future__ import annotations
 
 from sqlalchemy import (
+    BigInteger,
     Boolean,
     Float,
     ForeignKey,
@@ -33,7 +36,7 @@ class StudyRow(Base):
     name: Mapped[str] = mapped_column(String(64), unique=True)
     metric: Mapped[str] = mapped_column(String(200))
     higher_is_better: Mapped[bool] = mapped_column(Boolean)
-    replicates: Mapped[int] = mapped_column(Integer)
+    replicates: Mapped[int] = mapped_column(BigInteger)
     baseline: Mapped[str] = mapped_column(String(64))
     spec_json: Mapped[str] = mapped_column(Text)
     created_at: Mapped[float] = mapped_column(Float)
@@ -72,7 +75,7 @@ class DrawRow(Base):
     __table_args__ = (UniqueConstraint("task_id", "seed"),)
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     task_id: Mapped[int] = mapped_column(ForeignKey("task.id"))
-    seed: Mapped[int] = mapped_column(Integer)
+    seed: Mapped[int] = mapped_column(BigInteger)
     order_json: Mapped[str] = mapped_column(Text)
     reserve_json: Mapped[str] = mapped_column(Text)
 
@@ -82,8 +85,8 @@ class SubsetRow(Base):
     __table_args__ = (UniqueConstraint("task_id", "seed", "size"),)
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     task_id: Mapped[int] = mapped_column(ForeignKey("task.id"))
-    seed: Mapped[int] = mapped_column(Integer)
-    size: Mapped[int] = mapped_column(Integer)
+    seed: Mapped[int] = mapped_column(BigInteger)
+    size: Mapped[int] = mapped_column(BigInteger)
     digest: Mapped[str] = mapped_column(String(64))
     ids_path: Mapped[str] = mapped_column(Text)
 
@@ -100,13 +103,13 @@ class RunRow(Base):
     arm_id: Mapped[int] = mapped_column(ForeignKey("arm.id"))
     task_id: Mapped[int] = mapped_column(ForeignKey("task.id"))
     subset_id: Mapped[int] = mapped_column(ForeignKey("subset.id"))
-    size: Mapped[int] = mapped_column(Integer)
-    seed: Mapped[int] = mapped_column(Integer)
-    replicate: Mapped[int] = mapped_column(Integer)
+    size: Mapped[int] = mapped_column(BigInteger)
+    seed: Mapped[int] = mapped_column(BigInteger)
+    replicate: Mapped[int] = mapped_column(BigInteger)
     status: Mapped[str] = mapped_column(String(16))
     worker: Mapped[str | None] = mapped_column(String(200), nullable=True)
     lease_expires: Mapped[float | None] = mapped_column(Float, nullable=True)
-    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    attempts: Mapped[int] = mapped_column(BigInteger, default=0)
     message: Mapped[str | None] = mapped_column(Text, nullable=True)
     created_at: Mapped[float] = mapped_column(Float)
     started_at: Mapped[float | None] = mapped_column(Float, nullable=True)
@@ -119,13 +122,15 @@ class ResultRow(Base):
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     run_id: Mapped[int] = mapped_column(ForeignKey("run.id"))
     metric: Mapped[str] = mapped_column(String(200))
-    step: Mapped[int] = mapped_column(Integer)
+    step: Mapped[int] = mapped_column(BigInteger)
     value: Mapped[float] = mapped_column(Float)
-    n_values: Mapped[int] = mapped_column(Integer)
+    n_values: Mapped[int] = mapped_column(BigInteger)
     subset_digest: Mapped[str | None] = mapped_column(String(64), nullable=True)
     budget_json: Mapped[str | None] = mapped_column(Text, nullable=True)
     recorded_at: Mapped[float] = mapped_column(Float)
     source: Mapped[str | None] = mapped_column(String(80), nullable=True)
+    # the attempt of the run that wrote this result (None: written by hand, without an attempt)
+    attempt: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
 
 
 class ResultValueRow(Base):
@@ -144,5 +149,5 @@ class IngestedFileRow(Base):
     study_id: Mapped[int] = mapped_column(ForeignKey("study.id"))
     digest: Mapped[str] = mapped_column(String(64))
     path: Mapped[str] = mapped_column(Text)
-    rows: Mapped[int] = mapped_column(Integer)
+    rows: Mapped[int] = mapped_column(BigInteger)
     ingested_at: Mapped[float] = mapped_column(Float)

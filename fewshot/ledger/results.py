@@ -23,8 +23,9 @@ from sqlalchemy import Connection, delete, insert, select, update
 
 from fewshot.errors import FewshotError
 from fewshot.ledger.models import FINAL_STEP, ResultRow, ResultValueRow, RunRow, SubsetRow
-from fewshot.ledger.runs import find_run
+from fewshot.ledger.runs import check_attempt, find_run, lock_run
 from fewshot.pools import DuplicateKey, repeated_names, unique_keys
+from fewshot.ranges import INT64_MAX
 
 __all__ = [
     "ResultLine",
@@ -86,10 +87,22 @@ def _finite(x: object, what: str, where: str) -> float:
     where = "" if where == "call" else f"{where}: "
     if isinstance(x, bool) or not isinstance(x, int | float):
         raise ResultRefused(f"{where}{what} must be a number. Got {x!r}.")
-    v = float(x)
+    try:
+        v = float(x)
+    except OverflowError:  # a whole number beyond a float's range
+        raise ResultRefused(
+            f"{where}{what} is too large for a floating-point number. Got {x!r}."
+        ) from None
     if not math.isfinite(v):
         raise ResultRefused(f"{where}{what} must be a finite number. Got {x!r}.")
     return v
+
+
+def _finite_number(x: float) -> bool:
+    try:
+        return math.isfinite(x)
+    except OverflowError:  # a whole number beyond a float's range
+        return False
 
 
 def check_line(
@@ -113,9 +126,12 @@ def check_line(
         raise ResultRefused(f"{at}'run' must be a run key such as 'arm/task/n10/s0'. Got {run!r}.")
     if not isinstance(metric, str) or not metric.strip() or len(metric) > 200 or "\x00" in metric:
         raise ResultRefused(f"{at}'metric' must be a non-empty name. Got {metric!r}.")
-    if step is not None and (isinstance(step, bool) or not isinstance(step, int) or step < 0):
+    if step is not None and (
+        isinstance(step, bool) or not isinstance(step, int) or not 0 <= step <= INT64_MAX
+    ):
         raise ResultRefused(
-            f"{at}'step' must be a whole number of 0 or more, or null. Got {step!r}."
+            f"{at}'step' must be a whole number from 0 to 2**63-1 (what the ledger's column "
+            f"holds), or null. Got {step!r}."
         )
     vals: tuple[float, ...] = ()
     if values is not None:
@@ -135,7 +151,7 @@ def check_line(
             isinstance(k, str)
             and isinstance(b, int | float)
             and not isinstance(b, bool)
-            and math.isfinite(b)
+            and _finite_number(b)
             for k, b in budget.items()
         ):
             raise ResultRefused(f"{at}'budget' must map names to finite numbers. Got {budget!r}.")
@@ -268,11 +284,15 @@ class StoreReport:
     Attributes
     ----------
     stored, unchanged, replaced : int
+    ignored : int
+        Results of an attempt that is no longer its run's current one that differ from what is
+        stored or are not stored yet: left out (the current attempt's results count).
     """
 
     stored: int
     unchanged: int
     replaced: int
+    ignored: int = 0
 
 
 def _values_of(conn: Connection, result_id: int) -> tuple[float, ...]:
@@ -292,9 +312,25 @@ def store_results(
     *,
     replace: bool = False,
     source: str = "api",
+    attempt: int | None = None,
 ) -> StoreReport:
-    """Check every line against the ledger, then write them in bulk (caller's transaction)."""
+    """Check every line against the ledger, then write them in bulk (caller's transaction).
+
+    With ``attempt`` (the work loop's ``FEWSHOT_ATTEMPT``) every line must belong to one run.
+    When that attempt is the run's current one, its values take the place of values an older
+    attempt wrote; when a newer attempt holds the run, only results that agree with what is
+    stored are counted and the rest are left out (``ignored``), never refused.
+    """
     keys = sorted({ln.run for ln in lines})
+    stale = False
+    if attempt is not None and keys:
+        if len(keys) > 1:
+            raise ResultRefused(
+                f"results of one attempt belong to one run; these are of {len(keys)} runs "
+                f"({', '.join(map(repr, keys[:3]))}...). Write each run's results to its own file."
+            )
+        run_row = lock_run(conn, find_run(conn, sid, keys[0], study_name))
+        stale = not check_attempt(run_row, attempt, "results")
     runs: dict[str, tuple[int, str]] = {}
     for chunk in _chunks(keys, 500):
         for rid, key, digest in conn.execute(
@@ -319,9 +355,9 @@ def store_results(
                 "run's subset file (FEWSHOT_SUBSET), or drop the digest if it was computed differently."
             )
     run_ids = sorted({rid for rid, _ in runs.values()})
-    existing: dict[tuple[int, str, int], tuple[int, float, int]] = {}
+    existing: dict[tuple[int, str, int], tuple[int, float, int, int | None]] = {}
     for chunk in _chunks(run_ids, 500):
-        for res_id, rid, metric, step, value, n_values in conn.execute(
+        for res_id, rid, metric, step, value, n_values, by in conn.execute(
             select(
                 ResultRow.id,
                 ResultRow.run_id,
@@ -329,12 +365,13 @@ def store_results(
                 ResultRow.step,
                 ResultRow.value,
                 ResultRow.n_values,
+                ResultRow.attempt,
             ).where(ResultRow.run_id.in_(chunk))
         ):
-            existing[(rid, metric, step)] = (res_id, value, n_values)
+            existing[(rid, metric, step)] = (res_id, value, n_values, by)
     fresh: dict[tuple[int, str, int], ResultLine] = {}
     to_replace: list[tuple[int, ResultLine]] = []
-    unchanged = 0
+    unchanged = ignored = 0
     for ln in lines:
         k = (runs[ln.run][0], ln.metric, FINAL_STEP if ln.step is None else ln.step)
         if k in fresh:
@@ -346,7 +383,7 @@ def store_results(
             unchanged += 1
             continue
         if k in existing:
-            res_id, old_value, n_old = existing[k]
+            res_id, old_value, n_old, by = existing[k]
             same = (
                 old_value == ln.value
                 and n_old == len(ln.values)
@@ -354,7 +391,10 @@ def store_results(
             )
             if same:
                 unchanged += 1
-            elif replace:
+            elif stale:
+                ignored += 1
+            elif replace or (attempt is not None and by is not None and by < attempt):
+                # asked to, or the value was written by an older attempt of this run
                 to_replace.append((res_id, ln))
             else:
                 raise ResultRefused(
@@ -362,9 +402,12 @@ def store_results(
                     f"{_step(ln.step)}; refusing {ln.value!r}. Pass replace=True (--replace) to overwrite it."
                 )
             continue
+        if stale:
+            ignored += 1
+            continue
         fresh[k] = ln
     now = time.time()
-    _insert_fresh(conn, fresh, now, source)
+    _insert_fresh(conn, fresh, now, source, attempt)
     for res_id, ln in to_replace:
         conn.execute(
             update(ResultRow)
@@ -376,6 +419,7 @@ def store_results(
                 budget_json=_budget(ln.budget),
                 recorded_at=now,
                 source=source,
+                attempt=attempt,
             )
         )
         conn.execute(delete(ResultValueRow).where(ResultValueRow.result_id == res_id))
@@ -384,11 +428,17 @@ def store_results(
                 insert(ResultValueRow),
                 [{"result_id": res_id, "idx": i, "value": v} for i, v in enumerate(ln.values)],
             )
-    return StoreReport(stored=len(fresh), unchanged=unchanged, replaced=len(to_replace))
+    return StoreReport(
+        stored=len(fresh), unchanged=unchanged, replaced=len(to_replace), ignored=ignored
+    )
 
 
 def _insert_fresh(
-    conn: Connection, fresh: dict[tuple[int, str, int], ResultLine], now: float, source: str
+    conn: Connection,
+    fresh: dict[tuple[int, str, int], ResultLine],
+    now: float,
+    source: str,
+    attempt: int | None,
 ) -> None:
     if not fresh:
         return
@@ -403,6 +453,7 @@ def _insert_fresh(
             "budget_json": _budget(ln.budget),
             "recorded_at": now,
             "source": source,
+            "attempt": attempt,
         }
         for (rid, metric, step), ln in fresh.items()
     ]

@@ -14,12 +14,14 @@ from fewshot.ledger.models import ArmRow, RunRow, SubsetRow, TaskRow
 
 __all__ = [
     "Claim",
+    "StaleAttempt",
     "UnknownRun",
     "claim_run",
     "extend_lease",
     "finish_run",
     "find_run",
     "release_run",
+    "settle_run",
 ]
 
 MESSAGE_LIMIT = 4000
@@ -27,6 +29,45 @@ MESSAGE_LIMIT = 4000
 
 class UnknownRun(FewshotError, LookupError):
     """A run key that the selected study does not have."""
+
+
+class StaleAttempt(FewshotError, RuntimeError):
+    """A write from an attempt of a run that is no longer its current one (its lease ran out and
+    the run was handed out again): its status change is refused."""
+
+    def __init__(self, key: str, attempt: int, current: int, what: str) -> None:
+        super().__init__(
+            f"run {key!r}: attempt {attempt} is no longer the run's current one (attempt {current} "
+            f"took it over after attempt {attempt}'s lease ran out), so its {what} was not recorded. "
+            "Results of the older attempt are kept only where they agree with what is stored."
+        )
+        self.key = key
+        self.attempt = attempt
+        self.current = current
+
+
+def check_attempt(run: Row[Any], attempt: int | None, what: str) -> bool:
+    """True when ``attempt`` is the run's current one (or None: a write by hand), False when it is
+    an older one; an attempt the run never had is an error."""
+    if attempt is None or attempt == run.attempts:
+        return True
+    if isinstance(attempt, bool) or not isinstance(attempt, int) or not 1 <= attempt:
+        raise FewshotError(f"attempt must be a whole number of 1 or more. Got {attempt!r}.")
+    if attempt > run.attempts:
+        raise FewshotError(
+            f"run {run.key!r} was handed out {run.attempts} time(s), so it has no attempt "
+            f"{attempt}. Use the FEWSHOT_ATTEMPT the work loop gave the trainer."
+        )
+    return False
+
+
+def lock_run(conn: Connection, run: Row[Any]) -> Row[Any]:
+    """The run's row again, locked until the transaction ends (PostgreSQL; SQLite transactions
+    already hold the write lock), so that a claim cannot change its attempt meanwhile."""
+    q = select(RunRow).where(RunRow.id == run.id)
+    if conn.dialect.name == "postgresql":
+        q = q.with_for_update()
+    return conn.execute(q).one()
 
 
 @dataclass(frozen=True)
@@ -152,9 +193,14 @@ def claim_run(
     )
 
 
-def extend_lease(conn: Connection, run: Row[Any], worker: str, lease: float) -> bool:
-    """Push the lease of a running run forward; False when the worker no longer holds it."""
+def extend_lease(
+    conn: Connection, run: Row[Any], worker: str, lease: float, attempt: int | None = None
+) -> bool:
+    """Push the lease of a running run forward; False when the worker (and ``attempt``, when
+    given) no longer holds it."""
     if run.status != "running" or run.worker != worker:
+        return False
+    if attempt is not None and attempt != run.attempts:
         return False
     conn.execute(
         update(RunRow).where(RunRow.id == run.id).values(lease_expires=time.time() + lease)
@@ -162,8 +208,22 @@ def extend_lease(conn: Connection, run: Row[Any], worker: str, lease: float) -> 
     return True
 
 
-def finish_run(conn: Connection, run: Row[Any], status: str, message: str | None = None) -> None:
-    """Mark a run ``done`` or ``failed`` (with the tail of a message) and drop its lease."""
+def finish_run(
+    conn: Connection,
+    run: Row[Any],
+    status: str,
+    message: str | None = None,
+    *,
+    attempt: int | None = None,
+) -> None:
+    """Mark a run ``done`` or ``failed`` (with the tail of a message) and drop its lease.
+
+    With ``attempt``, only the run's current attempt may do so: an older one raises
+    :class:`StaleAttempt` and changes nothing.
+    """
+    run = lock_run(conn, run) if attempt is not None else run
+    if not check_attempt(run, attempt, f"'{status}'"):
+        raise StaleAttempt(run.key, int(attempt), run.attempts, f"'{status}'")  # type: ignore[arg-type]
     # NUL characters (a trainer's binary stderr) cannot be stored in PostgreSQL text: drop them.
     text = None if message is None else message.replace("\x00", "")[-MESSAGE_LIMIT:]
     conn.execute(
@@ -173,9 +233,13 @@ def finish_run(conn: Connection, run: Row[Any], status: str, message: str | None
     )
 
 
-def release_run(conn: Connection, run: Row[Any], worker: str) -> bool:
-    """Hand a running run held by ``worker`` back to the plan (status planned, no lease)."""
+def release_run(conn: Connection, run: Row[Any], worker: str, attempt: int | None = None) -> bool:
+    """Hand a running run held by ``worker`` (and ``attempt``, when given) back to the plan
+    (status planned, no lease)."""
+    run = lock_run(conn, run)
     if run.status != "running" or run.worker != worker:
+        return False
+    if attempt is not None and attempt != run.attempts:
         return False
     conn.execute(
         update(RunRow)
@@ -183,3 +247,18 @@ def release_run(conn: Connection, run: Row[Any], worker: str) -> bool:
         .values(status="planned", lease_expires=None, worker=None)
     )
     return True
+
+
+def settle_run(
+    conn: Connection, run: Row[Any], attempt: int, status: str, message: str | None
+) -> str:
+    """What the work loop does when a trainer ends: mark the run ``status`` when ``attempt`` is
+    still current and the run still running. Returns the status the run is left in, or
+    ``superseded`` when a newer attempt holds the run (nothing is changed then)."""
+    run = lock_run(conn, run)
+    if not check_attempt(run, attempt, f"'{status}'"):
+        return "superseded"
+    if run.status != "running":  # the trainer marked the run itself (or it was handed back)
+        return str(run.status)
+    finish_run(conn, run, status, message)
+    return status
