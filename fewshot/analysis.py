@@ -287,16 +287,22 @@ def compare_report(
     if n_min < 3:
         notes.append("some comparisons rest on fewer than 3 seeds: do not read them as evidence")
     notes.append(
-        "P(improvement), effective data, thresholds and areas use expanded percentile intervals of "
-        "whole-curve resamples"
+        "intervals: P(improvement) by Newcombe's score method; effective data and episodes to the "
+        "threshold by inverting a paired t test over sizes; areas by Student's t over seeds "
+        "(coverage measured by simulation: see the README)"
     )
-    if (table["censor"] == "lower_bound").any():
+    if (table.get("mark", pd.Series(dtype=str)) == ">=").any():
         notes.append(
-            "'>=' marks effective data that is only a lower bound: the arm beats the baseline's best point"
+            "'>=' marks effective data beyond the baseline's largest size (its whole interval lies there)"
         )
-    if (thresholds.get("censor", pd.Series(dtype=str)) == "not_reached").any():
+    if (table.get("label", pd.Series(dtype=str)) == "no clear difference").any():
         notes.append(
-            f"some arms never reach {threshold:g} (normalised) by the largest size: shown as '> largest'"
+            "'no clear difference': the interval of effective data holds n, so the data cannot tell "
+            "whether pretraining helps or hurts there"
+        )
+    if (thresholds.get("label", pd.Series(dtype=str)) == "not reached").any():
+        notes.append(
+            f"some arms are clearly below {threshold:g} (normalised) at the largest size: shown as '> largest'"
         )
     return CompareReport(
         table, thresholds, areas, headline, scaling, base, value, threshold, settings, sc, notes

@@ -39,32 +39,47 @@ def with_interval(est: float, low: float, high: float) -> str:
 
 
 def effective_cell(row: pd.Series) -> str:
-    """Effective data D_E with its multiplier, marking censoring and harm."""
+    """Effective data D_E with its multiplier and interval; ">=", "<=", "hurts" and "helps" only
+    where the interval supports them (else "no clear difference")."""
     if pd.isna(row.get("effective")):
         return "-"
-    mark = (
-        ">=" if row["censor"] == "lower_bound" else ("<=" if row["censor"] == "upper_bound" else "")
-    )
+    mark = row.get("mark") or ""
     text = f"{mark}{number(row['effective'])} (x{number(row['multiplier'], 2)})"
-    low = row.get("effective_low")
-    if not pd.isna(low) and not math.isinf(low):
-        high = row["effective_high"]
-        text += f" [{number(row['effective_low'])}, {'beyond ladder' if math.isinf(high) else number(high)}]"
-    if row.get("hurts") and not row["censor"]:
-        text += " hurts"
+    low, high = row.get("effective_low"), row.get("effective_high")
+    if not pd.isna(low) and not pd.isna(high):
+        left = "0" if low == 0 else number(low)
+        right = "beyond ladder" if math.isinf(high) else number(high)
+        text += f" [{left}, {right}]"
+    if row.get("label"):
+        text += f" {row['label']}"
     return text
 
 
 def threshold_cell(row: pd.Series) -> str:
-    """Episodes to the threshold, with censoring said in words."""
-    c = row["censor"]
-    if c == "zero-shot":
+    """Episodes to the threshold with its interval; censoring said in words only where the
+    interval supports it."""
+    label = row.get("label") or ""
+    if label == "zero-shot":
         return "0 (zero-shot)"
-    if c == "not_reached":
+    if label == "not reached":
         return f"> {row['largest']} (not reached)"
-    if c == "at_most":
+    if label == "already there":
         return f"<= {row['smallest']} (already there)"
-    return with_interval(row["episodes"], row["low"], row["high"])
+    c = row["censor"]
+    est = (
+        f"> {row['largest']}"
+        if c == "not_reached"
+        else f"<= {row['smallest']}"
+        if c == "at_most"
+        else "0"
+        if c == "zero-shot"
+        else number(row["episodes"])
+    )
+    low, high = row["low"], row["high"]
+    if pd.isna(low) or pd.isna(high):
+        return est
+    right = "beyond ladder" if math.isinf(high) else number(high)
+    return f"{est} [{number(low)}, {right}]"
 
 
 def transfer_rows(table: pd.DataFrame) -> list[dict[str, str]]:

@@ -23,7 +23,14 @@ from fewshot.errors import InvalidInput
 from fewshot.stats.bootstrap import DegenerateCells, bootstrap_cells
 from fewshot.stats.curves import CurveSettings
 from fewshot.stats.estimators import estimator as get_estimator
+from fewshot.stats.intervals import (
+    newcombe_interval,
+    newcombe_mean_interval,
+    stratified_mean_t,
+)
+from fewshot.stats.inversion import level_crossing_set, seed_t_interval
 from fewshot.stats.isotonic import first_reach, interpolate_log, isotonic_rows
+from fewshot.stats.labels import effective_label, effective_mark, threshold_label
 from fewshot.stats.resample import CurveResampler, interval
 
 __all__ = [
@@ -196,8 +203,13 @@ def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  #
         point = np.mean([rs.point(arm, t, sz) - rs.point(baseline, t, sz) for t in tasks], axis=0)
         draws = np.mean([rs.boot(arm, t, sz) - rs.boot(baseline, t, sz) for t in tasks], axis=0)
         n = min(min(rs.n_seeds(arm, t, sz), rs.n_seeds(baseline, t, sz)) for t in tasks)
+        diffs = [rs.matrix(arm, t, sz) - rs.matrix(baseline, t, sz) for t in tasks]  # sizes × seeds
+        weights = np.full(len(tasks), 1 / len(tasks))
         for k, size in enumerate(sizes):
-            lo, hi = interval(draws[:, k], settings.confidence, n)
+            if settings.estimator == "mean":  # closed-form stratified t (fewshot.stats.intervals)
+                _, lo, hi = stratified_mean_t([d[k] for d in diffs], weights, settings.confidence)
+            else:
+                lo, hi = interval(draws[:, k], settings.confidence, n)
             rows.append(
                 {
                     "arm": arm,
@@ -207,7 +219,9 @@ def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  #
                     "low": lo,
                     "high": hi,
                     "n_seeds": n,
-                    "method": "stratified expanded percentile",
+                    "method": "stratified t"
+                    if settings.estimator == "mean"
+                    else "stratified expanded percentile",
                     "note": f"mean over {len(tasks)} tasks",
                 }
             )
@@ -235,9 +249,8 @@ def improvement_probability(
     """
     chosen = check_baseline(scores, baseline, arms)
     rs = CurveResampler(scores, value, settings)
-    rows = []
+    rows = []  # (arm, task, size, probability, runs of arm, runs of baseline)
     for arm in chosen:
-        per_task: dict[int, list[tuple[float, np.ndarray, int]]] = {}
         for task in rs.seeds:
             if not (rs.has(arm, task) and rs.has(baseline, task)):
                 continue
@@ -245,56 +258,59 @@ def improvement_probability(
             if not len(sizes):
                 continue
             xa, xb = rs.matrix(arm, task, sizes), rs.matrix(baseline, task, sizes)  # sizes × seeds
-            idx = rs.index[task]
             for k, size in enumerate(sizes):
                 a, b = xa[k][np.isfinite(xa[k])], xb[k][np.isfinite(xb[k])]
-                n = min(len(a), len(b))
-                p = float(probability_of_improvement(a, b)) if n else np.nan
-                # resample seeds (the task's whole-curve indices), keeping each arm's present runs
-                ga, gb = xa[k][idx], xb[k][idx]
-                draws = _poi_rows(ga, gb)
-                lo, hi = interval(draws, settings.confidence, n)
-                rows.append(
-                    {
-                        "arm": arm,
-                        "task": task,
-                        "size": int(size),
-                        "probability": p,
-                        "low": lo,
-                        "high": hi,
-                        "n_seeds": n,
-                    }
-                )
-                per_task.setdefault(int(size), []).append((p, draws, n))
-        for size, items in sorted(per_task.items()):
-            if len(items) < 2:
-                continue
-            n = min(i[2] for i in items)
-            draws = np.mean([i[1] for i in items], axis=0)
-            lo, hi = interval(draws, settings.confidence, n)
-            rows.append(
+                p = float(probability_of_improvement(a, b)) if min(len(a), len(b)) else np.nan
+                rows.append((arm, task, int(size), p, len(a), len(b)))
+    cols = ["arm", "task", "size", "probability", "m", "n"]
+    per = pd.DataFrame(rows, columns=cols)
+    per["n_seeds"] = np.minimum(per["m"], per["n"])
+    # Newcombe's score interval (fewshot.stats.intervals): never a single point
+    ok = (per["n_seeds"] >= 2).to_numpy()
+    low, high = np.full(len(per), np.nan), np.full(len(per), np.nan)
+    if ok.any():
+        low[ok], high[ok] = newcombe_interval(
+            per["probability"].to_numpy()[ok],
+            per["m"].to_numpy()[ok],
+            per["n"].to_numpy()[ok],
+            settings.confidence,
+        )
+    per["low"], per["high"] = low, high
+    means = []
+    for (arm, size), g in per[per["m"] > 0].groupby(["arm", "size"], sort=False):
+        if len(g) < 2:
+            continue
+        means.append((arm, size, g))
+    frames = [per]
+    if means:
+        width = max(len(g) for *_, g in means)
+        pad = lambda col: np.array(  # noqa: E731
+            [
+                np.pad(g[col].to_numpy(float), (0, width - len(g)), constant_values=np.nan)
+                for *_, g in means
+            ]
+        )
+        lo_all, hi_all = newcombe_mean_interval(
+            pad("probability"), pad("m"), pad("n"), settings.confidence
+        )
+        n_all = np.array([int(g["n_seeds"].min()) for *_, g in means])
+        lo_all = np.where(n_all >= 2, lo_all, np.nan)
+        hi_all = np.where(n_all >= 2, hi_all, np.nan)
+        frames.append(
+            pd.DataFrame(
                 {
-                    "arm": arm,
+                    "arm": [m[0] for m in means],
                     "task": "all",
-                    "size": size,
-                    "probability": float(np.mean([i[0] for i in items])),
-                    "low": lo,
-                    "high": hi,
-                    "n_seeds": n,
+                    "size": [int(m[1]) for m in means],
+                    "probability": [float(g["probability"].mean()) for *_, g in means],
+                    "low": lo_all,
+                    "high": hi_all,
+                    "n_seeds": n_all,
                 }
             )
-    return pd.DataFrame(
-        rows, columns=["arm", "task", "size", "probability", "low", "high", "n_seeds"]
-    )
-
-
-def _poi_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """P(improvement) of each resample row, leaving out missing runs."""
-    valid = np.isfinite(a)[:, :, None] & np.isfinite(b)[:, None, :]
-    gt = ((a[:, :, None] > b[:, None, :]) & valid).sum(axis=(1, 2))
-    eq = ((a[:, :, None] == b[:, None, :]) & valid).sum(axis=(1, 2))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return (gt + 0.5 * eq) / valid.sum(axis=(1, 2))
+        )
+    out = pd.concat(frames, ignore_index=True)
+    return out[["arm", "task", "size", "probability", "low", "high", "n_seeds"]]
 
 
 def threshold_sizes(
@@ -317,10 +333,8 @@ def threshold_sizes(
         sizes = rs.sizes(arm, task)
         n = rs.n_seeds(arm, task, sizes)
         point = rs.point(arm, task, sizes)[None, :]
-        draws = rs.boot(arm, task, sizes)
         ep, censor = _reach(point, sizes, threshold)
-        ep_b, _ = _reach(draws, sizes, threshold)
-        lo, hi = interval(ep_b, settings.confidence, n)
+        lo, hi = _threshold_interval(rs.matrix(arm, task, sizes).T, sizes, threshold, settings)
         positive = sizes[sizes > 0]
         rows.append(
             {
@@ -331,12 +345,40 @@ def threshold_sizes(
                 "low": lo,
                 "high": hi,
                 "censor": censor[0],
+                "label": threshold_label(
+                    lo, hi, positive.min() if len(positive) else 0, sizes.max()
+                ),
                 "smallest": int(positive.min()) if len(positive) else 0,
                 "largest": int(sizes.max()),
                 "n_seeds": n,
             }
         )
     return pd.DataFrame(rows)
+
+
+def _threshold_interval(
+    seeds: np.ndarray, sizes: np.ndarray, threshold: float, settings: CurveSettings
+) -> tuple[float, float]:
+    """Sizes at which the arm's curve is not distinguishable from the threshold (test inversion
+    over complete seeds); a zero-shot point significantly above it gives [0, 0]."""
+    seeds = seeds[np.isfinite(seeds).all(axis=1)]
+    if len(seeds) < 2:
+        return float("nan"), float("nan")
+    zero = sizes[0] == 0
+    pos = sizes > 0
+    if pos.sum() == 0:
+        return float("nan"), float("nan")
+    lo, hi = level_crossing_set(
+        seeds[:, pos], np.full(len(seeds), threshold), sizes[pos], settings.confidence
+    )
+    if zero:
+        z0 = seeds[:, 0] - threshold
+        z_lo, z_hi = seed_t_interval(z0, settings.confidence)
+        if z_lo > 0:  # zero-shot is above the threshold: reached with no data
+            return 0.0, 0.0
+        if z_hi >= 0:  # zero-shot may reach it
+            lo = 0.0
+    return lo, hi
 
 
 def _reach(
@@ -385,14 +427,17 @@ def effective_data(
             a_sizes = rs.sizes(arm, task)
             a_sizes = a_sizes[a_sizes > 0]
             fit = isotonic_rows(rs.point(baseline, task, b_sizes)[None, :])
-            fit_b = isotonic_rows(rs.boot(baseline, task, b_sizes))
             a_point = rs.point(arm, task, a_sizes)
-            a_boot = rs.boot(arm, task, a_sizes)
+            a_seeds = rs.matrix(arm, task, a_sizes)  # sizes × seeds
+            b_seeds = rs.matrix(baseline, task, b_sizes).T  # seeds × sizes
             n = min(rs.n_seeds(arm, task, a_sizes), rs.n_seeds(baseline, task, b_sizes))
             for k, size in enumerate(a_sizes):
                 d_e, censor = _read_off(fit, b_sizes, np.array([a_point[k]]))
-                d_e_b, _ = _read_off(fit_b, b_sizes, a_boot[:, k], censored=True)
-                lo, hi = interval(d_e_b, settings.confidence, n)
+                # test inversion over sizes, paired by seed (fewshot.stats.inversion)
+                ok = np.isfinite(a_seeds[k]) & np.isfinite(b_seeds).all(axis=1)
+                lo, hi = level_crossing_set(
+                    b_seeds[ok], a_seeds[k][ok], b_sizes, settings.confidence
+                )
                 d_t = float(d_e[0] - size)
                 rows.append(
                     {
@@ -410,7 +455,10 @@ def effective_data(
                         "multiplier_low": lo / size,
                         "multiplier_high": hi / size,
                         "censor": censor[0],
-                        "hurts": bool(d_t < 0),
+                        # labels only where the interval supports them (fewshot.stats.labels)
+                        "mark": effective_mark(censor[0], lo, hi, b_sizes[0], b_sizes[-1]),
+                        "label": effective_label(size, lo, hi),
+                        "hurts": effective_label(size, lo, hi) == "hurts",
                         "n_seeds": n,
                     }
                 )
@@ -462,9 +510,10 @@ def curve_areas(
             continue
         x = np.log(sizes.astype(float))
         point = np.trapezoid(rs.point(arm, task, sizes), x) / (x[-1] - x[0])
-        draws = np.trapezoid(rs.boot(arm, task, sizes), x, axis=1) / (x[-1] - x[0])
+        # each seed's area, then Student's t over seeds (the area is linear in the curve)
+        per_seed = np.trapezoid(rs.matrix(arm, task, sizes).T, x, axis=1) / (x[-1] - x[0])
         n = rs.n_seeds(arm, task, sizes)
-        lo, hi = interval(draws, settings.confidence, n)
+        lo, hi = seed_t_interval(per_seed, settings.confidence)
         rows.append(
             {
                 "arm": arm,
