@@ -286,6 +286,11 @@ def compare_report(
     notes.append(f"pairs by seed (same subsets); seeds behind each comparison: {n_min} or more")
     if n_min < 3:
         notes.append("some comparisons rest on fewer than 3 seeds: do not read them as evidence")
+    if len(table) and (table["p_seeds"].fillna(0) < 2).any():
+        notes.append(
+            "too few seeds for an interval on P(improvement), effective data or differences where a "
+            "comparison has 1 seed: at least 2 needed (estimates shown without intervals)"
+        )
     notes.append(
         "intervals: P(improvement) by Newcombe's score method; effective data and episodes to the "
         "threshold by inverting a paired t test over sizes; areas by Student's t over seeds "
@@ -369,7 +374,7 @@ def make_figure(
             eff,
             value="multiplier",
             label="data multiplier at the largest size",
-            censored=eff["censor"] == "lower_bound",
+            censored=eff["mark"] == ">=",  # only where the interval lies beyond the ladder too
         )
     if kind == "profile":
         from fewshot.stats.profiles import performance_profile

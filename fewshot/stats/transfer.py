@@ -8,8 +8,11 @@
   baseline's isotonic fit on log size; D_T = D_E - n, multiplier D_E / n;
 - the area under the normalised curve over log size.
 
-Derived quantities get expanded percentile intervals from whole-curve resamples (see
-:mod:`fewshot.stats.resample`); differences use the interval method of the settings.
+Intervals, chosen by measured coverage (``tests/benchmarks/coverage.py --printed``): differences
+per task use the interval method of the settings, their mean over tasks a stratified t
+(:mod:`fewshot.stats.intervals`); P(improvement) Newcombe's score interval; effective data and
+episodes to a threshold test inversion over sizes (:mod:`fewshot.stats.inversion`); areas
+Student's t over the seeds' areas. Labels follow the intervals (:mod:`fewshot.stats.labels`).
 """
 
 from __future__ import annotations
@@ -201,13 +204,24 @@ def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  #
             continue
         sz = np.array(sizes)
         point = np.mean([rs.point(arm, t, sz) - rs.point(baseline, t, sz) for t in tasks], axis=0)
-        draws = np.mean([rs.boot(arm, t, sz) - rs.boot(baseline, t, sz) for t in tasks], axis=0)
+        mean = settings.estimator == "mean"
+        draws = (
+            None
+            if mean
+            else np.mean([rs.boot(arm, t, sz) - rs.boot(baseline, t, sz) for t in tasks], axis=0)
+        )
         n = min(min(rs.n_seeds(arm, t, sz), rs.n_seeds(baseline, t, sz)) for t in tasks)
         diffs = [rs.matrix(arm, t, sz) - rs.matrix(baseline, t, sz) for t in tasks]  # sizes × seeds
         weights = np.full(len(tasks), 1 / len(tasks))
         for k, size in enumerate(sizes):
-            if settings.estimator == "mean":  # closed-form stratified t (fewshot.stats.intervals)
+            if (
+                draws is None
+            ):  # closed-form stratified t on paired differences (fewshot.stats.intervals)
                 _, lo, hi = stratified_mean_t([d[k] for d in diffs], weights, settings.confidence)
+                half = (
+                    hi - lo
+                ) / 2  # centred on the estimate (they differ only when runs are missing)
+                lo, hi = point[k] - half, point[k] + half
             else:
                 lo, hi = interval(draws[:, k], settings.confidence, n)
             rows.append(
@@ -219,9 +233,7 @@ def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  #
                     "low": lo,
                     "high": hi,
                     "n_seeds": n,
-                    "method": "stratified t"
-                    if settings.estimator == "mean"
-                    else "stratified expanded percentile",
+                    "method": "stratified t" if mean else "stratified expanded percentile",
                     "note": f"mean over {len(tasks)} tasks",
                 }
             )
@@ -324,7 +336,10 @@ def threshold_sizes(
 
     A zero-shot point (size 0) that reaches it counts as reaching it with no data. Columns: arm,
     task, threshold, episodes, low, high, censor (``""``, ``"zero-shot"``, ``"at_most"`` = already
-    at the smallest size, ``"not_reached"`` = not by the largest size), smallest, largest, n_seeds.
+    at the smallest size, ``"not_reached"`` = not by the largest size: the point estimate's
+    censoring), label (``"zero-shot"``, ``"already there"``, ``"not reached"`` only when the interval
+    supports it, else ``""``), smallest, largest, n_seeds. low/high: test inversion (0 = at or below
+    the smallest size, inf = beyond the ladder).
     """
     settings.check()
     rs = CurveResampler(scores, value, settings)
@@ -404,10 +419,12 @@ def effective_data(
 ) -> pd.DataFrame:
     """Effective data transferred per (arm, task, size >= 1).
 
-    Columns: arm, task, size, arm_estimate, effective (D_E), transferred (D_T = D_E - n), multiplier
-    (D_E / n) with lows and highs, censor (``""``; ``"lower_bound"`` when the arm beats the baseline's
-    best point, so D_E exceeds the largest size; ``"upper_bound"`` when the arm is below the baseline's
-    smallest point), hurts (D_T < 0: pretraining that hurts), n_seeds.
+        Columns: arm, task, size, arm_estimate, effective (D_E), transferred (D_T = D_E - n), multiplier
+        (D_E / n) with lows and highs, censor (``""``; ``"lower_bound"`` when the arm beats the baseline's
+        best point, so D_E exceeds the largest size; ``"upper_bound"`` when the arm is below the baseline's
+        smallest point), mark (``">="``/``"<="`` only when the interval lies beyond the ladder too), label
+    (``helps``/``hurts`` when the whole interval of D_T is above/below zero, else ``no clear
+    difference``), hurts (label is ``hurts``), n_seeds.
     """
     settings.check()
     chosen = check_baseline(scores, baseline, arms)
