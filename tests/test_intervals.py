@@ -124,3 +124,21 @@ def test_stratified_mean_t_equal_strata_use_the_pooled_df():
     assert (lo, hi) == pytest.approx(
         (est - stats.t.ppf(0.975, 6) * se, est + stats.t.ppf(0.975, 6) * se)
     )
+
+
+def test_probability_of_improvement_is_brunner_munzels_relative_effect():
+    # scipy.stats.brunnermunzel(x, y) standardises p = P(X < Y) + P(X = Y)/2, estimated from mid-ranks as
+    # (mean rank of y in the pooled sample - (m+1)/2) / n (Brunner & Munzel 2000): its statistic is
+    # W = n m (p - 1/2) / sqrt(n S_x^2 + m S_y^2) with the rank variances S below. Our P(X > Y) is 1 - p.
+    rng = np.random.default_rng(8)
+    for n, m in ((3, 3), (5, 4), (6, 9)):
+        x, y = np.round(rng.normal(0.3, 1, n), 1), np.round(rng.normal(0, 1, m), 1)  # ties too
+        pooled = stats.rankdata(np.concatenate([x, y]))
+        rx, ry = pooled[:n], pooled[n:]
+        sx = np.sum((rx - stats.rankdata(x) - rx.mean() + (n + 1) / 2) ** 2) / (n - 1)
+        sy = np.sum((ry - stats.rankdata(y) - ry.mean() + (m + 1) / 2) ** 2) / (m - 1)
+        if n * sx + m * sy == 0:
+            continue
+        p = 1 - probability_of_improvement(x, y)
+        w = n * m * (p - 0.5) / np.sqrt(n * sx + m * sy)
+        assert stats.brunnermunzel(x, y).statistic == pytest.approx(w)
