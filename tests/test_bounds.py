@@ -41,9 +41,9 @@ def test_a_quantile_next_to_an_infinite_draw_is_infinite():
 
 
 def test_effective_data_bounds_are_sizes_or_infinite():
-    # a study where, at size 10, a few per cent of resamples put the arm beyond the baseline's
-    # best point: the upper quantile falls between the last finite and the first infinite draw
-    # (found by search; the old code printed 8.4e306 here)
+    # a study where, at size 10, the arm may be beyond the baseline's best point (found by search;
+    # a bootstrap quantile between the last finite and the first infinite draw once printed
+    # 8.4e306 here): the high end is a size of the ladder or infinite (test inversion)
     rng = np.random.default_rng(0)
     rows = []
     for size in (1, 3, 10, 30):
@@ -118,6 +118,8 @@ def _eff_row(**kw):
         effective_low=12.0,
         effective_high=math.inf,
         censor="lower_bound",
+        mark="",  # ">=" only when the whole interval lies beyond the ladder (fewshot.stats.labels)
+        label="helps",
         hurts=False,
         n_seeds=5,
     )
@@ -127,8 +129,9 @@ def _eff_row(**kw):
 
 def test_infinite_bounds_read_beyond_ladder_in_every_display():
     row = _eff_row()
-    assert effective_cell(row) == ">=30 (x10) [12, beyond ladder]"
-    assert effective_cell(_eff_row(effective_low=math.inf)) == ">=30 (x10) [beyond ladder]"
+    assert effective_cell(row) == "30 (x10) [12, beyond ladder] helps"
+    beyond = _eff_row(effective_low=30.0, mark=">=")
+    assert effective_cell(beyond) == ">=30 (x10) [30, beyond ladder] helps"
     tex = latex_table(transfer_rows(pd.DataFrame([row])), "c")
     assert "beyond ladder" in tex and "e+307" not in tex
 
