@@ -32,7 +32,30 @@ __all__ = [
     "newcombe_variance",
     "newcombe_interval",
     "newcombe_mean_interval",
+    "huge_scale",
 ]
+
+HUGE = 2.0**300  # beyond this, squares (variances) may overflow to inf
+
+
+def huge_scale(*arrays: np.ndarray) -> float:
+    """A power of two that brings the largest finite |value| of ``arrays`` near 1 when it is huge
+    (>= 2**300, e.g. scores near 1e200), else 1.
+
+    Multiplying by a power of two is exact, and every t interval here is scale-equivariant (its
+    degrees of freedom scale-invariant), so computing on scaled values and scaling the ends back
+    gives the same interval without ``s**2`` overflowing (as :func:`fewshot.stats.bootstrap_cells`
+    does for cells).
+    """
+    peak = 0.0
+    for a in arrays:
+        v = np.abs(np.asarray(a, float))
+        v = v[np.isfinite(v)]
+        if v.size:
+            peak = max(peak, float(v.max()))
+    if peak < HUGE:
+        return 1.0
+    return float(np.ldexp(1.0, -int(np.frexp(peak)[1])))
 
 
 def satterthwaite_df(variances: np.ndarray, counts: np.ndarray, weights: np.ndarray) -> float:
@@ -63,6 +86,8 @@ def strata_df(strata: list[np.ndarray]) -> float:
     counts = np.array([np.isfinite(x).sum() for x in strata], dtype=float)
     if len(counts) == 0 or counts.min() < 2:
         return float("nan")
+    c = huge_scale(*strata)  # df is scale-invariant; huge values would overflow the variances
+    strata = [np.asarray(x, float) * c for x in strata]
     variances = np.array([np.nanvar(x, ddof=1) for x in strata])
     return satterthwaite_df(variances, counts, counts / counts.sum())
 
@@ -84,7 +109,8 @@ def stratified_t(
     if not np.isfinite(df):
         return float("nan"), float("nan"), float("nan")
     kept = draws[np.isfinite(draws)]
-    se = float(np.std(kept, ddof=1)) if kept.size > 1 else float("nan")
+    c = huge_scale(kept)  # the SE of huge draws, computed on exactly scaled values
+    se = float(np.std(kept * c, ddof=1)) / c if kept.size > 1 else float("nan")
     q = float(stats.t.ppf(0.5 + confidence / 2, df))
     return estimate - q * se, estimate + q * se, df
 
@@ -96,6 +122,10 @@ def stratified_mean_t(
     (Cochran eq. 5.6), Satterthwaite's df. Returns (estimate, low, high); NaN interval when a
     stratum has fewer than 2 values."""
     xs = [np.asarray(x, float)[np.isfinite(x)] for x in strata]
+    c = huge_scale(*xs)  # values near 1e200: computed on exactly scaled values, scaled back
+    if c != 1.0:
+        est, lo, hi = stratified_mean_t([x * c for x in xs], weights, confidence)
+        return est / c, lo / c, hi / c
     w = np.asarray(weights, float)
     est = (
         float(sum(wi * x.mean() for wi, x in zip(w, xs, strict=True)))

@@ -24,6 +24,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
+from fewshot.stats.intervals import huge_scale
+
 __all__ = ["level_crossing_set", "seed_t_interval"]
 
 
@@ -79,7 +81,9 @@ def level_crossing_set(
         ``low`` is 0 when sizes below the ladder are kept, ``high`` inf when sizes above it are;
         NaN, NaN below 2 seeds.
     """
-    g = np.asarray(curve, float) - np.asarray(level, float)[:, None]
+    curve, level = np.asarray(curve, float), np.asarray(level, float)
+    c = huge_scale(curve, level)  # the test is scale-invariant; huge scores would overflow g**2
+    g = curve * c - level[:, None] * c
     n, k = g.shape
     if n < 2:
         return float("nan"), float("nan")
@@ -112,6 +116,8 @@ def seed_t_interval(values: np.ndarray, confidence: float) -> tuple[float, float
     n = len(v)
     if n < 2:
         return float("nan"), float("nan")
+    c = huge_scale(v)  # values near 1e200: exactly scaled, so the spread does not overflow
+    v = v * c
     q = float(stats.t.ppf(0.5 + confidence / 2, n - 1))
     half = q * v.std(ddof=1) / np.sqrt(n)
-    return float(v.mean() - half), float(v.mean() + half)
+    return float(v.mean() - half) / c, float(v.mean() + half) / c
