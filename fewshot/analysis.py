@@ -400,17 +400,28 @@ def compare_scores(
         notes.append(
             "some comparisons rest on fewer than 3 seeds (flagged !): do not read them as evidence"
         )
-    notes.append(
-        "P(improvement), effective data, thresholds and areas use expanded percentile intervals of "
-        "whole-curve resamples"
-    )
-    if (table["censor"] == "lower_bound").any():
+    if len(table) and (table["p_seeds"].fillna(0) < 2).any():
         notes.append(
-            "'>=' marks effective data that is only a lower bound: the arm beats the baseline's best point"
+            "too few seeds for an interval on P(improvement), effective data or differences where a "
+            "comparison has 1 seed: at least 2 needed (estimates shown without intervals)"
         )
-    if (thresholds.get("censor", pd.Series(dtype=str)) == "not_reached").any():
+    notes.append(
+        "intervals: P(improvement) by Newcombe's score method; effective data and episodes to the "
+        "threshold by inverting a paired t test over sizes; areas by Student's t over seeds "
+        "(coverage measured by simulation: see the README)"
+    )
+    if (table.get("mark", pd.Series(dtype=str)) == ">=").any():
         notes.append(
-            f"some arms never reach {threshold:g} (normalised) by the largest size: shown as '> largest'"
+            "'>=' marks effective data beyond the baseline's largest size (its whole interval lies there)"
+        )
+    if (table.get("label", pd.Series(dtype=str)) == "no clear difference").any():
+        notes.append(
+            "'no clear difference': the interval of effective data holds n, so the data cannot tell "
+            "whether pretraining helps or hurts there"
+        )
+    if (thresholds.get("label", pd.Series(dtype=str)) == "not reached").any():
+        notes.append(
+            f"some arms are clearly below {threshold:g} (normalised) at the largest size: shown as '> largest'"
         )
     return CompareReport(
         table,
@@ -552,7 +563,7 @@ def make_figure(
             eff,
             value="multiplier",
             label="data multiplier at the largest size",
-            censored=eff["censor"] == "lower_bound",
+            censored=eff["mark"] == ">=",  # only where the interval lies beyond the ladder too
         )
     if kind == "profile":
         from fewshot.stats.profiles import performance_profile

@@ -43,26 +43,23 @@ def with_interval(est: float, low: float, high: float) -> str:
 
 
 def effective_cell(row: pd.Series) -> str:
-    """Effective data D_E with its multiplier, marking censoring and harm."""
+    """Effective data D_E with its multiplier and interval; ">=", "<=", "hurts" and "helps" only
+    where the interval supports them (else "no clear difference")."""
     if pd.isna(row.get("effective")):
         return "-"
-    mark = (
-        ">=" if row["censor"] == "lower_bound" else ("<=" if row["censor"] == "upper_bound" else "")
-    )
+    mark = row.get("mark") or ""
     text = f"{mark}{number(row['effective'])} (x{number(row['multiplier'], 2)})"
-    low = row.get("effective_low")
-    if not pd.isna(low):
-        high = row["effective_high"]
-        both = math.isinf(low) and low > 0  # every resample beyond the ladder
-        text += " [beyond ladder]" if both else f" [{bound(low)}, {bound(high)}]"
-    if row.get("hurts") and not row["censor"]:
-        text += " hurts"
+    low, high = row.get("effective_low"), row.get("effective_high")
+    if not pd.isna(low) and not pd.isna(high):
+        text += f" [{bound(low)}, {bound(high)}]"
+    if row.get("label"):
+        text += f" {row['label']}"
     return text
 
 
 def bound(x: float) -> str:
-    """An effective-data bound: an infinite one (a resample beyond the baseline's largest size)
-    reads "beyond ladder"."""
+    """A bound on the size axis (effective data, episodes to a threshold): an infinite one (sizes
+    beyond the largest that the data cannot rule out) reads "beyond ladder"."""
     return "beyond ladder" if math.isinf(x) and x > 0 else number(x)
 
 
@@ -79,15 +76,29 @@ def flagged(text: str, n_seeds: object) -> str:
 
 
 def threshold_cell(row: pd.Series) -> str:
-    """Episodes to the threshold, with censoring said in words."""
-    c = row["censor"]
-    if c == "zero-shot":
+    """Episodes to the threshold with its interval; censoring said in words only where the
+    interval supports it."""
+    label = row.get("label") or ""
+    if label == "zero-shot":
         return "0 (zero-shot)"
-    if c == "not_reached":
+    if label == "not reached":
         return f"> {row['largest']} (not reached)"
-    if c == "at_most":
+    if label == "already there":
         return f"<= {row['smallest']} (already there)"
-    return with_interval(row["episodes"], row["low"], row["high"])
+    c = row["censor"]
+    est = (
+        f"> {row['largest']}"
+        if c == "not_reached"
+        else f"<= {row['smallest']}"
+        if c == "at_most"
+        else "0"
+        if c == "zero-shot"
+        else number(row["episodes"])
+    )
+    low, high = row["low"], row["high"]
+    if pd.isna(low) or pd.isna(high):
+        return est
+    return f"{est} [{bound(low)}, {bound(high)}]"
 
 
 def transfer_rows(table: pd.DataFrame) -> list[dict[str, str]]:

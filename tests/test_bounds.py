@@ -11,6 +11,8 @@ from scipy import stats
 
 from fewshot.cli.common import records
 from fewshot.stats import CurveSettings, bootstrap_cells
+from fewshot.stats.intervals import stratified_mean_t
+from fewshot.stats.inversion import level_crossing_set, seed_t_interval
 from fewshot.stats.resample import expanded_level, interval, quantile_inf
 from fewshot.stats.transfer import effective_data, paired_differences
 from fewshot.tables import effective_cell, latex_table, number, transfer_rows
@@ -41,9 +43,9 @@ def test_a_quantile_next_to_an_infinite_draw_is_infinite():
 
 
 def test_effective_data_bounds_are_sizes_or_infinite():
-    # a study where, at size 10, a few per cent of resamples put the arm beyond the baseline's
-    # best point: the upper quantile falls between the last finite and the first infinite draw
-    # (found by search; the old code printed 8.4e306 here)
+    # a study where, at size 10, the arm may be beyond the baseline's best point (found by search;
+    # a bootstrap quantile between the last finite and the first infinite draw once printed
+    # 8.4e306 here): the high end is a size of the ladder or infinite (test inversion)
     rng = np.random.default_rng(0)
     rows = []
     for size in (1, 3, 10, 30):
@@ -95,6 +97,51 @@ def test_paired_differences_near_1e200_are_finite():
         assert np.isfinite(d[["difference", "low", "high"]].to_numpy()).all(), est
 
 
+def test_new_t_intervals_near_1e200_are_the_scaled_ones():
+    # issue 11's intervals (areas, stratified t over tasks, test inversion) on scores near 1e200:
+    # finite, and the intervals of the unscaled values scaled (they are scale-equivariant)
+    x = np.array([1.0, 2.5, 3.1, 4.2, 2.2])
+    lo, hi = seed_t_interval(x * 1e200, 0.95)
+    ref = stats.t.interval(0.95, 4, loc=x.mean(), scale=stats.sem(x))  # scipy
+    assert (lo, hi) == pytest.approx((ref[0] * 1e200, ref[1] * 1e200), rel=1e-12)
+    strata = [x, x[:3] + 1.0]
+    small = stratified_mean_t(strata, np.array([0.5, 0.5]), 0.95)
+    big = stratified_mean_t([v * 1e200 for v in strata], np.array([0.5, 0.5]), 0.95)
+    assert np.isfinite(big).all()
+    assert big == pytest.approx(tuple(v * 1e200 for v in small), rel=1e-12)
+    curve = np.array([[0.0, 1.0, 2.1], [0.2, 1.3, 1.9], [-0.1, 0.8, 2.3]])
+    level = np.array([1.0, 1.2, 0.9])
+    sizes = np.array([1.0, 3.0, 10.0])
+    small_set = level_crossing_set(curve, level, sizes, 0.95)
+    big_set = level_crossing_set(curve * 1e200, level * 1e200, sizes, 0.95)
+    assert big_set == pytest.approx(small_set, rel=1e-9)
+    assert small_set[0] < small_set[1]  # the case holds an interval, not a failure
+
+
+def test_means_over_tasks_near_1e200_are_finite():
+    rows = []
+    for task in ("t", "u"):
+        for size in (1, 3):
+            for seed, (a, b) in enumerate([(3.0, 1.0), (2.5, 1.2), (4.0, 0.5), (3.3, 1.1)]):
+                for arm, v in (("wide", a), ("scratch", b)):
+                    rows.append(
+                        dict(
+                            arm=arm,
+                            role="x",
+                            task=task,
+                            group=None,
+                            size=size,
+                            seed=seed,
+                            v=v * 1e200,
+                        )
+                    )
+    frame = pd.DataFrame(rows)
+    d = paired_differences(frame, "scratch", CurveSettings("mean", resamples=500), value="v")
+    every = d[d["task"] == "all"]
+    assert len(every) == 2 and (every["method"] == "stratified t").all()
+    assert np.isfinite(every[["difference", "low", "high"]].to_numpy()).all()
+
+
 def test_numbers_never_print_every_digit():
     assert number(3.4e307) == "3.4e+307"
     assert number(123456.0) == "123456"
@@ -118,6 +165,8 @@ def _eff_row(**kw):
         effective_low=12.0,
         effective_high=math.inf,
         censor="lower_bound",
+        mark="",  # ">=" only when the whole interval lies beyond the ladder (fewshot.stats.labels)
+        label="helps",
         hurts=False,
         n_seeds=5,
     )
@@ -127,8 +176,9 @@ def _eff_row(**kw):
 
 def test_infinite_bounds_read_beyond_ladder_in_every_display():
     row = _eff_row()
-    assert effective_cell(row) == ">=30 (x10) [12, beyond ladder]"
-    assert effective_cell(_eff_row(effective_low=math.inf)) == ">=30 (x10) [beyond ladder]"
+    assert effective_cell(row) == "30 (x10) [12, beyond ladder] helps"
+    beyond = _eff_row(effective_low=30.0, mark=">=")
+    assert effective_cell(beyond) == ">=30 (x10) [30, beyond ladder] helps"
     tex = latex_table(transfer_rows(pd.DataFrame([row])), "c")
     assert "beyond ladder" in tex and "e+307" not in tex
 

@@ -37,3 +37,20 @@ def test_coverage_sentence_names_the_nearest_seed_count():
     )  # between two measured counts: the fewer, the cautious one
     assert "from 10 seeds" in coverage_sentence("t", 30)
     assert "not measured" in coverage_sentence("magic", 5)
+
+
+def test_printed_table_covers_every_quantity_and_kind():
+    from fewshot.stats.coverage import KINDS, PRINTED, printed_sentence
+    from fewshot.stats.harness import QUANTITIES
+
+    assert set(PRINTED) == set(QUANTITIES)
+    assert {q for qs in KINDS.values() for q in qs} <= set(QUANTITIES)
+    for q in QUANTITIES:
+        for noise in ("normal", "lognormal", "two-mode"):
+            assert set(PRINTED[q][noise]) == {3, 5, 10}
+    text = printed_sentence(5)
+    assert "at 5 seeds" in text and all(kind in text for kind in KINDS)
+    # the harness's last run met the targets on normal noise (>= 90% at 3 seeds, >= 93% at 5)
+    assert all(
+        PRINTED[q]["normal"][3] >= 0.90 and PRINTED[q]["normal"][5] >= 0.93 for q in QUANTITIES
+    )

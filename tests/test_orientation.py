@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from scipy import stats
+from scipy import optimize, stats
 from sklearn.isotonic import IsotonicRegression
 
 from fewshot.analysis import compare_scores, curve_scores, score_tables, seeds_report
@@ -138,7 +138,11 @@ def test_a_study_and_its_lower_is_better_mirror_give_the_same_numbers(case):
         "effective_low",
         "effective_high",
         "transferred",
+        "transferred_low",
+        "transferred_high",
         "multiplier",
+        "multiplier_low",
+        "multiplier_high",
     ]
     _same(x.table, y.table, same)
     for col in ("difference", "arm_estimate"):
@@ -146,15 +150,21 @@ def test_a_study_and_its_lower_is_better_mirror_give_the_same_numbers(case):
         np.testing.assert_allclose(y.table[col], want, rtol=1e-12, atol=1e-12, err_msg=col)
     np.testing.assert_allclose(y.table["low"], np.where(raw, -x.table["high"], x.table["low"]))
     np.testing.assert_allclose(y.table["high"], np.where(raw, -x.table["low"], x.table["high"]))
-    for col in ("censor", "hurts", "task", "size", "n_seeds"):
-        assert x.table[col].tolist() == y.table[col].tolist(), col
+    # the evidence words (issue 11's labels) follow the intervals, so they mirror too
+    for col in ("censor", "mark", "label", "hurts", "method", "task", "size", "n_seeds", "p_seeds"):
+        assert x.table[col].fillna("").tolist() == y.table[col].fillna("").tolist(), col
     xr, yr = transfer_rows(x.table), transfer_rows(y.table)
     assert [r["effective data"] for r in xr] == [r["effective data"] for r in yr]
     assert [r["P(improvement)"] for r in xr] == [r["P(improvement)"] for r in yr]
+    # the mean over tasks ("all"): stratified t for the mean, else stratified percentile; Newcombe
+    # for P(improvement); in normalised units on both sides
+    all_x, all_y = x.table[x.table["task"] == "all"], y.table[y.table["task"] == "all"]
+    _same(all_x, all_y, ["difference", "low", "high", "probability", "p_low", "p_high"])
     assert x.over_tasks == y.over_tasks and x.value == y.value
     if has_refs:
         _same(x.thresholds, y.thresholds, ["episodes", "low", "high"])
-        assert x.thresholds["censor"].tolist() == y.thresholds["censor"].tolist()
+        for col in ("censor", "label"):
+            assert x.thresholds[col].tolist() == y.thresholds[col].tolist(), col
         _same(x.areas, y.areas, ["auc", "low", "high"])
         assert x.areas["sizes"].tolist() == y.areas["sizes"].tolist()
         _same(x.headline, y.headline, ["fraction", "low", "high"])
@@ -228,7 +238,14 @@ def test_a_lower_loss_in_every_run_is_an_improvement_without_references():
     sc = study(values, {"t": None}, metric="loss", hib=False)
     rep = compare_scores(sc, FAST, baseline="scratch")
     t = rep.table
-    assert (t["probability"] == 1.0).all() and (t["p_low"] == 1.0).all()
+    assert (t["probability"] == 1.0).all() and (t["p_high"] == 1.0).all()
+    # Newcombe (2006) method 5 at A = 1, m = n = 5: the lower end is the root of the paper's score
+    # equation (1 - theta)^2 = z^2 V(theta), solved by scipy's brentq; above 1/2, never the point 1
+    z, n_star = stats.norm.ppf(0.975), (5 + 5) / 2 - 1
+    var = lambda th: th * (1 - th) / 25 * (1 + n_star * ((1 - th) / (2 - th) + th / (1 + th)))  # noqa: E731
+    ref = optimize.brentq(lambda th: (1 - th) ** 2 - z * z * var(th), 0.5, 1 - 1e-12)
+    np.testing.assert_allclose(t["p_low"], ref, rtol=1e-6)
+    assert (t["p_low"] > 0.5).all()
     assert (t["unit"] == "loss").all()
     for size in (1, 3, 10):
         a = np.array([values[("wide", "t", size, s)] for s in range(5)])
@@ -279,6 +296,32 @@ def test_one_task_without_references_leaves_the_others_normalised():
         assert mean_all == pytest.approx((per["a"] + per["b"]) / 2)  # the raw task left out
     assert any("left out: raw" in n for n in rep.notes)
     assert {r["unit"] for r in transfer_rows(t)} == {"normalised", "return"}  # said per row
+
+
+def test_p_improvement_over_tasks_uses_only_tasks_with_references():
+    # the arm wins on the referenced tasks and loses on the raw one: an average over all three
+    # would differ from the average over a and b
+    values, refs = _three_tasks()
+    rng = np.random.default_rng(8)
+    for (arm, task, size, seed), v in list(values.items()):
+        if arm == "wide" and task == "raw":
+            values[(arm, task, size, seed)] = v - 1000 * (20 + rng.normal(0, 2))
+    rep = compare_scores(study(values, refs), FAST, baseline="scratch", threshold=0.5)
+    t = rep.table
+    for size in (1, 3, 10):
+        # scipy's Mann-Whitney U / (m n), per task
+        u = {
+            task: stats.mannwhitneyu(
+                [values[("wide", task, size, s)] for s in range(4)],
+                [values[("scratch", task, size, s)] for s in range(4)],
+            ).statistic
+            / 16
+            for task in refs
+        }
+        assert u["raw"] < 0.5 < min(u["a"], u["b"])  # the case of the test is present
+        row = t[(t["task"] == "all") & (t["size"] == size)].iloc[0]
+        assert row["probability"] == pytest.approx((u["a"] + u["b"]) / 2)
+        assert row["p_low"] < row["probability"] <= row["p_high"]  # Newcombe: never a point
 
 
 def test_seeds_needed_uses_only_tasks_with_references_or_refuses():

@@ -12,7 +12,7 @@ from fewshot.files import write_text_atomic
 from fewshot.ledger import Ledger
 from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
 from fewshot.stats import CurveSettings
-from fewshot.stats.coverage import coverage_sentence
+from fewshot.stats.coverage import coverage_sentence, printed_sentence
 from fewshot.tables import flagged, number, threshold_cell, transfer_rows, with_interval
 
 __all__ = ["build_report", "write_report", "HARDWARE_CAUTION"]
@@ -280,8 +280,9 @@ def _methods(curves, settings: CurveSettings, cmp) -> str:  # type: ignore[no-un
         f"{settings.method} intervals from {settings.resamples} bootstrap resamples of whole seeds (resampling seed "
         f"{settings.seed}); between {n_min} and {n_max} seeds stand behind each interval.",
         coverage_sentence(settings.method, n_min),
-        "Aggregates over tasks pool the normalised scores of all runs and use a stratified bootstrap (seeds resampled "
-        "within each task).",
+        "Aggregates over tasks pool the normalised scores of all runs; their intervals are stratified t intervals: "
+        "the standard error from a stratified bootstrap (seeds resampled within each task, each task's resample "
+        "rescaled by sqrt(n/(n-1))) and Satterthwaite's degrees of freedom.",
     ]
     if not curves.scores.higher_is_better:
         parts.append(
@@ -297,9 +298,13 @@ def _methods(curves, settings: CurveSettings, cmp) -> str:  # type: ignore[no-un
         parts.append(
             f"Arms were compared with {cmp.baseline} on the same subsets, paired by seed. Effective data transferred is "
             "read off an isotonic fit of the baseline's curve on log size (Hernandez et al. 2021); probability of "
-            "improvement counts ties as one half (Agarwal et al. 2021). Derived quantities use expanded percentile "
-            "intervals (Hesterberg 2015) of whole-curve resamples."
+            "improvement counts ties as one half (Agarwal et al. 2021) and gets Newcombe's (2006) score interval. "
+            "Intervals of effective data and of episodes to the threshold are the sizes at which a paired t test over "
+            "seeds does not tell the two curves (or the curve and the threshold) apart; areas get Student's t over "
+            "seeds' areas. Words such as 'hurts', 'helps', '>=', 'already there' and 'not reached' are printed only "
+            "where the interval supports them."
         )
+        parts.append(printed_sentence(n_min))
     return "".join(paragraph(p) for p in parts)
 
 

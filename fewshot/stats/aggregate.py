@@ -3,8 +3,10 @@
 Scores of all runs of all tasks (at one arm and size) are pooled, as in Agarwal et
 al. (2021, "Deep RL at the edge of the statistical precipice"). Intervals come from a
 stratified bootstrap: seeds are resampled within each task, with one index matrix
-per task shared by every arm and size (whole curves, paired arms), and the
-percentile interval of the resampled aggregate.
+per task shared by every arm and size (whole curves, paired arms), each task's draw
+rescaled by sqrt(n/(n-1)); the interval is a t interval with that standard error and
+Satterthwaite's degrees of freedom (:func:`fewshot.stats.intervals.stratified_t`). The plain
+stratified percentile interval covered 77-86% at 3 seeds (tests/benchmarks/coverage.py).
 """
 
 from __future__ import annotations
@@ -15,9 +17,12 @@ import pandas as pd
 from fewshot.errors import InvalidInput
 from fewshot.stats.curves import CurveSettings
 from fewshot.stats.estimators import AGGREGATES
+from fewshot.stats.intervals import rescaled_strata, strata_df, stratified_t
 from fewshot.stats.resample import nan_estimate
 
-__all__ = ["AGGREGATE_COLUMNS", "aggregate_curves"]
+__all__ = ["AGGREGATE_COLUMNS", "METHOD", "aggregate_curves"]
+
+METHOD = "stratified t (rescaled bootstrap SE, Satterthwaite df)"
 
 AGGREGATE_COLUMNS = [
     "arm",
@@ -80,7 +85,6 @@ def aggregate_curves(
         for t, g in seed_level.groupby("task")
     }
     keys = ["arm", "role", "size"] + (["group"] if by_group else [])
-    alpha = 1 - settings.confidence
     rows = []
     for key, cell in seed_level.groupby(keys, sort=True, dropna=False):
         parts, n_seeds, notes = [], [], []
@@ -92,18 +96,15 @@ def aggregate_curves(
                 notes.append(f"{t}: {int(np.isnan(full).sum())} seed(s) missing")
             parts.append((t, full))
             n_seeds.append(int((~np.isnan(full)).sum()))
-        pooled_b = np.concatenate(
-            [full[indices[t]] for t, full in parts], axis=1
-        )  # resamples × runs
+        # resamples × runs, each task's draw rescaled by sqrt(n/(n-1)) (see fewshot.stats.intervals)
+        strata = [full for _, full in parts]
+        pooled_b = rescaled_strata(strata, [indices[t] for t, _ in parts])
+        df = strata_df(strata)
         pooled = np.concatenate([full for _, full in parts])
         for name in aggregates:
             est = float(nan_estimate(name, pooled[None, :])[0])
             theta = nan_estimate(name, pooled_b)
-            lo, hi = (
-                np.nanquantile(theta, [alpha / 2, 1 - alpha / 2])
-                if min(n_seeds) >= 2
-                else (np.nan, np.nan)
-            )
+            lo, hi, _ = stratified_t(est, theta, strata, settings.confidence, df)
             row = dict(zip(keys, key, strict=True))
             rows.append(
                 {
@@ -116,7 +117,7 @@ def aggregate_curves(
                     "low": float(lo),
                     "high": float(hi),
                     "confidence": settings.confidence,
-                    "method": "stratified percentile",
+                    "method": METHOD,
                     "n_tasks": len(parts),
                     "n_seeds": min(n_seeds),
                     "n_runs": int((~np.isnan(pooled)).sum()),

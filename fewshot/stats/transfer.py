@@ -8,8 +8,16 @@
   baseline's isotonic fit on log size; D_T = D_E - n, multiplier D_E / n;
 - the area under the normalised curve over log size.
 
-Derived quantities get expanded percentile intervals from whole-curve resamples (see
-:mod:`fewshot.stats.resample`); differences use the interval method of the settings.
+Intervals, chosen by measured coverage (``tests/benchmarks/coverage.py --printed``): differences
+per task use the interval method of the settings, their mean over tasks a stratified t
+(:mod:`fewshot.stats.intervals`; other estimators than the mean a stratified expanded percentile);
+P(improvement) Newcombe's score interval; effective data and episodes to a threshold test
+inversion over sizes (:mod:`fewshot.stats.inversion`; inf = beyond the ladder); areas Student's t
+over the seeds' areas. Labels follow the intervals (:mod:`fewshot.stats.labels`).
+
+Every function here reads higher-is-better values (:func:`fewshot.stats.scores.orient` turns a
+lower-is-better metric once, where scores are read), so none needs the metric's direction and a
+study and its lower-is-better mirror give the same intervals and labels.
 """
 
 from __future__ import annotations
@@ -23,7 +31,14 @@ from fewshot.errors import InvalidInput
 from fewshot.stats.bootstrap import DegenerateCells, bootstrap_cells
 from fewshot.stats.curves import CurveSettings
 from fewshot.stats.estimators import estimator as get_estimator
+from fewshot.stats.intervals import (
+    newcombe_interval,
+    newcombe_mean_interval,
+    stratified_mean_t,
+)
+from fewshot.stats.inversion import level_crossing_set, seed_t_interval
 from fewshot.stats.isotonic import first_reach, interpolate_log, isotonic_rows
+from fewshot.stats.labels import effective_label, effective_mark, threshold_label
 from fewshot.stats.resample import CurveResampler, interval
 
 __all__ = [
@@ -199,10 +214,24 @@ def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  #
             continue
         sz = np.array(sizes)
         point = np.mean([rs.point(arm, t, sz) - rs.point(baseline, t, sz) for t in tasks], axis=0)
-        draws = np.mean([rs.boot(arm, t, sz) - rs.boot(baseline, t, sz) for t in tasks], axis=0)
+        mean = settings.estimator == "mean"
+        draws = (
+            None
+            if mean
+            else np.mean([rs.boot(arm, t, sz) - rs.boot(baseline, t, sz) for t in tasks], axis=0)
+        )
         n = min(min(rs.n_seeds(arm, t, sz), rs.n_seeds(baseline, t, sz)) for t in tasks)
+        diffs = [rs.matrix(arm, t, sz) - rs.matrix(baseline, t, sz) for t in tasks]  # sizes × seeds
+        weights = np.full(len(tasks), 1 / len(tasks))
         for k, size in enumerate(sizes):
-            lo, hi = interval(draws[:, k], settings.confidence, n)
+            if draws is None:
+                # closed-form stratified t on paired differences (fewshot.stats.intervals),
+                # centred on the estimate (they differ only when runs are missing)
+                _, lo, hi = stratified_mean_t([d[k] for d in diffs], weights, settings.confidence)
+                half = (hi - lo) / 2
+                lo, hi = point[k] - half, point[k] + half
+            else:
+                lo, hi = interval(draws[:, k], settings.confidence, n)
             rows.append(
                 {
                     "arm": arm,
@@ -212,7 +241,7 @@ def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  #
                     "low": lo,
                     "high": hi,
                     "n_seeds": n,
-                    "method": "stratified expanded percentile",
+                    "method": "stratified t" if mean else "stratified expanded percentile",
                     "note": f"mean over {len(tasks)} tasks",
                 }
             )
@@ -242,9 +271,8 @@ def improvement_probability(
     """
     chosen = check_baseline(scores, baseline, arms)
     rs = CurveResampler(scores, value, settings)
-    rows = []
+    rows = []  # (arm, task, size, probability, runs of arm, runs of baseline)
     for arm in chosen:
-        per_task: dict[int, list[tuple[float, np.ndarray, int]]] = {}
         for task in rs.seeds:
             if not (rs.has(arm, task) and rs.has(baseline, task)):
                 continue
@@ -252,57 +280,62 @@ def improvement_probability(
             if not len(sizes):
                 continue
             xa, xb = rs.matrix(arm, task, sizes), rs.matrix(baseline, task, sizes)  # sizes × seeds
-            idx = rs.index[task]
             for k, size in enumerate(sizes):
                 a, b = xa[k][np.isfinite(xa[k])], xb[k][np.isfinite(xb[k])]
-                n = min(len(a), len(b))
-                p = float(probability_of_improvement(a, b)) if n else np.nan
-                # resample seeds (the task's whole-curve indices), keeping each arm's present runs
-                ga, gb = xa[k][idx], xb[k][idx]
-                draws = _poi_rows(ga, gb)
-                lo, hi = interval(draws, settings.confidence, n)
-                rows.append(
-                    {
-                        "arm": arm,
-                        "task": task,
-                        "size": int(size),
-                        "probability": p,
-                        "low": lo,
-                        "high": hi,
-                        "n_seeds": n,
-                    }
-                )
-                if over is None or task in over:
-                    per_task.setdefault(int(size), []).append((p, draws, n))
-        for size, items in sorted(per_task.items()):
-            if len(items) < 2:
-                continue
-            n = min(i[2] for i in items)
-            draws = np.mean([i[1] for i in items], axis=0)
-            lo, hi = interval(draws, settings.confidence, n)
-            rows.append(
+                p = float(probability_of_improvement(a, b)) if min(len(a), len(b)) else np.nan
+                rows.append((arm, task, int(size), p, len(a), len(b)))
+    cols = ["arm", "task", "size", "probability", "m", "n"]
+    per = pd.DataFrame(rows, columns=cols)
+    per["n_seeds"] = np.minimum(per["m"], per["n"])
+    # Newcombe's score interval (fewshot.stats.intervals): never a single point
+    ok = (per["n_seeds"] >= 2).to_numpy()
+    low, high = np.full(len(per), np.nan), np.full(len(per), np.nan)
+    if ok.any():
+        low[ok], high[ok] = newcombe_interval(
+            per["probability"].to_numpy()[ok],
+            per["m"].to_numpy()[ok],
+            per["n"].to_numpy()[ok],
+            settings.confidence,
+        )
+    per["low"], per["high"] = low, high
+    means = []
+    pooled = per[per["n_seeds"] > 0]
+    if over is not None:  # only tasks in one unit may be averaged
+        pooled = pooled[pooled["task"].isin(over)]
+    for (arm, size), g in pooled.groupby(["arm", "size"], sort=False):
+        if len(g) < 2:
+            continue
+        means.append((arm, size, g))
+    frames = [per]
+    if means:
+        width = max(len(g) for *_, g in means)
+        pad = lambda col: np.array(  # noqa: E731
+            [
+                np.pad(g[col].to_numpy(float), (0, width - len(g)), constant_values=np.nan)
+                for *_, g in means
+            ]
+        )
+        lo_all, hi_all = newcombe_mean_interval(
+            pad("probability"), pad("m"), pad("n"), settings.confidence
+        )
+        n_all = np.array([int(g["n_seeds"].min()) for *_, g in means])
+        lo_all = np.where(n_all >= 2, lo_all, np.nan)
+        hi_all = np.where(n_all >= 2, hi_all, np.nan)
+        frames.append(
+            pd.DataFrame(
                 {
-                    "arm": arm,
+                    "arm": [m[0] for m in means],
                     "task": "all",
-                    "size": size,
-                    "probability": float(np.mean([i[0] for i in items])),
-                    "low": lo,
-                    "high": hi,
-                    "n_seeds": n,
+                    "size": [int(m[1]) for m in means],
+                    "probability": [float(g["probability"].mean()) for *_, g in means],
+                    "low": lo_all,
+                    "high": hi_all,
+                    "n_seeds": n_all,
                 }
             )
-    return pd.DataFrame(
-        rows, columns=["arm", "task", "size", "probability", "low", "high", "n_seeds"]
-    )
-
-
-def _poi_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """P(improvement) of each resample row, leaving out missing runs."""
-    valid = np.isfinite(a)[:, :, None] & np.isfinite(b)[:, None, :]
-    gt = ((a[:, :, None] > b[:, None, :]) & valid).sum(axis=(1, 2))
-    eq = ((a[:, :, None] == b[:, None, :]) & valid).sum(axis=(1, 2))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return (gt + 0.5 * eq) / valid.sum(axis=(1, 2))
+        )
+    out = pd.concat(frames, ignore_index=True)
+    return out[["arm", "task", "size", "probability", "low", "high", "n_seeds"]]
 
 
 def threshold_sizes(
@@ -316,7 +349,10 @@ def threshold_sizes(
 
     A zero-shot point (size 0) that reaches it counts as reaching it with no data. Columns: arm,
     task, threshold, episodes, low, high, censor (``""``, ``"zero-shot"``, ``"at_most"`` = already
-    at the smallest size, ``"not_reached"`` = not by the largest size), smallest, largest, n_seeds.
+    at the smallest size, ``"not_reached"`` = not by the largest size: the point estimate's
+    censoring), label (``"zero-shot"``, ``"already there"``, ``"not reached"`` only when the interval
+    supports it, else ``""``), smallest, largest, n_seeds. low/high: test inversion (0 = at or below
+    the smallest size, inf = beyond the ladder).
     """
     settings.check()
     rs = CurveResampler(scores, value, settings)
@@ -325,10 +361,8 @@ def threshold_sizes(
         sizes = rs.sizes(arm, task)
         n = rs.n_seeds(arm, task, sizes)
         point = rs.point(arm, task, sizes)[None, :]
-        draws = rs.boot(arm, task, sizes)
         ep, censor = _reach(point, sizes, threshold)
-        ep_b, _ = _reach(draws, sizes, threshold)
-        lo, hi = interval(ep_b, settings.confidence, n)
+        lo, hi = _threshold_interval(rs.matrix(arm, task, sizes).T, sizes, threshold, settings)
         positive = sizes[sizes > 0]
         rows.append(
             {
@@ -339,12 +373,40 @@ def threshold_sizes(
                 "low": lo,
                 "high": hi,
                 "censor": censor[0],
+                "label": threshold_label(
+                    lo, hi, positive.min() if len(positive) else 0, sizes.max()
+                ),
                 "smallest": int(positive.min()) if len(positive) else 0,
                 "largest": int(sizes.max()),
                 "n_seeds": n,
             }
         )
     return pd.DataFrame(rows)
+
+
+def _threshold_interval(
+    seeds: np.ndarray, sizes: np.ndarray, threshold: float, settings: CurveSettings
+) -> tuple[float, float]:
+    """Sizes at which the arm's curve is not distinguishable from the threshold (test inversion
+    over complete seeds); a zero-shot point significantly above it gives [0, 0]."""
+    seeds = seeds[np.isfinite(seeds).all(axis=1)]
+    if len(seeds) < 2:
+        return float("nan"), float("nan")
+    zero = sizes[0] == 0
+    pos = sizes > 0
+    if pos.sum() == 0:
+        return float("nan"), float("nan")
+    lo, hi = level_crossing_set(
+        seeds[:, pos], np.full(len(seeds), threshold), sizes[pos], settings.confidence
+    )
+    if zero:
+        z0 = seeds[:, 0] - threshold
+        z_lo, z_hi = seed_t_interval(z0, settings.confidence)
+        if z_lo > 0:  # zero-shot is above the threshold: reached with no data
+            return 0.0, 0.0
+        if z_hi >= 0:  # zero-shot may reach it
+            lo = 0.0
+    return lo, hi
 
 
 def _reach(
@@ -371,11 +433,15 @@ def effective_data(
     """Effective data transferred per (arm, task, size >= 1).
 
     ``value`` must be higher-is-better (see :func:`fewshot.stats.scores.orient`): the baseline's
-    curve is fitted non-decreasing. Tasks where the baseline has results at fewer than two sizes
-    >= 1 have no curve to read and are left out (:func:`thin_baselines` names them). Columns: arm, task, size, arm_estimate, effective (D_E), transferred (D_T = D_E - n), multiplier
-    (D_E / n) with lows and highs, censor (``""``; ``"lower_bound"`` when the arm beats the baseline's
-    best point, so D_E exceeds the largest size; ``"upper_bound"`` when the arm is below the baseline's
-    smallest point), hurts (D_T < 0: pretraining that hurts), n_seeds.
+    curve is taken to be non-decreasing. Tasks where the baseline has results at fewer than two
+    sizes >= 1 have no curve to read and are left out (:func:`thin_baselines` names them).
+    Columns: arm, task, size, arm_estimate, effective (D_E), transferred (D_T = D_E - n),
+    multiplier (D_E / n) with lows and highs (inf: beyond the baseline's ladder), censor (``""``;
+    ``"lower_bound"`` when the arm beats the baseline's best point, so D_E exceeds the largest
+    size; ``"upper_bound"`` when the arm is below the baseline's smallest point), mark
+    (``">="``/``"<="`` only when the interval lies beyond the ladder too), label
+    (``helps``/``hurts`` when the whole interval of D_T is above/below zero, else ``no clear
+    difference``), hurts (label is ``hurts``), n_seeds.
     """
     settings.check()
     chosen = check_baseline(scores, baseline, arms)
@@ -392,14 +458,17 @@ def effective_data(
             a_sizes = rs.sizes(arm, task)
             a_sizes = a_sizes[a_sizes > 0]
             fit = isotonic_rows(rs.point(baseline, task, b_sizes)[None, :])
-            fit_b = isotonic_rows(rs.boot(baseline, task, b_sizes))
             a_point = rs.point(arm, task, a_sizes)
-            a_boot = rs.boot(arm, task, a_sizes)
+            a_seeds = rs.matrix(arm, task, a_sizes)  # sizes × seeds
+            b_seeds = rs.matrix(baseline, task, b_sizes).T  # seeds × sizes
             n = min(rs.n_seeds(arm, task, a_sizes), rs.n_seeds(baseline, task, b_sizes))
             for k, size in enumerate(a_sizes):
                 d_e, censor = _read_off(fit, b_sizes, np.array([a_point[k]]))
-                d_e_b, _ = _read_off(fit_b, b_sizes, a_boot[:, k], censored=True)
-                lo, hi = interval(d_e_b, settings.confidence, n)
+                # test inversion over sizes, paired by seed (fewshot.stats.inversion)
+                ok = np.isfinite(a_seeds[k]) & np.isfinite(b_seeds).all(axis=1)
+                lo, hi = level_crossing_set(
+                    b_seeds[ok], a_seeds[k][ok], b_sizes, settings.confidence
+                )
                 d_t = float(d_e[0] - size)
                 rows.append(
                     {
@@ -417,7 +486,10 @@ def effective_data(
                         "multiplier_low": lo / size,
                         "multiplier_high": hi / size,
                         "censor": censor[0],
-                        "hurts": bool(d_t < 0),
+                        # labels only where the interval supports them (fewshot.stats.labels)
+                        "mark": effective_mark(censor[0], lo, hi, b_sizes[0], b_sizes[-1]),
+                        "label": effective_label(size, lo, hi),
+                        "hurts": effective_label(size, lo, hi) == "hurts",
                         "n_seeds": n,
                     }
                 )
@@ -433,13 +505,14 @@ def thin_baselines(scores: pd.DataFrame, baseline: str, *, value: str = "score")
 
 
 def _read_off(
-    fit: np.ndarray, sizes: np.ndarray, level: np.ndarray, *, censored: bool = False
+    fit: np.ndarray, sizes: np.ndarray, level: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
     """Invert monotone fits (rows × sizes) at ``level`` per row, on log size.
 
-    Levels beyond the fit's ends are censored: the end size is returned with a flag, or, with
-    ``censored=True`` (for resamples), +inf above the top and 0 below the bottom, so that an
-    interval over resamples shows the censoring instead of piling up at the ladder's ends.
+    Levels beyond the fit's ends are censored: the end size is returned with a flag
+    (``"lower_bound"`` above the top, ``"upper_bound"`` below the bottom). The interval around it
+    comes from test inversion (:func:`fewshot.stats.inversion.level_crossing_set`), where sizes
+    beyond the ladder are infinite.
     """
     if fit.shape[0] == 1 and len(level) > 1:
         fit = np.repeat(fit, len(level), axis=0)
@@ -454,14 +527,8 @@ def _read_off(
     inside = interpolate_log(sizes.astype(float), k, np.clip(frac, 0, 1))
     above = level > top
     below = level < bottom
-    top_value, bottom_value = (np.inf, 0.0) if censored else (sizes[-1], sizes[0])
-    d_e = np.where(
-        above, top_value, np.where(below, bottom_value, np.where(k == 0, sizes[0], inside))
-    )
+    d_e = np.where(above, sizes[-1], np.where(below, sizes[0], np.where(k == 0, sizes[0], inside)))
     censor = np.where(above, "lower_bound", np.where(below, "upper_bound", ""))
-    # a resample that drew only missing runs has no level or no fit: no value, not a size
-    missing = np.isnan(level) | np.isnan(fit).any(axis=1)
-    d_e = np.where(missing, np.nan, d_e)
     return d_e.astype(float), censor
 
 
@@ -480,9 +547,10 @@ def curve_areas(
             continue
         x = np.log(sizes.astype(float))
         point = np.trapezoid(rs.point(arm, task, sizes), x) / (x[-1] - x[0])
-        draws = np.trapezoid(rs.boot(arm, task, sizes), x, axis=1) / (x[-1] - x[0])
+        # each seed's area, then Student's t over seeds (the area is linear in the curve)
+        per_seed = np.trapezoid(rs.matrix(arm, task, sizes).T, x, axis=1) / (x[-1] - x[0])
         n = rs.n_seeds(arm, task, sizes)
-        lo, hi = interval(draws, settings.confidence, n)
+        lo, hi = seed_t_interval(per_seed, settings.confidence)
         rows.append(
             {
                 "arm": arm,

@@ -1,6 +1,12 @@
-"""Coverage of every interval method at few seeds, by simulation.
+"""Coverage of every interval the tool prints, and of every cell interval method, by simulation.
 
-Run: python tests/benchmarks/coverage.py [--studies 4000] [--resamples 2000]
+Run: python tests/benchmarks/coverage.py --printed 200 [--csv out.csv]   (every printed interval)
+     python tests/benchmarks/coverage.py --methods [--studies 4000] [--resamples 2000]
+
+--printed N runs N synthetic studies per (seeds, noise) through the functions behind ``curves``
+and ``compare`` (fewshot.stats.harness; truths in fewshot.stats.simulate and the README) and
+prints quantity x seeds x noise -> coverage, mean width, share of degenerate (zero-width)
+intervals, share of rows without an interval. --methods compares the cell interval methods:
 
 Each simulated study draws n seeds from a distribution with a known mean and asks
 each method for a 95% interval of the mean; coverage is the share of studies whose
@@ -86,13 +92,49 @@ def coverage_table(
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__)
+    parser.add_argument("--printed", type=int, default=0, help="studies per cell for the harness")
+    parser.add_argument("--csv", default=None, help="also write the harness table as CSV")
+    parser.add_argument("--methods", action="store_true", help="compare the cell interval methods")
     parser.add_argument("--studies", type=int, default=4000)
     parser.add_argument("--resamples", type=int, default=2000)
     args = parser.parse_args()
-    rows = coverage_table(args.studies, args.resamples)
+    if args.printed:
+        printed(args.printed, args.csv)
+    if args.methods or not args.printed:
+        methods(args.studies, args.resamples)
+
+
+def printed(studies: int, csv: str | None) -> None:
+    import time
+
+    from fewshot.stats.harness import coverage_table
+
+    start = time.perf_counter()
+    table = coverage_table(studies, resamples=1000)
+    if csv:
+        table.to_csv(csv, index=False)
     print(
-        f"nominal 95% intervals of the mean; {args.studies} simulated studies per row, "
-        f"{args.resamples} resamples each"
+        f"every printed nominal 95% interval; {studies} synthetic studies per seeds x noise "
+        f"({time.perf_counter() - start:.0f} s)"
+    )
+    cols = [(n, d) for n in (3, 5, 10) for d in ("normal", "lognormal", "two-mode")]
+    print(f"{'quantity':26}" + "".join(f"{f'{d[:5]} {n}':>19}" for n, d in cols))
+    for q in dict.fromkeys(table["quantity"]):
+        cells = []
+        for n, d in cols:
+            r = table[
+                (table["quantity"] == q) & (table["seeds"] == n) & (table["noise"] == d)
+            ].iloc[0]
+            cells.append(f"{r['coverage']:6.1%} w{r['width']:6.3g} d{r['degenerate']:4.0%}")
+        print(f"{q:26}" + "".join(f"{c:>19}" for c in cells))
+    print("cells: coverage, mean width (w), share of zero-width intervals (d)")
+
+
+def methods(studies: int, resamples: int) -> None:
+    rows = coverage_table(studies, resamples)
+    print(
+        f"nominal 95% intervals of the mean; {studies} simulated studies per row, "
+        f"{resamples} resamples each"
     )
     print(f"{'distribution':12} {'seeds':>5}  " + "  ".join(f"{m:>15}" for m in METHODS))
     for dist in {**DISTRIBUTIONS, **EXTRA}:

@@ -1,0 +1,123 @@
+"""Intervals on the size axis by test inversion, and t intervals of per-seed summaries.
+
+Effective data and episodes to a threshold are sizes D at which a curve (the baseline's, or
+the arm's) reaches a level (the arm's score at n, or the threshold). Their interval is the
+set of D at which a paired t test, over seeds, does not reject "curve(D) = level": per seed s,
+``g_s(D) = curve_s(D) - level_s`` with the curve interpolated linearly in log size between
+ladder points, and D is kept when ``n * mean(g(D))^2 <= t^2 * var(g(D))`` (the confidence set
+of a root, as Fieller's 1954 interval for a ratio; Casella & Berger, Statistical Inference,
+sec. 9.2, inverting a test). Within a segment of the ladder both sides are quadratic in the
+interpolation weight, so the set is found in closed form (checked against a brute-force grid).
+Because each seed's runs are paired across arms and sizes, the noise of both curves and their
+correlation enter through ``var(g)``. With normal seed noise the set covers the true size
+exactly at the nominal level whenever the true curve is monotone.
+
+Beyond the ladder the curve is unknown but, being monotone, no lower than at the largest size:
+sizes above the ladder are kept unless the curve is significantly above the level at the
+largest size (the interval's high end is then infinite); sizes below the ladder likewise.
+The interval reported is the hull of the set: [low, high] in episodes (0 for "at or below
+the smallest", inf for "beyond the ladder").
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from fewshot.stats.intervals import huge_scale
+
+__all__ = ["level_crossing_set", "seed_t_interval"]
+
+
+def _segment_hull(g0: np.ndarray, g1: np.ndarray, q: float) -> tuple[float, float]:
+    """Smallest and largest w in [0, 1] with n ḡ(w)^2 <= q^2 S(w), g(w) = (1-w) g0 + w g1 per seed
+    (NaN, NaN when none)."""
+    n = len(g0)
+    m0, m1 = g0.mean(), g1.mean()
+    d = m1 - m0
+    s00, s11 = np.var(g0, ddof=1), np.var(g1, ddof=1)
+    s01 = np.cov(g0, g1, ddof=1)[0, 1]
+    a = n * d * d - q * q * (s00 - 2 * s01 + s11)
+    b = 2 * n * m0 * d - 2 * q * q * (s01 - s00)
+    c = n * m0 * m0 - q * q * s00
+    scale = max(abs(a), abs(b), abs(c))
+    tol = 1e-9 * scale  # rounding: with no spread the set is one root of a perfect square
+    candidates = [0.0, 1.0]
+    if abs(a) > tol:
+        disc = b * b - 4 * a * c
+        if disc > -1e-9 * max(b * b, abs(4 * a * c)):
+            disc = max(disc, 0.0)
+            r = np.sqrt(disc)
+            candidates += [(-b - r) / (2 * a), (-b + r) / (2 * a)]
+    elif abs(b) > tol:
+        candidates.append(-c / b)
+    ws = np.array([w for w in candidates if 0.0 <= w <= 1.0])
+    # the accepted set's ends are among the roots and the segment's ends
+    val = a * ws * ws + b * ws + c
+    ok = ws[val <= tol]
+    if ok.size == 0:
+        return float("nan"), float("nan")
+    return float(ok.min()), float(ok.max())
+
+
+def level_crossing_set(
+    curve: np.ndarray, level: np.ndarray, sizes: np.ndarray, confidence: float
+) -> tuple[float, float]:
+    """Hull of the sizes D where a paired t test does not reject ``curve(D) = level``.
+
+    Parameters
+    ----------
+    curve : array, seeds × sizes
+        Each seed's curve at ``sizes`` (positive, increasing); the true curve is taken to be
+        non-decreasing.
+    level : array, seeds
+        Each seed's level (a constant for a threshold).
+    sizes : array
+    confidence : float
+
+    Returns
+    -------
+    (low, high) : floats
+        ``low`` is 0 when sizes below the ladder are kept, ``high`` inf when sizes above it are;
+        NaN, NaN below 2 seeds.
+    """
+    curve, level = np.asarray(curve, float), np.asarray(level, float)
+    c = huge_scale(curve, level)  # the test is scale-invariant; huge scores would overflow g**2
+    g = curve * c - level[:, None] * c
+    n, k = g.shape
+    if n < 2:
+        return float("nan"), float("nan")
+    q = float(stats.t.ppf(0.5 + confidence / 2, n - 1))
+    mean = g.mean(axis=0)
+    se = g.std(axis=0, ddof=1) / np.sqrt(n)
+    above = mean > q * se  # significantly above the level at a ladder point
+    below = mean < -q * se
+    x = np.log(np.asarray(sizes, float))
+    lows, highs = [], []
+    for j in range(k - 1):
+        w_lo, w_hi = _segment_hull(g[:, j], g[:, j + 1], q)
+        if np.isfinite(w_lo):
+            lows.append(x[j] + w_lo * (x[j + 1] - x[j]))
+            highs.append(x[j] + w_hi * (x[j + 1] - x[j]))
+    if k == 1 and not (above[0] or below[0]):
+        lows.append(x[0])
+        highs.append(x[0])
+    low = 0.0 if not below[0] else (float(np.exp(min(lows))) if lows else float(sizes[-1]))
+    high = (
+        float("inf") if not above[-1] else (float(np.exp(max(highs))) if highs else float(sizes[0]))
+    )
+    return low, high
+
+
+def seed_t_interval(values: np.ndarray, confidence: float) -> tuple[float, float]:
+    """Student's t interval of the mean of per-seed values (NaN below 2 seeds)."""
+    v = np.asarray(values, float)
+    v = v[np.isfinite(v)]
+    n = len(v)
+    if n < 2:
+        return float("nan"), float("nan")
+    c = huge_scale(v)  # values near 1e200: exactly scaled, so the spread does not overflow
+    v = v * c
+    q = float(stats.t.ppf(0.5 + confidence / 2, n - 1))
+    half = q * v.std(ddof=1) / np.sqrt(n)
+    return float(v.mean() - half) / c, float(v.mean() + half) / c
