@@ -48,6 +48,24 @@ _EXPORTS = {
     "ResultRefused": "fewshot.ledger",
     "UnknownRun": "fewshot.ledger",
     "ResultWriter": "fewshot.writer",
+    "StaleAttempt": "fewshot.ledger.runs",
+    "CurveSettings": "fewshot.stats",
+    "StudyData": "fewshot.analysis",
+    "read_study": "fewshot.analysis",
+    "CurveReport": "fewshot.analysis",
+    "curve_report": "fewshot.analysis",
+    "CompareReport": "fewshot.analysis",
+    "compare_report": "fewshot.analysis",
+    "SeedsReport": "fewshot.analysis",
+    "seeds_needed_report": "fewshot.analysis",
+    "StudyReports": "fewshot.analysis",
+    "analyse_study": "fewshot.analysis",
+    "curves_json": "fewshot.analysis",
+    "compare_json": "fewshot.analysis",
+    "seeds_json": "fewshot.analysis",
+    "make_figure": "fewshot.analysis",
+    "build_report": "fewshot.report",
+    "write_report": "fewshot.report",
 }
 
 __all__ = ["__version__", *sorted(_EXPORTS)]
@@ -67,6 +85,22 @@ def __dir__() -> list[str]:
 
 
 if TYPE_CHECKING:  # for type checkers and editors
+    from fewshot.analysis import (
+        CompareReport,
+        CurveReport,
+        SeedsReport,
+        StudyData,
+        StudyReports,
+        analyse_study,
+        compare_json,
+        compare_report,
+        curve_report,
+        curves_json,
+        make_figure,
+        read_study,
+        seeds_json,
+        seeds_needed_report,
+    )
     from fewshot.errors import (
         DrawError,
         FewshotError,
@@ -76,6 +110,7 @@ if TYPE_CHECKING:  # for type checkers and editors
         PoolError,
     )
     from fewshot.ledger import Claim, Ledger, LedgerError, ResultRefused, UnknownRun
+    from fewshot.ledger.runs import StaleAttempt
     from fewshot.manifest import (
         Manifest,
         Verification,
@@ -85,6 +120,7 @@ if TYPE_CHECKING:  # for type checkers and editors
         write_draw,
     )
     from fewshot.pools import Pool, read_pool
+    from fewshot.report import build_report, write_report
     from fewshot.sampling import (
         RULE_VERSION,
         HashedIds,
@@ -94,6 +130,7 @@ if TYPE_CHECKING:  # for type checkers and editors
         keep_top,
         subset_digest,
     )
+    from fewshot.stats import CurveSettings
     from fewshot.study import Arm, Study, StudyError, Task, load_study
     from fewshot.taskdraw import DrawSpec, Lineage, TaskDraw, draw_task
     from fewshot.writer import ResultWriter

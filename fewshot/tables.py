@@ -10,6 +10,8 @@ import math
 
 import pandas as pd
 
+from fewshot.stats.curves import FEW_SEEDS
+
 __all__ = [
     "number",
     "with_interval",
@@ -63,11 +65,8 @@ def bound(x: float) -> str:
     return "beyond ladder" if math.isinf(x) and x > 0 else number(x)
 
 
-FEW_SEEDS = 3  # below this many seeds a cell is flagged "!", as in the curves tables
-
-
 def flagged(text: str, n_seeds: object) -> str:
-    """``text`` with `` !`` when it rests on fewer than 3 seeds."""
+    """``text`` with `` !`` when it rests on fewer than ``FEW_SEEDS`` (3) seeds."""
     try:
         few = int(n_seeds) < FEW_SEEDS  # type: ignore[call-overload]
     except (TypeError, ValueError):

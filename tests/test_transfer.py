@@ -203,7 +203,7 @@ def test_seeds_table_from_a_pilot():
     frame = curves_frame(lambda arm, n: 0.5, sizes=(10,), seeds=6, noise=0.1)
     table = seeds_table(frame, "scratch", effect=0.1, value="score")
     assert table["pilot_seeds"].tolist() == [6] and table["seeds_needed"].iloc[0] > 6
-    with pytest.raises(InvalidInput, match="--effect"):
+    with pytest.raises(InvalidInput, match="^effect must be"):
         seeds_table(frame, "scratch", effect=0, value="score")
 
 

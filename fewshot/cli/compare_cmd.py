@@ -17,9 +17,9 @@ from fewshot.cli.common import (
     open_ledger,
     out,
     print_json,
-    records,
     reporting,
 )
+from fewshot.cli.flags import as_flags
 from fewshot.cli.stats_cmd import (
     CiOpt,
     ConfidenceOpt,
@@ -77,11 +77,11 @@ def compare(
     study: StudyOpt = None,
 ) -> None:
     """Arms against a baseline: paired differences, P(improvement), effective data, episodes to a threshold."""
-    from fewshot.analysis import compare_report
+    from fewshot.analysis import compare_json, compare_report
     from fewshot.stats import CurveSettings
     from fewshot.tables import latex_table, transfer_rows
 
-    with reporting():
+    with reporting(), as_flags():
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
         led = open_ledger(ledger, study)
         try:
@@ -97,21 +97,7 @@ def compare(
         finally:
             led.close()
     if fmt is CompareFormat.json:
-        print_json(
-            {
-                "baseline": rep.baseline,
-                "value": rep.value,
-                "rule": rep.scores.rule,
-                "threshold": rep.threshold,
-                "tasks_in_all_rows": list(rep.over_tasks),
-                "rows": records(rep.table),
-                "thresholds": records(rep.thresholds),
-                "areas": records(rep.areas),
-                "headline": records(rep.headline),
-                "scaling": records(rep.scaling),
-                "notes": rep.notes,
-            }
-        )
+        print_json(compare_json(rep))
         return
     if fmt is CompareFormat.csv:
         typer.echo(rep.table.to_csv(index=False), nl=False)
@@ -133,11 +119,13 @@ def _unit(rep) -> str:  # type: ignore[no-untyped-def]
 
 
 def _caption(rep) -> str:  # type: ignore[no-untyped-def]
+    from fewshot.stats.curves import FEW_SEEDS
+
     s = rep.settings
     return (
         f"Each arm against {rep.baseline}, paired by seed: difference in {_unit(rep)} ({s.estimator}, "
         f"{s.confidence:.0%} intervals), probability of improvement, effective data D_E (data multiplier)."
-        " ! = fewer than 3 seeds."
+        f" ! = fewer than {FEW_SEEDS} seeds."
     )
 
 
@@ -149,6 +137,7 @@ def _flag(text: str) -> Text:
 
 def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
     """The transfer tables of a compare report, on the terminal."""
+    from fewshot.stats.curves import FEW_SEEDS
     from fewshot.tables import flagged, threshold_cell, transfer_rows, with_interval
 
     rows = transfer_rows(rep.table)
@@ -224,7 +213,7 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
                 Text(with_interval(r["estimate"], r["low"], r["high"])),
             )
         out.print(t4)
-    out.print("[dim]\\[low, high] = interval; ! = fewer than 3 seeds[/]", markup=True)
+    out.print(f"[dim]\\[low, high] = interval; ! = fewer than {FEW_SEEDS} seeds[/]", markup=True)
     for note in rep.notes:
         err.print(f"note: {note}")
 
@@ -245,37 +234,19 @@ def seeds_needed_cmd(
     study: StudyOpt = None,
 ) -> None:
     """Seeds each comparison needs to detect --effect, by Welch's t power, from the spread seen so far."""
-    from fewshot.analysis import load_scores, seeds_report
+    from fewshot.analysis import seeds_json, seeds_needed_report
 
-    with reporting():
+    with reporting(), as_flags():
         led = open_ledger(ledger, study)
         try:
-            sc = load_scores(led, select=select)
-            base = baseline or led.study_row()["baseline"]
+            rep = seeds_needed_report(
+                led, effect=effect, power=power, alpha=alpha, baseline=baseline, select=select
+            )
         finally:
             led.close()
-        value = "normalised"
-        table, notes = seeds_report(sc, base, effect=effect, power=power, alpha=alpha)
-        if table.empty:
-            raise InvalidInput(
-                f"no comparison with {base!r} has 2 or more seeds on both sides yet: nothing to estimate from."
-            )
-    warn = (
-        f"a pilot of {int(table['pilot_seeds'].min())} seed(s) underestimates the spread more often than not; "
-        "treat these counts as a floor"
-    )
+    table, base, value = rep.table, rep.baseline, rep.value
     if fmt is TableJsonCsv.json:
-        print_json(
-            {
-                "baseline": base,
-                "effect": effect,
-                "power": power,
-                "alpha": alpha,
-                "value": value,
-                "rows": records(table),
-                "notes": [*notes, warn],
-            }
-        )
+        print_json(seeds_json(rep))
         return
     if fmt is TableJsonCsv.csv:
         typer.echo(table.to_csv(index=False), nl=False)
@@ -313,5 +284,5 @@ def seeds_needed_cmd(
             needed,
         )
     out.print(t)
-    for note in [*notes, warn]:
+    for note in rep.notes:
         err.print(f"note: {note}")

@@ -10,6 +10,7 @@ from typing import Annotated
 import typer
 
 from fewshot.cli.common import err, out, progress, reporting
+from fewshot.cli.flags import as_flags
 from fewshot.errors import InvalidInput
 
 
@@ -27,15 +28,12 @@ def demo(
     ] = 0,
 ) -> None:
     """Run a whole few-shot transfer study end to end and write its report."""
-    from fewshot.analysis import compare_report, curve_report
+    from fewshot.cli.compare_cmd import print_transfer
     from fewshot.cli.stats_cmd import print_curve_table
-    from fewshot.demo.run import prepare_demo, run_workers
-    from fewshot.ledger import Ledger
-    from fewshot.report import write_report
-    from fewshot.stats import CurveSettings
+    from fewshot.demo.run import analyse_demo, prepare_demo, run_workers
 
     start = time.monotonic()
-    with reporting():
+    with reporting(), as_flags():
         if workers < 0:
             raise InvalidInput(
                 f"--workers must be 1 or more (0: one per CPU, at most 4). Got {workers}."
@@ -50,26 +48,11 @@ def demo(
         with progress() as bar:
             job = bar.add_task(f"runs ({n} workers)", total=demo_run.total)
             run_workers(demo_run, n, on_tick=lambda done, total: bar.update(job, completed=done))
-        settings = CurveSettings(resamples=5000)
-        led = Ledger.open(demo_run.ledger)
-        try:
-            counts = led.counts()
-            curves = curve_report(led, settings, normalised=True)
-            print_curve_table(curves)
-            cmp = compare_report(led, settings, threshold=0.8)
-            report = write_report(
-                out_dir / "report.html",
-                led,
-                settings,
-                title="Docking demo: what pretraining is worth",
-                threshold=0.8,
-            )
-        finally:
-            led.close()
-    from fewshot.cli.compare_cmd import print_transfer
-
-    print_transfer(cmp)
+        result = analyse_demo(demo_run)
+    print_curve_table(result.curves)
+    print_transfer(result.compare)
+    counts = result.counts
     out.print(
         f"{counts['done']} runs done, {counts['failed']} failed, in {time.monotonic() - start:.0f} s. "
-        f"Report: {report}\nLedger: {demo_run.ledger} (try: fewshot status --ledger {demo_run.ledger})"
+        f"Report: {result.report}\nLedger: {demo_run.ledger} (try: fewshot status --ledger {demo_run.ledger})"
     )

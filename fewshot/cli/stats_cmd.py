@@ -1,4 +1,4 @@
-"""``fewshot curves``: data-efficiency curves with bootstrap intervals."""
+"""``fewshot curves``, ``plot`` and ``report``: curves with bootstrap intervals, figures, the HTML report."""
 
 from __future__ import annotations
 
@@ -18,10 +18,10 @@ from fewshot.cli.common import (
     open_ledger,
     out,
     print_json,
-    records,
     reporting,
     styled,
 )
+from fewshot.cli.flags import as_flags
 from fewshot.errors import InvalidInput
 from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS
 
@@ -52,7 +52,9 @@ def _fmt(x: float) -> str:
 
 
 def _cell(row: pd.Series, show_n: bool) -> str:
-    flag = " [red]![/]" if row["n_seeds"] < 3 else ""
+    from fewshot.stats.curves import FEW_SEEDS
+
+    flag = " [red]![/]" if row["n_seeds"] < FEW_SEEDS else ""
     n = f" n{row['n_seeds']}" if show_n else ""
     if math.isnan(row["low"]):
         return f"{_fmt(row['estimate'])}[dim]{n}[/]{flag}"
@@ -82,6 +84,8 @@ AGGREGATE_NAMES = {
 
 def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     """The curves as a rich table: rows arm × task (or aggregate), columns sizes."""
+    from fewshot.stats.curves import FEW_SEEDS
+
     t = report.table
     sizes = sorted(set(t["size"]))
     label = "normalised " if report.value == "normalised" else ""
@@ -119,11 +123,12 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     out.print(
         styled(
             "score rule: {}; {} resamples, seed {}; {}; "
-            "[dim]\\[low, high] = interval; ! = fewer than 3 seeds[/]",
+            "[dim]\\[low, high] = interval; ! = fewer than {} seeds[/]",
             report.scores.rule,
             s.resamples,
             s.seed,
             seeds,
+            FEW_SEEDS,
         )
     )
     for note in report.notes:
@@ -153,10 +158,10 @@ def curves_cmd(
     study: StudyOpt = None,
 ) -> None:
     """Data-efficiency curves: an estimate and a bootstrap interval per arm, task and size."""
-    from fewshot.analysis import curve_report
+    from fewshot.analysis import curve_report, curves_json, curves_table
     from fewshot.stats import CurveSettings
 
-    with reporting():
+    with reporting(), as_flags():
         if fmt not in ("table", "csv", "json", "latex"):
             raise InvalidInput(f"--format must be table, csv, json or latex. Got {fmt!r}.")
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
@@ -173,15 +178,10 @@ def curves_cmd(
             )
         finally:
             led.close()
-    table = report.table.copy()
-    if report.kind != "per-task":
-        table.insert(2, "task", None)
-    table["rule"] = report.scores.rule
-    table["value"] = report.value
     if fmt == "json":
-        print_json({"rows": records(table), "notes": report.notes})
+        print_json(curves_json(report))
     elif fmt == "csv":
-        typer.echo(table.to_csv(index=False), nl=False)
+        typer.echo(curves_table(report).to_csv(index=False), nl=False)
     elif fmt == "latex":
         from fewshot.tables import latex_table, with_interval
 
@@ -243,7 +243,7 @@ def plot(
     from fewshot.plots import save_figure
     from fewshot.stats import CurveSettings
 
-    with reporting():
+    with reporting(), as_flags():
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
         if out_file.suffix.lower() not in (".png", ".svg", ".pdf"):
             raise InvalidInput(f"{out_file}: --out must end in .png, .svg or .pdf.")
@@ -288,22 +288,19 @@ def report(
     study: StudyOpt = None,
 ) -> None:
     """Write the study report: one HTML file with the figures embedded, readable offline and printable."""
-    from fewshot.report import write_report
+    from fewshot.analysis import analyse_study
+    from fewshot.report import check_report_path, write_report
     from fewshot.stats import CurveSettings
 
-    with reporting():
+    with reporting(), as_flags():
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
+        check_report_path(out_file)
         led = open_ledger(ledger, study)
         try:
-            path = write_report(
-                out_file,
-                led,
-                settings,
-                title=title,
-                select=select,
-                baseline=baseline,
-                threshold=threshold,
+            reports = analyse_study(
+                led, settings, select=select, baseline=baseline, threshold=threshold
             )
         finally:
             led.close()
+        path = write_report(out_file, reports, title=title)
     out.print(f"wrote {path}")

@@ -1,6 +1,7 @@
 """``fewshot demo``: write the scenario, plan it, run every run through the public API, analyse.
 
-Workers are separate processes that talk to the ledger only as an outside trainer would:
+Like an outside trainer, this module uses only the public API (``import fewshot``). Workers
+are separate processes that talk to the ledger only as an outside trainer would:
 ``Ledger.open`` → ``claim`` → train → ``record`` (with the subset digest and per-episode
 values) → ``done``, or ``fail`` with the error. A second demo on the same folder picks up
 where the first stopped: planned runs and runs whose lease expired are claimed again.
@@ -16,14 +17,14 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
+import fewshot
 from fewshot.demo.scenario import FULL, QUICK, write_scenario
 from fewshot.demo.trainer import train_run
-from fewshot.errors import InvalidInput
-from fewshot.ledger import Ledger
-from fewshot.ledger.runs import StaleAttempt
-from fewshot.study import load_study
 
-__all__ = ["DemoRun", "prepare_demo", "run_workers", "worker_loop"]
+__all__ = ["DemoRun", "DemoResult", "prepare_demo", "run_workers", "worker_loop", "analyse_demo"]
+
+DEMO_THRESHOLD = 0.8  # normalised level for episodes-to-threshold in the demo's report
+DEMO_TITLE = "Docking demo: what pretraining is worth"
 
 
 @dataclass(frozen=True)
@@ -47,9 +48,9 @@ def prepare_demo(folder: Path, *, quick: bool) -> DemoRun:
     """Write (or reuse) the scenario, create the ledger and plan every run."""
     study_file = write_scenario(folder, QUICK if quick else FULL)
     ledger = folder / "ledger.sqlite"
-    led = Ledger.open(ledger)
+    led = fewshot.Ledger.open(ledger)
     try:
-        report = led.plan(load_study(study_file))
+        report = led.plan(fewshot.load_study(study_file))
     finally:
         led.close()
     return DemoRun(folder, study_file, ledger, report.total_runs, report.new_runs)
@@ -57,7 +58,7 @@ def prepare_demo(folder: Path, *, quick: bool) -> DemoRun:
 
 def worker_loop(folder: str, ledger: str, name: str, lease: float = 600.0) -> int:
     """Claim, train and record runs until none is left; returns how many this worker ran."""
-    led = Ledger.open(ledger)
+    led = fewshot.Ledger.open(ledger)
     ran = 0
     try:
         while (claim := led.claim(name, lease)) is not None:
@@ -83,7 +84,7 @@ def worker_loop(folder: str, ledger: str, name: str, lease: float = 600.0) -> in
                 led.done(claim.key, attempt=claim.attempt)
             except Exception as exc:  # a trainer's failure is the run's, not the worker's
                 message = "".join(traceback.format_exception_only(exc)).strip()
-                with contextlib.suppress(StaleAttempt):  # a newer attempt holds the run
+                with contextlib.suppress(fewshot.StaleAttempt):  # a newer attempt holds the run
                     led.fail(claim.key, message, attempt=claim.attempt)
             ran += 1
     finally:
@@ -96,7 +97,7 @@ def run_workers(
 ) -> None:
     """Run every pending run with ``workers`` processes, calling ``on_tick(done, total)`` as they finish."""
     if workers < 1:
-        raise InvalidInput(f"--workers must be 1 or more. Got {workers}.")
+        raise fewshot.InvalidInput(f"workers must be 1 or more. Got {workers}.")
     ctx = multiprocessing.get_context(
         "spawn"
     )  # clean processes: no inherited connections or threads
@@ -108,7 +109,7 @@ def run_workers(
     ]
     for p in procs:
         p.start()
-    led = Ledger.open(demo.ledger)
+    led = fewshot.Ledger.open(demo.ledger)
     try:
         while any(p.is_alive() for p in procs):
             counts = led.counts()
@@ -124,3 +125,42 @@ def run_workers(
             if p.is_alive():
                 p.terminate()
         led.close()
+
+
+@dataclass(frozen=True)
+class DemoResult:
+    """What a finished demo shows.
+
+    Attributes
+    ----------
+    counts : dict
+        Runs per status.
+    reports : fewshot.StudyReports
+        Every report of the study, computed once (the printed tables and the HTML report).
+    curves : fewshot.CurveReport
+        The curves the demo prints (normalised where every task has floor and expert).
+    compare : fewshot.CompareReport
+    report : pathlib.Path
+        The HTML report.
+    """
+
+    counts: dict[str, int]
+    reports: fewshot.StudyReports
+    curves: fewshot.CurveReport
+    compare: fewshot.CompareReport
+    report: Path
+
+
+def analyse_demo(demo: DemoRun, *, resamples: int = 5000) -> DemoResult:
+    """Read the demo's ledger once, compute each report once and write the HTML report."""
+    settings = fewshot.CurveSettings(resamples=resamples)
+    led = fewshot.Ledger.open(demo.ledger)
+    try:
+        counts = led.counts()
+        reports = fewshot.analyse_study(led, settings, threshold=DEMO_THRESHOLD)
+    finally:
+        led.close()
+    if reports.compare is None:
+        raise fewshot.InvalidInput(reports.compare_error or "no comparison with the baseline")
+    path = fewshot.write_report(demo.folder / "report.html", reports, title=DEMO_TITLE)
+    return DemoResult(counts, reports, reports.figure_curves, reports.compare, path)

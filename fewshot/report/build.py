@@ -1,21 +1,24 @@
-"""Assemble the study report from the ledger: study, completion, figures, tables, methods, warnings."""
+"""Assemble the study report from its report objects: study, completion, figures, tables, methods,
+warnings. Nothing here reads a ledger or computes a statistic again: every section is drawn from
+the :class:`~fewshot.analysis.StudyReports` that :func:`fewshot.analysis.analyse_study` computed."""
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
+from typing import Any
 
 import pandas as pd
 
-from fewshot.analysis import compare_report, curve_report, make_figure
+from fewshot.analysis import CompareReport, StudyData, StudyReports, compare_figure, curve_figure
 from fewshot.errors import InvalidInput
 from fewshot.files import write_text_atomic
-from fewshot.ledger import Ledger
 from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
 from fewshot.stats import CurveSettings
 from fewshot.stats.coverage import coverage_sentence, printed_sentence
 from fewshot.tables import flagged, number, threshold_cell, transfer_rows, with_interval
 
-__all__ = ["build_report", "write_report", "HARDWARE_CAUTION"]
+__all__ = ["build_report", "write_report", "check_report_path", "HARDWARE_CAUTION"]
 
 HARDWARE_CAUTION = (
     "These scores come from the evaluation the trainers ran, often in simulation or on logged data. "
@@ -24,11 +27,11 @@ HARDWARE_CAUTION = (
 )
 
 
-def _study_section(ledger: Ledger) -> str:
-    study = ledger.study_row()
-    arms = ledger.arms()
-    tasks = ledger.tasks()
-    runs = ledger.runs()
+def _study_section(data: StudyData) -> str:
+    study = data.study
+    arms = data.arms
+    tasks = data.tasks
+    runs = data.runs
     arm_rows = [
         {
             "arm": r["arm"],
@@ -71,8 +74,8 @@ def _study_section(ledger: Ledger) -> str:
     )
 
 
-def _completion_section(ledger: Ledger) -> tuple[str, list[str]]:
-    st = ledger.status()
+def _completion_section(data: StudyData) -> tuple[str, list[str]]:
+    st = data.status
     t = st.totals
     warnings = []
     sizes = sorted(set(st.cells["size"]))
@@ -115,120 +118,89 @@ def _completion_section(ledger: Ledger) -> tuple[str, list[str]]:
     return body, warnings
 
 
-def _figure(ledger: Ledger, kind: str, settings: CurveSettings, caption: str, **kw) -> str:  # type: ignore[no-untyped-def]
+def _figure(draw: Callable[[], Any], kind: str, caption: str) -> str:
     try:
-        return figure_html(figure_uri(make_figure(ledger, kind, settings, **kw)), caption)
+        return figure_html(figure_uri(draw()), caption)
     except InvalidInput as exc:
         return paragraph(f"No {kind} figure: {exc}")
 
 
-def build_report(
-    ledger: Ledger,
-    settings: CurveSettings,
-    *,
-    title: str | None = None,
-    select: str = "final",
-    baseline: str | None = None,
-    threshold: float = 1.0,
-) -> str:
-    """The report as one HTML string."""
-    study = ledger.study_row()
+def _figures(rep: StudyReports) -> str:
+    """Every figure, drawn from the reports already computed."""
+    data, cmp = rep.data, rep.compare
+    figs = _figure(
+        lambda: curve_figure(rep.figure_curves, data),
+        "curves",
+        "Score against episodes per task; intervals over seeds.",
+    )
+    if rep.aggregate is not None:
+        aggregate = rep.aggregate
+        figs += _figure(
+            lambda: curve_figure(aggregate, data),
+            "aggregate",
+            "Interquartile mean of normalised scores over tasks.",
+        )
+    if cmp is None:
+        return figs
+    shown = [
+        ("difference", f"Each arm minus {cmp.baseline}, paired by seed."),
+        ("summary", "Summary of arms by task."),
+    ]
+    if rep.normalised:
+        shown.append(("profile", "Performance profile at the largest size."))
+    if len(cmp.scaling):
+        shown.append(("scaling", "Aggregate score against the arms' attribute."))
+    for kind, caption in shown:
+        figs += _figure(lambda k=kind: compare_figure(k, cmp, data), kind, caption)  # type: ignore[misc]
+    return figs
+
+
+def _transfer_section(cmp: CompareReport) -> str:
+    body = table_html(transfer_rows(cmp.table))
+    if len(cmp.thresholds):
+        body += f"<h3>Episodes to reach {number(cmp.threshold)} (normalised)</h3>" + table_html(
+            [
+                {
+                    "arm": r["arm"],
+                    "task": r["task"],
+                    "episodes": flagged(threshold_cell(r), r["n_seeds"]),
+                    "seeds": str(r["n_seeds"]),
+                }
+                for _, r in cmp.thresholds.iterrows()
+            ]
+        )
+    if len(cmp.areas):
+        body += "<h3>Area under the normalised curve (log size)</h3>" + table_html(
+            [
+                {
+                    "arm": r["arm"],
+                    "task": r["task"],
+                    "area": flagged(with_interval(r["auc"], r["low"], r["high"]), r["n_seeds"]),
+                    "sizes": r["sizes"],
+                    "seeds": str(r["n_seeds"]),
+                }
+                for _, r in cmp.areas.iterrows()
+            ]
+        )
+    return body
+
+
+def build_report(rep: StudyReports, *, title: str | None = None) -> str:
+    """The report as one HTML string, drawn from the reports of :func:`analyse_study`."""
+    data, curves, cmp, settings = rep.data, rep.curves, rep.compare, rep.settings
+    study = data.study
     sections: list[tuple[str, str]] = [
         ("Caution", f'<div class="caution">{paragraph(HARDWARE_CAUTION)}</div>')
     ]
-    sections.append(("The study", _study_section(ledger)))
-    completion, warnings = _completion_section(ledger)
+    sections.append(("The study", _study_section(data)))
+    completion, warnings = _completion_section(data)
     sections.append(("Completion", completion))
-    curves = curve_report(ledger, settings, select=select)
-    normalised = not curves.scores.raw_tasks
-    figs = _figure(
-        ledger,
-        "curves",
-        settings,
-        "Score against episodes per task; intervals over seeds.",
-        select=select,
-        normalised=normalised,
-    )
-    if normalised:
-        figs += _figure(
-            ledger,
-            "aggregate",
-            settings,
-            "Interquartile mean of normalised scores over tasks.",
-            select=select,
-        )
-    cmp = None
-    try:
-        cmp = compare_report(
-            ledger, settings, baseline=baseline, threshold=threshold, select=select
-        )
-    except InvalidInput as exc:
-        warnings.append(f"no comparison with the baseline: {exc}")
-    if cmp is not None:
-        figs += _figure(
-            ledger,
-            "difference",
-            settings,
-            f"Each arm minus {cmp.baseline}, paired by seed.",
-            select=select,
-            baseline=baseline,
-        )
-        figs += _figure(
-            ledger,
-            "summary",
-            settings,
-            "Summary of arms by task.",
-            select=select,
-            baseline=baseline,
-        )
-        if normalised:
-            figs += _figure(
-                ledger,
-                "profile",
-                settings,
-                "Performance profile at the largest size.",
-                select=select,
-                baseline=baseline,
-            )
-        if len(cmp.scaling):
-            figs += _figure(
-                ledger,
-                "scaling",
-                settings,
-                "Aggregate score against the arms' attribute.",
-                select=select,
-                baseline=baseline,
-            )
-    sections.append(("Figures", figs))
+    if rep.compare_error is not None:
+        warnings.append(f"no comparison with the baseline: {rep.compare_error}")
+    sections.append(("Figures", _figures(rep)))
     sections.append(("Curves", _curve_table(curves)))
     if cmp is not None:
-        body = table_html(transfer_rows(cmp.table))
-        if len(cmp.thresholds):
-            body += f"<h3>Episodes to reach {number(cmp.threshold)} (normalised)</h3>" + table_html(
-                [
-                    {
-                        "arm": r["arm"],
-                        "task": r["task"],
-                        "episodes": flagged(threshold_cell(r), r["n_seeds"]),
-                        "seeds": str(r["n_seeds"]),
-                    }
-                    for _, r in cmp.thresholds.iterrows()
-                ]
-            )
-        if len(cmp.areas):
-            body += "<h3>Area under the normalised curve (log size)</h3>" + table_html(
-                [
-                    {
-                        "arm": r["arm"],
-                        "task": r["task"],
-                        "area": flagged(with_interval(r["auc"], r["low"], r["high"]), r["n_seeds"]),
-                        "sizes": r["sizes"],
-                        "seeds": str(r["n_seeds"]),
-                    }
-                    for _, r in cmp.areas.iterrows()
-                ]
-            )
-        sections.append((f"Transfer against {cmp.baseline}", body))
+        sections.append((f"Transfer against {cmp.baseline}", _transfer_section(cmp)))
         warnings.extend(cmp.notes)
     sections.append(("Methods", _methods(curves, settings, cmp)))
     warnings = curves.notes + warnings
@@ -243,7 +215,7 @@ def build_report(
         )
     sections.append(("Warnings", bullet_list(dict.fromkeys(warnings), cls="warn")))
     heading = title or f"Study {study['name']}"
-    return page(heading, sections, subtitle=f"Study {study['name']}, ledger {ledger.url}.")
+    return page(heading, sections, subtitle=f"Study {study['name']}, ledger {data.url}.")
 
 
 def _curve_table(curves) -> str:  # type: ignore[no-untyped-def]
@@ -308,13 +280,19 @@ def _methods(curves, settings: CurveSettings, cmp) -> str:  # type: ignore[no-un
     return "".join(paragraph(p) for p in parts)
 
 
-def write_report(path: str | Path, ledger: Ledger, settings: CurveSettings, **kw) -> Path:  # type: ignore[no-untyped-def]
-    """Write the report atomically to ``path`` (an .html file)."""
+def check_report_path(path: str | Path) -> Path:
+    """``path`` as a report file: an .html name in a folder that exists."""
     p = Path(path)
     if p.suffix.lower() not in (".html", ".htm"):
-        raise InvalidInput(f"{p}: the report is an HTML file; give --out a name ending in .html.")
+        raise InvalidInput(f"{p}: the report is an HTML file; give a path ending in .html.")
     if not p.parent.is_dir():
         raise InvalidInput(
             f"{p.parent}: no such folder for the report. Create it first or pick another path."
         )
-    return write_text_atomic(p, build_report(ledger, settings, **kw), what="report")
+    return p
+
+
+def write_report(path: str | Path, rep: StudyReports, *, title: str | None = None) -> Path:
+    """Write the report of ``rep`` (from :func:`analyse_study`) atomically to ``path`` (.html)."""
+    p = check_report_path(path)
+    return write_text_atomic(p, build_report(rep, title=title), what="report")

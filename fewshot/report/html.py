@@ -36,12 +36,12 @@ figure { margin: 1.2em 0; } figure img { max-width: 100%; } figcaption { font-si
 
 
 def figure_uri(fig) -> str:  # type: ignore[no-untyped-def]
-    """A matplotlib figure as a PNG data URI (closes the figure)."""
-    import matplotlib.pyplot as plt
+    """A matplotlib figure as a PNG data URI."""
+    from fewshot.plots import style_context
 
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=150)
-    plt.close(fig)
+    with style_context():
+        fig.savefig(buf, format="png", dpi=150)
     return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 

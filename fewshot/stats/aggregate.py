@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from fewshot.errors import InvalidInput
-from fewshot.stats.curves import CurveSettings
+from fewshot.stats.curves import FEW_SEEDS, CurveSettings
 from fewshot.stats.estimators import AGGREGATES
 from fewshot.stats.intervals import rescaled_strata, strata_df, stratified_t
 from fewshot.stats.resample import nan_estimate
@@ -121,7 +121,9 @@ def aggregate_curves(
                     "n_tasks": len(parts),
                     "n_seeds": min(n_seeds),
                     "n_runs": int((~np.isnan(pooled)).sum()),
-                    "note": "; ".join(notes + (["under 3 seeds"] if min(n_seeds) < 3 else [])),
+                    "note": "; ".join(
+                        notes + ([f"under {FEW_SEEDS} seeds"] if min(n_seeds) < FEW_SEEDS else [])
+                    ),
                 }
             )
     return pd.DataFrame(rows, columns=AGGREGATE_COLUMNS)

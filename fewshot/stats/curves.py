@@ -19,7 +19,12 @@ from fewshot.errors import InvalidInput
 from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS, DegenerateCells, bootstrap_cells
 from fewshot.stats.estimators import estimator as get_estimator
 
-__all__ = ["CURVE_COLUMNS", "CurveSettings", "curves", "variance_share"]
+__all__ = ["CURVE_COLUMNS", "FEW_SEEDS", "CurveSettings", "curves", "variance_share"]
+
+# Below this many seeds an interval is not read as evidence: cells are flagged ("!", "under 3
+# seeds") in every table, figure and note (common practice; at 2 seeds a t interval has 1 degree
+# of freedom and a bootstrap has 3 distinct resamples).
+FEW_SEEDS = 3
 
 CURVE_COLUMNS = [
     "arm",
@@ -65,15 +70,15 @@ class CurveSettings:
     def check(self) -> CurveSettings:
         get_estimator(self.estimator)
         if self.method not in METHODS:
-            raise InvalidInput(f"--ci must be one of {', '.join(METHODS)}. Got {self.method!r}.")
+            raise InvalidInput(f"method must be one of {', '.join(METHODS)}. Got {self.method!r}.")
         if not 0 < self.confidence < 1:
             raise InvalidInput(
-                f"--confidence must lie between 0 and 1, e.g. 0.95. Got {self.confidence}."
+                f"confidence must lie between 0 and 1, e.g. 0.95. Got {self.confidence}."
             )
         if self.resamples < 100:
-            raise InvalidInput(f"--resamples must be at least 100. Got {self.resamples}.")
+            raise InvalidInput(f"resamples must be at least 100. Got {self.resamples}.")
         if self.method == "bootstrap-t" and self.estimator != "mean":
-            raise InvalidInput("--ci bootstrap-t works with --estimator mean only.")
+            raise InvalidInput("method 'bootstrap-t' works with estimator 'mean' only.")
         return self
 
 
@@ -180,8 +185,8 @@ def _row(cell: dict, res, j: int, share: float, settings: CurveSettings) -> dict
     notes = []
     if n < 2:
         notes.append("one seed: no interval")
-    elif n < 3:
-        notes.append("under 3 seeds")
+    elif n < FEW_SEEDS:
+        notes.append(f"under {FEW_SEEDS} seeds")
     if n >= 2 and bool(res.degenerate[j]):
         notes.append("all seeds equal")
     if cell["uneven"]:

@@ -1,0 +1,96 @@
+"""Every report of a study from one read of its ledger: what ``fewshot report`` and the demo show."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+from fewshot.analysis.curves import CurveReport, curve_scores
+from fewshot.analysis.data import StudyData, StudyScores, read_study, study_scores
+from fewshot.analysis.transfer import CompareReport, compare_scores
+from fewshot.errors import InvalidInput
+from fewshot.stats import CurveSettings
+
+if TYPE_CHECKING:
+    from fewshot.ledger import Ledger
+
+__all__ = ["StudyReports", "analyse_study"]
+
+
+@dataclass(frozen=True)
+class StudyReports:
+    """A study's data and each of its reports, computed once.
+
+    Attributes
+    ----------
+    data : StudyData
+        The one read of the ledger (with its completion).
+    scores : StudyScores
+    settings : CurveSettings
+    curves : CurveReport
+        Per-task curves in the metric's units (the report's table).
+    normalised_curves : CurveReport or None
+        Per-task curves of normalised scores, when every task has floor and expert.
+    aggregate : CurveReport or None
+        The across-task aggregates, when every task has floor and expert.
+    compare : CompareReport or None
+        Every arm against the baseline; None when the comparison was refused, with the reason in
+        ``compare_error``.
+    compare_error : str or None
+    """
+
+    data: StudyData
+    scores: StudyScores
+    settings: CurveSettings
+    curves: CurveReport
+    normalised_curves: CurveReport | None
+    aggregate: CurveReport | None
+    compare: CompareReport | None
+    compare_error: str | None = None
+
+    @property
+    def normalised(self) -> bool:
+        """Whether every task has floor and expert (so figures show normalised scores)."""
+        return self.normalised_curves is not None
+
+    @property
+    def figure_curves(self) -> CurveReport:
+        """The curves the figure draws: normalised where every task allows it."""
+        return self.normalised_curves or self.curves
+
+
+def analyse_study(
+    source: Ledger | StudyData,
+    settings: CurveSettings,
+    *,
+    select: str = "final",
+    baseline: str | None = None,
+    threshold: float = 1.0,
+) -> StudyReports:
+    """Read the study once (``source``: a ledger, or a study read by :func:`read_study` with its
+    status) and compute its curves, aggregates and comparison once each."""
+    settings.check()
+    data = source if isinstance(source, StudyData) else read_study(source, with_status=True)
+    if data.status is None:
+        raise InvalidInput(
+            "source must be read with its completion: read_study(ledger, with_status=True)."
+        )
+    sc = study_scores(data, select=select)
+    arms = data.arm_order
+    curves = curve_scores(sc, settings, arms=arms)
+    normalised_curves = aggregate = None
+    if not sc.raw_tasks:
+        normalised_curves = curve_scores(sc, settings, normalised=True, arms=arms)
+        aggregate = curve_scores(sc, settings, across_tasks=True, arms=arms)
+    cmp, error = None, None
+    try:
+        cmp = compare_scores(
+            sc,
+            settings,
+            baseline=baseline or data.study["baseline"],
+            threshold=threshold,
+            arm_table=data.arms,
+        )
+    except InvalidInput as exc:
+        error = str(exc)
+    return StudyReports(data, sc, settings, curves, normalised_curves, aggregate, cmp, error)

@@ -1,0 +1,206 @@
+"""The house style and the pieces every figure shares: palette, figures outside pyplot, the size
+axis with its zero-shot break, an arm's curve with its band, the seeds caption, saving."""
+
+from __future__ import annotations
+
+import functools
+import math
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, TypeVar
+
+import numpy as np
+import pandas as pd
+
+from fewshot.errors import InvalidInput
+from fewshot.files import replacing
+from fewshot.stats.curves import FEW_SEEDS
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
+
+__all__ = [
+    "PALETTE",
+    "STYLE",
+    "FIGURE_SUFFIXES",
+    "arm_colours",
+    "save_figure",
+    "style_context",
+    "styled",
+]
+
+# The Okabe & Ito (2008) colour-universal-design set, reordered so that the first colours stay
+# distinct under the common colour-vision deficiencies and in greyscale print.
+PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000", "#F0E442"]
+MARKERS = ["o", "s", "^", "D", "v", "P", "X", "*"]
+FIGURE_SUFFIXES = (".png", ".svg", ".pdf")
+COLUMN_WIDTH = 3.4  # inches: one column of a two-column paper
+
+# The house style, applied in a context while drawing and saving (never to the global rcParams).
+STYLE = {
+    "font.size": 8,
+    "axes.titlesize": 8,
+    "axes.labelsize": 8,
+    "legend.fontsize": 7,
+    "xtick.labelsize": 7,
+    "ytick.labelsize": 7,
+    "svg.hashsalt": "fewshot",
+}
+
+F = TypeVar("F", bound=Callable[..., Any])
+
+
+def style_context() -> Any:
+    """``matplotlib.rc_context`` with the house style: rcParams as they were on leaving."""
+    import matplotlib
+
+    return matplotlib.rc_context(STYLE)  # type: ignore[arg-type]  # keys typed as literals there
+
+
+def styled(func: F) -> F:
+    """Run ``func`` inside ``matplotlib.rc_context(STYLE)``."""
+
+    @functools.wraps(func)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+
+        with style_context():
+            return func(*args, **kwargs)
+
+    return wrapper  # type: ignore[return-value]
+
+
+def _figure(figsize: tuple[float, float]) -> Figure:
+    """A new figure outside pyplot: no backend needed, nothing for pyplot to keep alive."""
+    from matplotlib.figure import Figure
+
+    return Figure(figsize=figsize)
+
+
+def _single(ax: Axes | None, figsize: tuple[float, float]) -> tuple[Figure, Axes, bool]:
+    """The caller's axes with its figure, or a new figure with one axes; the flag says whether
+    the figure is ours (so its layout may be tightened)."""
+    if ax is not None:
+        return ax.figure, ax, False  # type: ignore[return-value]
+    fig = _figure(figsize)
+    return fig, fig.add_subplot(), True
+
+
+def arm_colours(arms: Sequence[str]) -> dict[str, tuple[str, str]]:
+    """(colour, marker) per arm, in the order given (the study's order), the same in every figure."""
+    return {a: (PALETTE[i % len(PALETTE)], MARKERS[i % len(MARKERS)]) for i, a in enumerate(arms)}
+
+
+def _size_axis(ax, sizes: Sequence[int]) -> float | None:  # type: ignore[no-untyped-def]
+    """Log axis with the ladder as ticks; returns where size 0 is drawn (None without size 0)."""
+    positive = sorted(s for s in sizes if s > 0)
+    ax.set_xscale("log")
+    zero_at = None
+    ticks: list[float] = [float(s) for s in positive]
+    labels = [str(s) for s in positive]
+    if 0 in sizes and positive:
+        zero_at = positive[0] / 4
+        ticks, labels = [zero_at, *ticks], ["0", *labels]
+        # a break in the axis between the zero-shot place and the ladder
+        gap = math.sqrt(zero_at * positive[0])
+        ax.plot(
+            [gap / 1.12, gap * 1.12],
+            [0, 0],
+            transform=ax.get_xaxis_transform(),
+            color="white",
+            lw=3,
+            clip_on=False,
+            zorder=5,
+        )
+        for x in (gap / 1.12, gap * 1.12):
+            ax.plot(
+                [x / 1.04, x * 1.04],
+                [-0.02, 0.02],
+                transform=ax.get_xaxis_transform(),
+                color="black",
+                lw=0.8,
+                clip_on=False,
+                zorder=6,
+            )
+    if positive:
+        ax.set_xlim((zero_at or positive[0]) / 1.6, positive[-1] * 1.6)
+    ax.set_xticks(ticks)
+    ax.set_xticklabels(labels)
+    ax.minorticks_off()
+    return zero_at
+
+
+def _draw_arm(
+    ax,
+    frame: pd.DataFrame,
+    arm: str,
+    style: tuple[str, str],
+    dashed: bool,
+    zero_at: float | None,  # type: ignore[no-untyped-def]
+    value: str = "estimate",
+) -> None:
+    colour, marker = style
+    f = frame.sort_values("size")
+    pos = f[f["size"] > 0]
+    ls = "--" if dashed else "-"
+    ax.plot(pos["size"], pos[value], ls=ls, marker=marker, ms=3, lw=1.2, color=colour, label=arm)
+    if "low" in f and pos["low"].notna().any():
+        ax.fill_between(pos["size"], pos["low"], pos["high"], color=colour, alpha=0.18, lw=0)
+    zero = f[f["size"] == 0]
+    if zero_at is not None and len(zero):
+        z = zero.iloc[0]
+        err = None
+        if not pd.isna(z.get("low")):
+            err = [[z[value] - z["low"]], [z["high"] - z[value]]]
+        ax.errorbar(
+            [zero_at], [z[value]], yerr=err, fmt=marker, ms=3, color=colour, capsize=2, lw=1
+        )
+
+
+def _seeds_text(frame: pd.DataFrame) -> str:
+    if "n_seeds" not in frame or frame.empty:
+        return ""
+    lo, hi = int(frame["n_seeds"].min()), int(frame["n_seeds"].max())
+    text = f"{lo} seeds" if lo == hi else f"{lo}-{hi} seeds"
+    return text + (f" (under {FEW_SEEDS}: not to be trusted)" if lo < FEW_SEEDS else "")
+
+
+def _grid(
+    n: int, width: float | None = None, fig: Figure | None = None
+) -> tuple[Figure, np.ndarray]:
+    """``n`` panels, three to a row, in ``fig`` (the caller's) or in a new figure."""
+    cols = min(n, 3)
+    width = width if width is not None else (COLUMN_WIDTH * 1.25 if n == 1 else COLUMN_WIDTH * 2)
+    rows = math.ceil(n / cols)
+    if fig is None:
+        fig = _figure((width, 2.1 * rows + 0.5))
+    axes = fig.subplots(rows, cols, squeeze=False)
+    for ax in axes.ravel()[n:]:
+        ax.set_visible(False)
+    return fig, axes.ravel()
+
+
+def _legend(fig: Figure, ax) -> None:  # type: ignore[no-untyped-def]
+    handles, labels = ax.get_legend_handles_labels()
+    if handles:
+        fig.legend(
+            handles,
+            labels,
+            loc="upper center",
+            ncol=min(len(labels), 5),
+            frameon=False,
+            bbox_to_anchor=(0.5, 0.95),
+        )
+
+
+@styled
+def save_figure(fig: Figure, path: str | Path, *, dpi: int = 200) -> Path:
+    """Write a figure as PNG, SVG or PDF by the file's suffix; written to a temporary name, then moved."""
+    p = Path(path)
+    if p.suffix.lower() not in FIGURE_SUFFIXES:
+        raise InvalidInput(
+            f"{p}: figures are written as .png, .svg or .pdf; got {p.suffix or 'no suffix'!r}."
+        )
+    with replacing(p, what="figure") as tmp:
+        fig.savefig(tmp, dpi=dpi, metadata={"Date": None} if p.suffix.lower() == ".svg" else None)
+    return p
