@@ -17,9 +17,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from fewshot import InvalidInput
 from fewshot.demo.policy import demonstrations, pretrain
 from fewshot.demo.sim import Task, expert_actions, random_actions, rollout, starts
-from fewshot.errors import InvalidInput
 
 __all__ = [
     "DemoConfig",
