@@ -274,7 +274,7 @@ def test_bad_curve_settings(settings, fragment):
 
 
 def test_nan_aware_estimators_equal_scipy_on_the_present_runs():
-    from fewshot.stats.resample import nan_estimate
+    from fewshot.stats.estimators import nan_estimate
 
     rng = np.random.default_rng(5)
     x = rng.normal(size=(40, 9))

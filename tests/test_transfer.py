@@ -16,9 +16,9 @@ from fewshot.stats.profiles import performance_profile, scaling_view
 from fewshot.stats.transfer import (
     curve_areas,
     effective_data,
-    improvement_probability,
     paired_differences,
     probability_of_improvement,
+    probability_of_improvement_table,
     threshold_sizes,
 )
 
@@ -85,7 +85,7 @@ def test_probability_of_improvement_on_the_precipice_example():
                         "score": m[run, t],
                     }
                 )
-    table = improvement_probability(pd.DataFrame(rows), "y", CurveSettings(resamples=500))
+    table = probability_of_improvement_table(pd.DataFrame(rows), "y", CurveSettings(resamples=500))
     assert table[table["task"] == "all"]["probability"].iloc[0] == pytest.approx(1 / 3)
 
 

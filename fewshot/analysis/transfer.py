@@ -103,8 +103,8 @@ def compare_scores(
         check_baseline,
         curve_areas,
         effective_data,
-        improvement_probability,
         paired_differences,
+        probability_of_improvement_table,
         thin_baselines,
         threshold_sizes,
     )
@@ -118,7 +118,9 @@ def compare_scores(
     value = "normalised" if not raw else ("score" if not refs else "mixed")
     notes = _unit_notes(sc, tasks, refs, raw)
     diff = paired_differences(sc.scores, base, settings, value="value", arms=chosen, over=refs)
-    poi = improvement_probability(sc.scores, base, settings, value="value", arms=chosen, over=refs)
+    poi = probability_of_improvement_table(
+        sc.scores, base, settings, value="value", arms=chosen, over=refs
+    )
     eff = effective_data(sc.scores, base, settings, value="value", arms=chosen)
     keys = ["arm", "task", "size"]
     table = diff.merge(

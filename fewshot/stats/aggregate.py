@@ -16,9 +16,8 @@ import pandas as pd
 
 from fewshot.errors import InvalidInput
 from fewshot.stats.curves import FEW_SEEDS, CurveSettings
-from fewshot.stats.estimators import AGGREGATES
+from fewshot.stats.estimators import AGGREGATES, nan_estimate
 from fewshot.stats.intervals import rescaled_strata, strata_df, stratified_t
-from fewshot.stats.resample import nan_estimate
 
 __all__ = ["AGGREGATE_COLUMNS", "METHOD", "aggregate_curves"]
 

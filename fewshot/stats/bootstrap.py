@@ -166,7 +166,7 @@ def bootstrap_cells(
     se = dist.std()
     alpha = 1 - confidence
     if method in ("percentile", "basic", "expanded"):
-        a = alpha if method != "expanded" else _expanded_alpha(alpha, n)
+        a = alpha if method != "expanded" else 2 * expanded_half_alpha(alpha, n)  # x2: exact
         lo, hi = dist.quantiles(np.full(cells, a / 2)), dist.quantiles(np.full(cells, 1 - a / 2))
         if method == "basic":
             lo, hi = 2 * estimate - hi, 2 * estimate - lo
@@ -447,9 +447,13 @@ def _hall(x: np.ndarray, alpha: float) -> tuple[np.ndarray, np.ndarray]:
     return mean - se * g_inv(q[1]), mean - se * g_inv(q[0])
 
 
-def _expanded_alpha(alpha: float, n: int) -> float:
-    # Hesterberg (2015): alpha'/2 = Phi( sqrt(n/(n-1)) * t_{alpha/2, n-1} )
-    return float(2 * special.ndtr(np.sqrt(n / (n - 1)) * stats.t.ppf(alpha / 2, n - 1)))
+def expanded_half_alpha(alpha: float, n: int) -> float:
+    """Hesterberg's (2015) expanded percentile level: alpha'/2 = Phi(sqrt(n/(n-1)) t_{alpha/2, n-1}).
+
+    The one definition: the expanded cell intervals here and the whole-curve intervals of
+    :mod:`fewshot.stats.resample` both read it. Needs ``n >= 2``.
+    """
+    return float(special.ndtr(np.sqrt(n / (n - 1)) * stats.t.ppf(alpha / 2, n - 1)))
 
 
 def _bca(

@@ -1,10 +1,14 @@
 """Point estimators over the last axis: mean, median, interquartile mean, optimality gap.
 
-All take an array whose last axis holds the runs of one cell and reduce it.
+All take an array whose last axis holds the runs of one cell and reduce it. The one family,
+in two forms: :func:`estimator` for complete cells (the cell bootstrap), :func:`nan_estimate`
+for cells where a run may be missing (NaN), as whole-curve resamples and pooled aggregates have.
+Both give the same number on a cell without NaN (tests/test_curves.py checks them against scipy).
 """
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Callable
 
 import numpy as np
@@ -12,7 +16,14 @@ from scipy import stats
 
 from fewshot.errors import InvalidInput
 
-__all__ = ["ESTIMATORS", "AGGREGATES", "estimator", "iqm", "optimality_gap"]
+__all__ = [
+    "ESTIMATORS",
+    "AGGREGATES",
+    "estimator",
+    "nan_estimate",
+    "iqm",
+    "optimality_gap",
+]
 
 Estimator = Callable[[np.ndarray], np.ndarray]
 
@@ -52,3 +63,33 @@ def estimator(name: str, *, aggregate: bool = False) -> Estimator:
     if name not in table:
         raise InvalidInput(f"estimator must be one of {', '.join(table)}. Got {name!r}.")
     return table[name]
+
+
+def nan_estimate(name: str, x: np.ndarray) -> np.ndarray:
+    """Estimator over the last axis that leaves out missing runs (NaN); NaN where all are missing.
+
+    A cell with no run at all (e.g. a baseline run not yet reported) is NaN, quietly: numpy's
+    "Mean of empty slice" / "All-NaN slice" warnings would only reach the user as noise.
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return _nan_estimate(name, x)
+
+
+def _nan_estimate(name: str, x: np.ndarray) -> np.ndarray:
+    if name == "mean":
+        return np.nanmean(x, axis=-1)
+    if name == "median":
+        return np.nanmedian(x, axis=-1)
+    if (
+        name == "optimality_gap"
+    ):  # Agarwal et al. (2021): mean shortfall below 1, missing runs left out
+        return np.nanmean(np.maximum(0.0, 1.0 - x), axis=-1)
+    s = np.sort(x, axis=-1)  # NaN last
+    m = np.isfinite(s).sum(axis=-1)
+    cut = (0.25 * m).astype(int)  # as scipy.stats.trim_mean(x, 0.25): int(0.25 n) from each end
+    pos = np.arange(s.shape[-1])
+    keep = (pos >= cut[..., None]) & (pos < (m - cut)[..., None])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(keep, np.nan_to_num(s), 0.0).sum(axis=-1) / keep.sum(axis=-1)

@@ -23,8 +23,8 @@ from fewshot.stats.simulate import Scenario, default_scenario, simulate_scores
 from fewshot.stats.transfer import (
     curve_areas,
     effective_data,
-    improvement_probability,
     paired_differences,
+    probability_of_improvement_table,
     threshold_sizes,
 )
 
@@ -120,7 +120,7 @@ def study_intervals(
         parts.append(
             _rows("difference over tasks", diff["low"][over], diff["high"][over], truth[over])
         )
-        poi = improvement_probability(scores, base, settings, value="normalised")
+        poi = probability_of_improvement_table(scores, base, settings, value="normalised")
         truth_list = []
         for a, t, n in zip(poi["arm"], poi["task"], poi["size"], strict=True):
             tasks = list(sc.tasks) if t == "all" else [t]

@@ -14,41 +14,12 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import special, stats
 
+from fewshot.stats.bootstrap import expanded_half_alpha
 from fewshot.stats.curves import CurveSettings
+from fewshot.stats.estimators import nan_estimate
 
 __all__ = ["CurveResampler", "nan_estimate", "expanded_level", "interval", "quantile_inf"]
-
-
-def nan_estimate(name: str, x: np.ndarray) -> np.ndarray:
-    """Estimator over the last axis that leaves out missing runs (NaN); NaN where all are missing.
-
-    A cell with no run at all (e.g. a baseline run not yet reported) is NaN, quietly: numpy's
-    "Mean of empty slice" / "All-NaN slice" warnings would only reach the user as noise.
-    """
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return _nan_estimate(name, x)
-
-
-def _nan_estimate(name: str, x: np.ndarray) -> np.ndarray:
-    if name == "mean":
-        return np.nanmean(x, axis=-1)
-    if name == "median":
-        return np.nanmedian(x, axis=-1)
-    if (
-        name == "optimality_gap"
-    ):  # Agarwal et al. (2021): mean shortfall below 1, missing runs left out
-        return np.nanmean(np.maximum(0.0, 1.0 - x), axis=-1)
-    s = np.sort(x, axis=-1)  # NaN last
-    m = np.isfinite(s).sum(axis=-1)
-    cut = (0.25 * m).astype(int)  # as scipy.stats.trim_mean(x, 0.25): int(0.25 n) from each end
-    pos = np.arange(s.shape[-1])
-    keep = (pos >= cut[..., None]) & (pos < (m - cut)[..., None])
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(keep, np.nan_to_num(s), 0.0).sum(axis=-1) / keep.sum(axis=-1)
 
 
 def expanded_level(confidence: float, n: int) -> float:
@@ -56,7 +27,7 @@ def expanded_level(confidence: float, n: int) -> float:
     alpha = 1 - confidence
     if n < 2:
         return alpha / 2
-    return float(special.ndtr(np.sqrt(n / (n - 1)) * stats.t.ppf(alpha / 2, n - 1)))
+    return expanded_half_alpha(alpha, n)
 
 
 def interval(draws: np.ndarray, confidence: float, n: int) -> tuple[float, float]:

@@ -44,7 +44,7 @@ from fewshot.stats.resample import CurveResampler, interval
 __all__ = [
     "check_baseline",
     "paired_differences",
-    "improvement_probability",
+    "probability_of_improvement_table",
     "probability_of_improvement",
     "threshold_sizes",
     "effective_data",
@@ -249,13 +249,15 @@ def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  #
 
 
 def probability_of_improvement(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """P(X > Y) + P(X = Y)/2 over all pairs, along the last axis (the Mann-Whitney U / (n m))."""
+    """The probability of improvement of two samples (Agarwal et al. 2021): P(X > Y) + P(X = Y)/2
+    over all pairs, along the last axis (the Mann-Whitney U / (n m)). For the table of a study,
+    with intervals, see :func:`probability_of_improvement_table`."""
     gt = (x[..., :, None] > y[..., None, :]).mean(axis=(-2, -1))
     eq = (x[..., :, None] == y[..., None, :]).mean(axis=(-2, -1))
     return gt + 0.5 * eq
 
 
-def improvement_probability(
+def probability_of_improvement_table(
     scores: pd.DataFrame,
     baseline: str,
     settings: CurveSettings,
