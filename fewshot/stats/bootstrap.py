@@ -22,11 +22,8 @@ expanded
 bootstrap-t
     The studentised bootstrap for the mean (Efron & Tibshirani 1993, ch. 12.5).
 hall
-    Hall's (1992) transformed t interval for the mean, which removes the first-order
-    effect of skewness: with ``a = γ/(3√n)``, ``b = γ/(6√n)`` (γ the sample skewness),
-    ``g(T) = T + aT² + a²T³/3 + b`` is monotone and ``g⁻¹(y) = ((1 + 3a(y - b))^(1/3) - 1)/a``;
-    the interval is ``x̄ - s/√n · g⁻¹(t(1-α/2)), x̄ - s/√n · g⁻¹(t(α/2))`` ("On the removal of
-    skewness by transformation", JRSS B 54(1), 221-228). Other estimators fall back to t.
+    Hall's (1992) transformed t interval for the mean, which removes the first-order effect
+    of skewness (:func:`fewshot.stats.cell_methods.hall_interval`). Other estimators fall back to t.
 """
 
 from __future__ import annotations
@@ -36,9 +33,11 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import special, stats
+from scipy import stats
 
 from fewshot.errors import InvalidInput
+from fewshot.stats.cell_methods import bca_interval, expanded_half_alpha, hall_interval
+from fewshot.stats.intervals import cell_scale, row_scale
 
 __all__ = ["METHODS", "DEFAULT_METHOD", "CellIntervals", "DegenerateCells", "bootstrap_cells"]
 
@@ -138,7 +137,7 @@ def bootstrap_cells(
     power of two first (so the estimator must be scale-equivariant, as mean, median and IQM are).
     """
     data = _iv(values, method, confidence, resamples, is_mean)
-    scale = _huge_scale(data)
+    scale = cell_scale(data)
     if scale is not None:  # values near 1e200: squares and cubes would overflow to inf
         res = bootstrap_cells(
             data * scale[:, None, None],
@@ -171,13 +170,13 @@ def bootstrap_cells(
         if method == "basic":
             lo, hi = 2 * estimate - hi, 2 * estimate - lo
     elif method == "bca":
-        lo, hi = _bca(seed_level, estimator, estimate, dist, alpha)
+        lo, hi = bca_interval(seed_level, estimator, estimate, dist, alpha)
     elif method == "t" or (method == "hall" and not is_mean):
         spread = seed_level.std(axis=1, ddof=1) / np.sqrt(n) if is_mean else se
         q = stats.t.ppf(1 - alpha / 2, n - 1)
         lo, hi = estimate - q * spread, estimate + q * spread
     elif method == "hall":
-        lo, hi = _hall(seed_level, alpha)
+        lo, hi = hall_interval(seed_level, alpha)
     else:  # bootstrap-t
         assert dist.sd is not None
         s_hat = seed_level.std(axis=1, ddof=1) / np.sqrt(n)
@@ -216,24 +215,6 @@ def bootstrap_cells(
     )
 
 
-HUGE = 2.0**300  # beyond this, s², the skewness's cubes and sums of squares may overflow
-
-
-def _huge_scale(data: np.ndarray) -> np.ndarray | None:
-    """Per cell, a power of two that brings the largest |value| near 1, when some cell is huge.
-
-    Multiplying by a power of two is exact in floating point, and every estimator and interval
-    here is scale-equivariant (mean, median, IQM; t, Hall, BCa, percentile), so the intervals of
-    the scaled cells, scaled back, are those of the originals, without overflow. None when no
-    cell needs it (then nothing is touched).
-    """
-    peak = np.abs(data).max(axis=(1, 2)) if data.size else np.zeros(len(data))
-    if not (peak >= HUGE).any():
-        return None
-    _, exponent = np.frexp(peak)
-    return np.where(peak >= HUGE, np.ldexp(1.0, -exponent), 1.0)
-
-
 def _unscaled(res: CellIntervals, scale: np.ndarray) -> CellIntervals:
     back = 1.0 / scale
     dist = None if res.distribution is None else res.distribution * back[:, None]
@@ -250,14 +231,6 @@ def _unscaled(res: CellIntervals, scale: np.ndarray) -> CellIntervals:
         res.degenerate,
         dist,
     )
-
-
-def _row_scale(x: np.ndarray) -> np.ndarray:
-    """Per row, a power of two that brings the largest finite |value| near 1 (exact scaling)."""
-    with np.errstate(invalid="ignore"):
-        peak = np.nanmax(np.where(np.isfinite(x), np.abs(x), np.nan), axis=1, initial=0.0)
-    _, exponent = np.frexp(peak)
-    return np.ldexp(1.0, -exponent)[:, None]
 
 
 @dataclass(frozen=True)
@@ -284,7 +257,7 @@ class _Dist:
 
     def std(self) -> np.ndarray:
         w = self.weights
-        c = _row_scale(self.values)  # scaled first: the squares of values near 1e200 overflow
+        c = row_scale(self.values)  # scaled first: the squares of values near 1e200 overflow
         v = self.values * c
         mean = (v * w).sum(axis=1) / w.sum()
         return np.sqrt(((v - mean[:, None]) ** 2 * w).sum(axis=1) / (w.sum() - 1)) / c[:, 0]
@@ -424,58 +397,3 @@ def _quantiles(theta: np.ndarray, q: np.ndarray) -> np.ndarray:
             part = np.partition(row, sorted({int(lo[i]), int(hi[i])}))
             out[i] = part[lo[i]] * (1 - frac[i]) + part[hi[i]] * frac[i]
     return np.where(valid, out, np.nan)
-
-
-def _hall(x: np.ndarray, alpha: float) -> tuple[np.ndarray, np.ndarray]:
-    """Hall (1992) transformed t interval for the mean of each row (see the module notes)."""
-    n = x.shape[1]
-    mean = x.mean(axis=1)
-    s = x.std(axis=1, ddof=1)
-    d = x - mean[:, None]
-    m2 = (d**2).mean(axis=1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        gamma = np.where(m2 > 0, (d**3).mean(axis=1) / m2**1.5, 0.0)
-    a = gamma / (3 * np.sqrt(n))
-    b = gamma / (6 * np.sqrt(n))
-    q = stats.t.ppf([alpha / 2, 1 - alpha / 2], n - 1)
-
-    def g_inv(y: float) -> np.ndarray:
-        safe = np.where(np.abs(a) < 1e-12, 1.0, a)
-        return np.where(np.abs(a) < 1e-12, y - b, (np.cbrt(1 + 3 * a * (y - b)) - 1) / safe)
-
-    se = s / np.sqrt(n)
-    return mean - se * g_inv(q[1]), mean - se * g_inv(q[0])
-
-
-def expanded_half_alpha(alpha: float, n: int) -> float:
-    """Hesterberg's (2015) expanded percentile level: alpha'/2 = Phi(sqrt(n/(n-1)) t_{alpha/2, n-1}).
-
-    The one definition: the expanded cell intervals here and the whole-curve intervals of
-    :mod:`fewshot.stats.resample` both read it. Needs ``n >= 2``.
-    """
-    return float(special.ndtr(np.sqrt(n / (n - 1)) * stats.t.ppf(alpha / 2, n - 1)))
-
-
-def _bca(
-    seed_level: np.ndarray,
-    estimator: Callable[[np.ndarray], np.ndarray],
-    estimate: np.ndarray,
-    dist: _Dist,
-    alpha: float,
-) -> tuple[np.ndarray, np.ndarray]:
-    """Efron & Tibshirani (1993) eq. 14.14 (z0) and 14.15 (acceleration by the jackknife)."""
-    cells, n = seed_level.shape
-    b = dist.resamples
-    below = dist.count(estimate, inclusive=False)
-    at_or_below = dist.count(estimate, inclusive=True)
-    z0 = special.ndtri((below + at_or_below) / (2 * b))  # ties counted half, as scipy does
-    keep = ~np.eye(n, dtype=bool)
-    jack = np.stack([estimator(seed_level[:, keep[i]]) for i in range(n)], axis=1)  # cells × n
-    d = jack.mean(axis=1, keepdims=True) - jack
-    with np.errstate(divide="ignore", invalid="ignore"):
-        accel = (d**3).sum(axis=1) / (6 * ((d**2).sum(axis=1)) ** 1.5)
-    z = special.ndtri(np.array([alpha / 2, 1 - alpha / 2]))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        a1 = special.ndtr(z0 + (z0 + z[0]) / (1 - accel * (z0 + z[0])))
-        a2 = special.ndtr(z0 + (z0 + z[1]) / (1 - accel * (z0 + z[1])))
-    return dist.quantiles(a1), dist.quantiles(a2)

@@ -33,9 +33,12 @@ __all__ = [
     "newcombe_interval",
     "newcombe_mean_interval",
     "huge_scale",
+    "cell_scale",
+    "row_scale",
 ]
 
-HUGE = 2.0**300  # beyond this, squares (variances) may overflow to inf
+# beyond this, squares (variances), the skewness's cubes and sums of squares may overflow to inf
+HUGE = 2.0**300
 
 
 def huge_scale(*arrays: np.ndarray) -> float:
@@ -56,6 +59,29 @@ def huge_scale(*arrays: np.ndarray) -> float:
     if peak < HUGE:
         return 1.0
     return float(np.ldexp(1.0, -int(np.frexp(peak)[1])))
+
+
+def cell_scale(data: np.ndarray) -> np.ndarray | None:
+    """Per cell, a power of two that brings the largest |value| near 1, when some cell is huge.
+
+    Multiplying by a power of two is exact in floating point, and every estimator and interval
+    here is scale-equivariant (mean, median, IQM; t, Hall, BCa, percentile), so the intervals of
+    the scaled cells, scaled back, are those of the originals, without overflow. None when no
+    cell needs it (then nothing is touched).
+    """
+    peak = np.abs(data).max(axis=(1, 2)) if data.size else np.zeros(len(data))
+    if not (peak >= HUGE).any():
+        return None
+    _, exponent = np.frexp(peak)
+    return np.where(peak >= HUGE, np.ldexp(1.0, -exponent), 1.0)
+
+
+def row_scale(x: np.ndarray) -> np.ndarray:
+    """Per row, a power of two that brings the largest finite |value| near 1 (exact scaling)."""
+    with np.errstate(invalid="ignore"):
+        peak = np.nanmax(np.where(np.isfinite(x), np.abs(x), np.nan), axis=1, initial=0.0)
+    _, exponent = np.frexp(peak)
+    return np.ldexp(1.0, -exponent)[:, None]
 
 
 def satterthwaite_df(variances: np.ndarray, counts: np.ndarray, weights: np.ndarray) -> float:

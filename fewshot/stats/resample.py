@@ -15,7 +15,7 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from fewshot.stats.bootstrap import expanded_half_alpha
+from fewshot.stats.cell_methods import expanded_half_alpha
 from fewshot.stats.curves import CurveSettings
 from fewshot.stats.estimators import nan_estimate
 
