@@ -103,7 +103,7 @@ def threshold_cell(row: pd.Series) -> str:
 def transfer_rows(table: pd.DataFrame) -> list[dict[str, str]]:
     """The transfer table as text cells: arm, task, size, difference, P(improvement), effective data.
 
-    Cells resting on fewer than 3 seeds end in `` !``.
+    Cells resting on fewer than ``FEW_SEEDS`` (3) seeds end in `` !``.
     """
     out = []
     mixed = "unit" in table and table["unit"].nunique() > 1  # say each row's unit when they differ

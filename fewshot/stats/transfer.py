@@ -29,7 +29,7 @@ import pandas as pd
 
 from fewshot.stats.baseline import check_baseline
 from fewshot.stats.bootstrap import DegenerateCells, bootstrap_cells
-from fewshot.stats.curves import CurveSettings
+from fewshot.stats.curves import FEW_SEEDS, CurveSettings
 from fewshot.stats.estimators import estimator as get_estimator
 from fewshot.stats.intervals import (
     newcombe_interval,
@@ -104,7 +104,11 @@ def paired_differences(
         rng = np.random.default_rng(child)
         for task, size, x, y, nx, ny in _paired_cells(scores, value, arm, baseline):
             n = len(x)
-            note = "" if n >= 3 else ("no common seeds" if n == 0 else "under 3 seeds")
+            note = (
+                ""
+                if n >= FEW_SEEDS
+                else ("no common seeds" if n == 0 else f"under {FEW_SEEDS} seeds")
+            )
             if nx != n or ny != n:
                 note = "; ".join(
                     filter(None, [note, f"paired on {n} common seeds of {nx} and {ny}"])
