@@ -4,9 +4,8 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
-import pandas as pd
 import typer
 from rich.table import Table
 from rich.text import Text
@@ -23,7 +22,10 @@ from fewshot.cli.common import (
 )
 from fewshot.cli.flags import as_flags
 from fewshot.errors import InvalidInput
-from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS
+from fewshot.stats.methods import DEFAULT_METHOD, METHODS
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 MetricOpt = Annotated[
     str | None, typer.Option("--metric", help="Metric to score runs by (default: the study's).")

@@ -1,9 +1,10 @@
 """Statistics over the tidy results table: scores, curves, aggregates. No database code here."""
 
 from fewshot.stats.aggregate import AGGREGATE_COLUMNS, aggregate_curves
-from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS, CellIntervals, bootstrap_cells
+from fewshot.stats.bootstrap import CellIntervals, bootstrap_cells
 from fewshot.stats.curves import CURVE_COLUMNS, CurveSettings, curves, variance_share
 from fewshot.stats.estimators import AGGREGATES, ESTIMATORS, iqm, optimality_gap
+from fewshot.stats.methods import DEFAULT_METHOD, METHODS
 from fewshot.stats.scores import (
     SCORE_COLUMNS,
     ScoreRule,

@@ -38,15 +38,10 @@ from scipy import stats
 from fewshot.errors import InvalidInput
 from fewshot.stats.cell_methods import bca_interval, expanded_half_alpha, hall_interval
 from fewshot.stats.intervals import cell_scale, row_scale
+from fewshot.stats.methods import DEFAULT_METHOD, METHODS
 
 __all__ = ["METHODS", "DEFAULT_METHOD", "CellIntervals", "DegenerateCells", "bootstrap_cells"]
 
-METHODS = ("percentile", "basic", "bca", "t", "expanded", "bootstrap-t", "hall")
-# Measured with tests/benchmarks/coverage.py (the README shows the table): no method reaches
-# 93-97% at 5 seeds on all three test distributions. The t interval is exact for normal seeds,
-# always finite and well-behaved; Hall's and the bootstrap-t interval cover skewed seeds a point
-# or two better but give erratic, very wide intervals on single samples of 3-5 seeds.
-DEFAULT_METHOD = "t"
 MAX_ELEMENTS = 20_000_000  # resampled values held at once (about 160 MB of floats)
 
 
