@@ -16,12 +16,15 @@ import json
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from fewshot.errors import PoolError
 from fewshot.sampling import hash_ids, repeated_ids
+
+if TYPE_CHECKING:  # pandas is imported where a pool is read, so a command loads it only then
+    import pandas as pd
 
 __all__ = ["Pool", "read_pool", "read_id_list", "file_digest", "POOL_FORMATS"]
 
@@ -68,6 +71,8 @@ class Pool:
 
     def numeric(self, name: str, *, option: str = "--rank-by") -> np.ndarray:
         """A column converted to floats; non-numeric text is an error naming the row."""
+        import pandas as pd
+
         self._require(name, option)
         raw = self.frame[name]
         values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
@@ -157,6 +162,8 @@ def read_pool(path: str | Path, id_column: str = "id") -> Pool:
 
 def _checked_ids(p: Path, fmt: str, raw: pd.Series, id_column: str) -> tuple[str, ...]:
     """The id column as strings, checked with vectorised pandas (the pool may be large)."""
+    import pandas as pd
+
     text = raw if pd.api.types.is_string_dtype(raw) else raw.astype(str)
     text = text.where(raw.notna(), "")
     where = Pool(p, fmt, "", id_column, (), pd.DataFrame())._where
@@ -188,6 +195,8 @@ def _decode(p: Path, data: bytes) -> str:
 
 
 def _parse_csv(p: Path, text: str, body: bytes, id_column: str) -> pd.DataFrame:
+    import pandas as pd
+
     if not text.strip():
         raise PoolError(f"{p}: the file is empty. A pool CSV needs a header and rows.")
     header = next(csv.reader(io.StringIO(text)), [])
@@ -211,6 +220,8 @@ def _parse_csv(p: Path, text: str, body: bytes, id_column: str) -> pd.DataFrame:
 
 
 def _parse_jsonl(p: Path, text: str) -> pd.DataFrame:
+    import pandas as pd
+
     rows: list[dict[str, object]] = []
     for n, line in enumerate(text.splitlines(), 1):
         if not line.strip():
@@ -262,6 +273,8 @@ def _text(value: object) -> str | None:
 
 
 def _parse_parquet(p: Path, data: bytes) -> pd.DataFrame:
+    import pandas as pd
+
     try:
         import pyarrow  # noqa: F401
     except ImportError:

@@ -19,7 +19,6 @@ from fewshot.cli.common import (
     reporting,
     styled,
 )
-from fewshot.ledger.planning import draw_all
 from fewshot.manifest import check_draw_target
 from fewshot.study import Study, load_study
 
@@ -63,6 +62,8 @@ def check(
     ] = TableOrJson.table,
 ) -> None:
     """Validate a study file (and draw its subsets in memory), then print its plan. Touches no ledger."""
+    from fewshot.ledger.planning import draw_all  # loads the ledger's modules only for this command
+
     with reporting():
         study = load_study(study_file)
         draw_all(study)
