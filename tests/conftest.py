@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import csv
 import os
+import time
+from collections.abc import Callable
 from pathlib import Path
 
 import pytest
@@ -12,6 +14,26 @@ STUDIES = Path(__file__).resolve().parent.parent / "studies"
 
 # Tests use leases of a fraction of a second; the tool's floor is 30 s otherwise (DEVELOPERS.md).
 os.environ.setdefault("FEWSHOT_TESTING_MIN_LEASE", "0.1")
+
+
+WaitUntil = Callable[..., None]
+
+
+@pytest.fixture
+def wait_until() -> WaitUntil:
+    """``wait_until(condition, what, timeout=60)``: poll ``condition()`` until it is true, and fail
+    the test naming ``what`` when it never comes. Tests synchronise on conditions this way, never
+    on a fixed sleep, so they pass on a loaded machine."""
+
+    def wait(condition: Callable[[], object], what: str, timeout: float = 60.0) -> None:
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            if condition():
+                return
+            time.sleep(0.02)
+        pytest.fail(f"timed out after {timeout:.0f} s waiting for {what}")
+
+    return wait
 
 
 def write_csv(path: Path, header: list[str], rows: list[list[object]]) -> Path:

@@ -89,12 +89,13 @@ def test_changed_pool_is_refused(planned):
     assert ledger_dump(led._url) == before
 
 
-def test_claims_are_unique_and_leases_expire(planned):
+def test_claims_are_unique_and_leases_expire(planned, wait_until):
     led, _ = planned
     first = led.claim("w1", lease=0.2)
     second = led.claim("w2", lease=60)
     assert first.key != second.key and first.attempt == 1
-    time.sleep(0.3)
+    # leases are stamped with time.time(): wait until this one has passed
+    wait_until(lambda: time.time() > first.lease_expires, "the 0.2 s lease to expire")
     again = led.claim("w3", lease=60)
     assert again.key == first.key and again.attempt == 2  # the expired lease made it claimable
     assert not led.heartbeat(first.key, "w1")  # w1 no longer holds it

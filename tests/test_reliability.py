@@ -70,7 +70,9 @@ def test_eight_workers_claim_once_and_store_once(tmp_path: Path, ledger_url: str
     led.close()
 
 
-def test_a_killed_worker_loses_its_lease_and_the_run_finishes_once(tmp_path: Path, ledger_url: str):
+def test_a_killed_worker_loses_its_lease_and_the_run_finishes_once(
+    tmp_path: Path, ledger_url: str, wait_until
+):
     led = Ledger.open(ledger_url)
     led.plan(load_study(_study(tmp_path, 1)))
     # the victim claims with a short lease, then "trains" for a long time and is killed with SIGKILL
@@ -98,14 +100,14 @@ def test_a_killed_worker_loses_its_lease_and_the_run_finishes_once(tmp_path: Pat
         stderr=subprocess.DEVNULL,
         start_new_session=True,
     )
-    for _ in range(300):
-        if led.counts()["running"] == 1:
-            break
-        time.sleep(0.05)
-    held = led.runs(["running"]).iloc[0]["key"]
+    wait_until(lambda: led.counts()["running"] == 1, "the victim to claim a run", timeout=120)
+    held_run = led.runs(["running"]).iloc[0]
+    held = held_run["key"]
     os.killpg(victim.pid, signal.SIGKILL)  # the worker and its trainer die without a word
     victim.wait()
-    time.sleep(2.5)  # the lease expires
+    # the lease expires (the ledger stamps leases with the same clock, time.time())
+    expiry = float(held_run["lease_expires"])
+    wait_until(lambda: time.time() > expiry, "the victim's lease to expire")
     rescuer = subprocess.run(
         [sys.executable, "-c", WORKER, ledger_url, "rescuer"],
         capture_output=True,
