@@ -18,14 +18,14 @@ _EXPORTS = {
     "InvalidName": "fewshot.errors",
     "ManifestError": "fewshot.errors",
     "PoolError": "fewshot.errors",
-    "Manifest": "fewshot.manifest",
-    "Verification": "fewshot.manifest",
-    "load_manifest": "fewshot.manifest",
-    "pool_matches": "fewshot.manifest",
-    "verify_subset": "fewshot.manifest",
-    "write_draw": "fewshot.manifest",
-    "Pool": "fewshot.pools",
-    "read_pool": "fewshot.pools",
+    "Manifest": "fewshot.sampling.manifest",
+    "Verification": "fewshot.sampling.manifest",
+    "load_manifest": "fewshot.sampling.manifest",
+    "pool_matches": "fewshot.sampling.manifest",
+    "verify_subset": "fewshot.sampling.manifest",
+    "write_draw": "fewshot.sampling.draw_folder",
+    "Pool": "fewshot.sampling.pools",
+    "read_pool": "fewshot.sampling.pools",
     "RULE_VERSION": "fewshot.sampling",
     "HashedIds": "fewshot.sampling",
     "NestedDraw": "fewshot.sampling",
@@ -33,10 +33,10 @@ _EXPORTS = {
     "exclude_ids": "fewshot.sampling",
     "keep_top": "fewshot.sampling",
     "subset_digest": "fewshot.sampling",
-    "DrawSpec": "fewshot.taskdraw",
-    "Lineage": "fewshot.taskdraw",
-    "TaskDraw": "fewshot.taskdraw",
-    "draw_task": "fewshot.taskdraw",
+    "DrawSpec": "fewshot.sampling.task",
+    "Lineage": "fewshot.sampling.task",
+    "TaskDraw": "fewshot.sampling.task",
+    "draw_task": "fewshot.sampling.task",
     "Study": "fewshot.study",
     "Arm": "fewshot.study",
     "Task": "fewshot.study",
@@ -76,15 +76,6 @@ if TYPE_CHECKING:  # for type checkers and editors
         PoolError,
     )
     from fewshot.ledger import Claim, Ledger, LedgerError, ResultRefused, UnknownRun
-    from fewshot.manifest import (
-        Manifest,
-        Verification,
-        load_manifest,
-        pool_matches,
-        verify_subset,
-        write_draw,
-    )
-    from fewshot.pools import Pool, read_pool
     from fewshot.sampling import (
         RULE_VERSION,
         HashedIds,
@@ -94,6 +85,15 @@ if TYPE_CHECKING:  # for type checkers and editors
         keep_top,
         subset_digest,
     )
+    from fewshot.sampling.draw_folder import write_draw
+    from fewshot.sampling.manifest import (
+        Manifest,
+        Verification,
+        load_manifest,
+        pool_matches,
+        verify_subset,
+    )
+    from fewshot.sampling.pools import Pool, read_pool
+    from fewshot.sampling.task import DrawSpec, Lineage, TaskDraw, draw_task
     from fewshot.study import Arm, Study, StudyError, Task, load_study
-    from fewshot.taskdraw import DrawSpec, Lineage, TaskDraw, draw_task
     from fewshot.writer import ResultWriter

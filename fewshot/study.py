@@ -19,7 +19,7 @@ from typing import Any
 from fewshot.errors import FewshotError, InvalidInput
 from fewshot.names import check_name
 from fewshot.ranges import INT64_MAX, MAX_REPLICATES
-from fewshot.taskdraw import DrawSpec
+from fewshot.sampling.task import DrawSpec
 
 __all__ = ["Arm", "Task", "Study", "RunSpec", "StudyError", "load_study", "run_key"]
 
@@ -62,7 +62,7 @@ class Task:
     pool : pathlib.Path
         The pool file (absolute, resolved against the study file).
     id_column, keep_top, rank_by, lowest_first, stratify_by, allocation, reserve, exclude
-        Draw settings (see :class:`fewshot.taskdraw.DrawSpec`).
+        Draw settings (see :class:`fewshot.sampling.task.DrawSpec`).
     floor, expert : float or None
         Reference scores for normalised scores.
     group : str or None

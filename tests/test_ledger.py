@@ -16,8 +16,8 @@ from fewshot.ledger import (
     StudyChangeRefused,
     UnknownRun,
 )
-from fewshot.manifest import load_manifest, verify_subset
 from fewshot.sampling import subset_digest
+from fewshot.sampling.manifest import load_manifest, verify_subset
 from fewshot.study import load_study
 from tests.conftest import STUDY_TOML, ledger_dump, write_study
 

@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from fewshot import PoolError, read_pool
-from fewshot.pools import read_id_list
+from fewshot.sampling.pools import read_id_list
 
 
 def test_csv_ids_stay_text(tmp_path: Path):

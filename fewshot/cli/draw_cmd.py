@@ -20,15 +20,15 @@ from fewshot.cli.common import (
     styled,
 )
 from fewshot.errors import RedrawRefused
-from fewshot.manifest import (
+from fewshot.sampling.draw_folder import write_draw
+from fewshot.sampling.manifest import (
     load_manifest,
     pool_matches,
     subset_path,
     verify_subset,
-    write_draw,
 )
-from fewshot.pools import read_id_list
-from fewshot.taskdraw import DrawSpec, TaskDraw, draw_task
+from fewshot.sampling.pools import read_id_list
+from fewshot.sampling.task import DrawSpec, TaskDraw, draw_task
 
 
 class AllocationChoice(StrEnum):

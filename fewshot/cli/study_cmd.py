@@ -19,7 +19,7 @@ from fewshot.cli.common import (
     reporting,
     styled,
 )
-from fewshot.manifest import check_draw_target
+from fewshot.sampling.draw_folder import check_draw_target
 from fewshot.study import Study, load_study
 
 

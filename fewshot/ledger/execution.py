@@ -41,8 +41,8 @@ from pathlib import Path
 from fewshot.errors import FewshotError, InvalidInput
 from fewshot.ledger.core import Ledger
 from fewshot.ledger.runs import Claim
-from fewshot.pools import read_id_list
 from fewshot.sampling import subset_digest
+from fewshot.sampling.pools import read_id_list
 
 __all__ = [
     "ExecOutcome",

@@ -24,8 +24,8 @@ from sqlalchemy import Connection, delete, insert, select, update
 from fewshot.errors import FewshotError
 from fewshot.ledger.models import FINAL_STEP, ResultRow, ResultValueRow, RunRow, SubsetRow
 from fewshot.ledger.runs import check_attempt, find_run, lock_run
-from fewshot.pools import DuplicateKey, repeated_names, unique_keys
 from fewshot.ranges import INT64_MAX
+from fewshot.sampling.pools import DuplicateKey, repeated_names, unique_keys
 
 __all__ = [
     "ResultLine",

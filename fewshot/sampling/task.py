@@ -7,26 +7,29 @@ draws and their lineage; the ``draw`` command and the ledger both call it.
 from __future__ import annotations
 
 from collections import Counter
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
 from fewshot.errors import DrawError, InvalidInput, PoolError
 from fewshot.names import check_name
-from fewshot.pools import Pool, file_digest, read_id_list, read_pool
-from fewshot.sampling import (
-    MAX_SEED,
-    RULE_VERSION,
-    HashedIds,
-    NestedDraw,
-    draw_nested,
-    exclude_ids,
-    keep_top,
-)
+from fewshot.sampling.nested import HashedIds, NestedDraw, draw_nested
+from fewshot.sampling.pools import Pool, file_digest, read_id_list, read_pool
+from fewshot.sampling.rule import MAX_SEED, RULE_VERSION, exclude_ids, keep_top
 
-__all__ = ["DrawSpec", "Lineage", "TaskDraw", "draw_task"]
+__all__ = ["DrawSpec", "Lineage", "SUBSET_LINEAGE_KEYS", "TaskDraw", "draw_task", "lineage_changes"]
+
+# The keys of a stored lineage (:meth:`Lineage.as_dict`) whose change alters subsets already
+# drawn: the draw folder (manifest) and the ledger (plan) both refuse such a change.
+SUBSET_LINEAGE_KEYS = ("rule", "pool", "exclusions", "filter", "strata", "reserve")
+
+
+def lineage_changes(old: Mapping[str, Any], new: Mapping[str, Any]) -> list[str]:
+    """The :data:`SUBSET_LINEAGE_KEYS` on which two stored lineages differ."""
+    return [k for k in SUBSET_LINEAGE_KEYS if old.get(k) != new.get(k)]
 
 
 @dataclass(frozen=True)

@@ -21,7 +21,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from fewshot.errors import PoolError
-from fewshot.sampling import hash_ids, repeated_ids
+from fewshot.sampling.rule import hash_ids, repeated_ids
 
 if TYPE_CHECKING:  # pandas is imported where a pool is read, so a command loads it only then
     import pandas as pd
