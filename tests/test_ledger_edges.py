@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 from typer.testing import CliRunner
 
-import fewshot.ledger.core as core
+import fewshot.ledger.write_side as write_side
 from fewshot.cli import app
 from fewshot.errors import FewshotError
 from fewshot.ledger import Ledger
@@ -188,7 +188,7 @@ def test_a_known_file_is_skipped_before_it_is_parsed(ready, tmp_path: Path, monk
         def no_parsing(*_a: object, **_k: object):
             raise AssertionError("a file ingested before was parsed again")
 
-        monkeypatch.setattr(core, "parse_result_file", no_parsing)
+        monkeypatch.setattr(write_side, "parse_result_file", no_parsing)
         again = led.ingest_file(path)
     assert again.skipped and again.lines == 1 and again.stored == 0
     assert ledger_dump(ledger) == before

@@ -223,7 +223,7 @@ AttemptOpt = Annotated[
 
 def lease_seconds(text: str) -> float:
     """``--lease`` in seconds: a duration from the lease floor (30 s) to 30 days."""
-    from fewshot.ledger.core import min_lease
+    from fewshot.ledger.runs import min_lease
 
     seconds = duration(text, option="--lease")
     floor = min_lease()

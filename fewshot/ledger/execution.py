@@ -39,7 +39,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from fewshot.errors import FewshotError, InvalidInput
-from fewshot.ledger.core import Ledger
+from fewshot.ledger.ledger import Ledger
 from fewshot.ledger.runs import Claim
 from fewshot.sampling import subset_digest
 from fewshot.sampling.pools import read_id_list
