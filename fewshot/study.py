@@ -19,7 +19,7 @@ from typing import Any
 from fewshot.errors import FewshotError, InvalidInput
 from fewshot.names import check_name
 from fewshot.ranges import INT64_MAX, MAX_REPLICATES
-from fewshot.sampling.task import DrawSpec
+from fewshot.sampling.task import DrawSettings, DrawSpec
 
 __all__ = ["Arm", "Task", "Study", "RunSpec", "StudyError", "load_study", "run_key"]
 
@@ -53,7 +53,7 @@ class Arm:
 
 
 @dataclass(frozen=True)
-class Task:
+class Task(DrawSettings):
     """A held-out target task and how its subsets are drawn.
 
     Attributes
@@ -62,7 +62,7 @@ class Task:
     pool : pathlib.Path
         The pool file (absolute, resolved against the study file).
     id_column, keep_top, rank_by, lowest_first, stratify_by, allocation, reserve, exclude
-        Draw settings (see :class:`fewshot.sampling.task.DrawSpec`).
+        Draw settings, keyword-only (see :class:`fewshot.sampling.task.DrawSettings`).
     floor, expert : float or None
         Reference scores for normalised scores.
     group : str or None
@@ -71,34 +71,13 @@ class Task:
 
     name: str
     pool: Path
-    id_column: str = "id"
-    keep_top: int | None = None
-    rank_by: str | None = None
-    lowest_first: bool = False
-    stratify_by: str | None = None
-    allocation: str = "proportional"
-    reserve: int = 0
-    exclude: Path | None = None
     floor: float | None = None
     expert: float | None = None
     group: str | None = None
 
     def draw_spec(self, sizes: tuple[int, ...], seeds: tuple[int, ...]) -> DrawSpec:
         """The sampler's settings for this task."""
-        return DrawSpec(
-            task=self.name,
-            pool=self.pool,
-            sizes=sizes,
-            seeds=seeds,
-            id_column=self.id_column,
-            keep_top=self.keep_top,
-            rank_by=self.rank_by,
-            lowest_first=self.lowest_first,
-            stratify_by=self.stratify_by,
-            allocation=self.allocation,
-            reserve=self.reserve,
-            exclude=self.exclude,
-        )
+        return DrawSpec(self.name, self.pool, sizes, seeds, **self.draw_settings())
 
 
 @dataclass(frozen=True)
@@ -436,22 +415,6 @@ def _task(doc: dict[str, Any], i: int, base: Path, where: _Where) -> Task:
     _unknown(doc, _TASK, where, "tasks", i)
     g = lambda key, kind, **kw: _get(doc, key, kind, where, "tasks", i, **kw)  # noqa: E731
     name = _named(g("name", "str", required=True), "task name", "name", where, "tasks", i)
-    keep, rank = g("keep_top", "int"), g("rank_by", "str")
-    if (keep is None) != (rank is None):
-        key = "keep_top" if keep is not None else "rank_by"
-        raise where.error(
-            "keep_top and rank_by go together: give both or neither.", key, "tasks", i
-        )
-    if keep is not None and keep < 1:
-        raise where.error(f"must be 1 or more. Got {keep}.", "keep_top", "tasks", i)
-    allocation = g("allocation", "str", default="proportional")
-    if allocation not in ("proportional", "equal"):
-        raise where.error(
-            f"must be 'proportional' or 'equal'. Got {allocation!r}.", "allocation", "tasks", i
-        )
-    reserve = g("reserve", "int", default=0)
-    if reserve < 0:
-        raise where.error(f"must be 0 or more. Got {reserve}.", "reserve", "tasks", i)
     group = g("group", "str")
     if group is not None:
         group = _named(group, "group name", "group", where, "tasks", i)
@@ -461,18 +424,22 @@ def _task(doc: dict[str, Any], i: int, base: Path, where: _Where) -> Task:
             "floor and expert must differ (they scale normalised scores).", "expert", "tasks", i
         )
     exclude = g("exclude", "str")
-    return Task(
+    task = Task(
         name=name,
         pool=(base / g("pool", "str", required=True)),
         id_column=g("id_column", "str", default="id"),
-        keep_top=keep,
-        rank_by=rank,
+        keep_top=g("keep_top", "int"),
+        rank_by=g("rank_by", "str"),
         lowest_first=g("lowest_first", "bool", default=False),
         stratify_by=g("stratify_by", "str"),
-        allocation=allocation,
-        reserve=reserve,
+        allocation=g("allocation", "str", default="proportional"),
+        reserve=g("reserve", "int", default=0),
         exclude=(base / exclude) if exclude else None,
         floor=None if floor is None else float(floor),
         expert=None if expert is None else float(expert),
         group=group,
     )
+    problem = task.settings_problem()  # the draw rules, checked as `fewshot draw` checks them
+    if problem is not None:
+        raise where.error(problem[1], problem[0], "tasks", i)
+    return task

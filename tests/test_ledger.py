@@ -279,7 +279,7 @@ def test_several_studies_need_a_choice(tmp_path: Path, ledger_url: str):
     led.plan(load_study(write_study(b, other_text)))
     led.close()
     with pytest.raises(
-        LedgerError, match=r"several studies \(mini, other\); pick one with --study"
+        LedgerError, match=r"several studies \(mini, other\); pick one with `study`"
     ):
         Ledger.open(ledger_url).claim("w")
     other = Ledger.open(ledger_url, study="other")

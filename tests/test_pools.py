@@ -84,7 +84,7 @@ def test_non_numeric_rank_column_names_the_line(tmp_path: Path):
     p.write_text("id,r\na,1\nb,high\nc,3\n", encoding="utf-8")
     with pytest.raises(PoolError, match=r"line 3 holds 'high'"):
         read_pool(p).numeric("r")
-    with pytest.raises(PoolError, match=r"no column 'q' \(--rank-by\). Columns found: id, r"):
+    with pytest.raises(PoolError, match=r"no column 'q' \(rank_by\). Columns found: id, r"):
         read_pool(p).numeric("q")
 
 

@@ -30,6 +30,16 @@ from fewshot.sampling.manifest import (
 from fewshot.sampling.pools import read_id_list
 from fewshot.sampling.task import DrawSpec, TaskDraw, draw_task
 
+# The library's parameter names that `fewshot draw` spells as flags, for its messages.
+DRAW_FLAGS = {
+    "id_column": "--id-column",
+    "keep_top": "--keep-top",
+    "rank_by": "--rank-by",
+    "lowest_first": "--lowest-first",
+    "stratify_by": "--stratify-by",
+    "allocation": "--allocation",
+}
+
 
 class AllocationChoice(StrEnum):
     proportional = "proportional"
@@ -90,7 +100,7 @@ def draw(
     ),
 ) -> None:
     """Draw nested subsets of a pool for every seed and write a manifest and id files."""
-    with reporting():
+    with reporting(DRAW_FLAGS):
         spec = DrawSpec(
             task=task,
             pool=pool,

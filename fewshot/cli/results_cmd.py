@@ -95,7 +95,7 @@ def record(
     """Record results of a run: all of them or none."""
     from fewshot.ledger.results import check_line
 
-    with reporting():
+    with reporting({"replace": "--replace"}):
         pairs = _pairs(results)
         if values is not None and len(pairs) != 1:
             raise InvalidInput(
@@ -134,7 +134,7 @@ def ingest(
     from fewshot.ledger.execution import attempt_of_file
     from fewshot.ledger.write_side import expand_result_paths
 
-    with reporting():
+    with reporting({"replace": "--replace"}):
         files = expand_result_paths(paths)
         led = open_ledger(ledger, study)
         reports = []

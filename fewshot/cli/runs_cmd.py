@@ -94,7 +94,9 @@ def exec_runs(
     """Claim runs and run COMMAND for each with FEWSHOT_* set; mark each done or failed by its exit status."""
     from fewshot.ledger.execution import run_claims
 
-    with reporting():
+    with reporting(
+        {"max_runs": "--max-runs", "results_dir": "--results", "command": "the command after --"}
+    ):
         seconds = lease_seconds(lease)
         led = open_ledger(ledger, study)
         try:

@@ -60,13 +60,13 @@ class LedgerConnection:
         path = sqlite_path(resolved)
         if not create and path is not None and not path.exists():
             raise LedgerError(
-                f"no ledger at {path}. Run `fewshot init STUDY.toml` there first, or point --ledger "
+                f"no ledger at {path}. Run `fewshot init STUDY.toml` there first, or point `url` "
                 "(or FEWSHOT_LEDGER) at the study's ledger."
             )
         if not create and path is not None and path.is_file() and path.stat().st_size == 0:
             raise LedgerError(
                 f"{path} is an empty file, not a ledger; it was left as it is. Run `fewshot init "
-                "STUDY.toml --ledger PATH` to make a ledger, or point --ledger at the study's ledger."
+                "STUDY.toml --ledger PATH` to make a ledger, or point `url` at the study's ledger."
             )
         if path is not None:
             check_ledger_file(path)
@@ -142,18 +142,18 @@ class LedgerConnection:
                 known = ", ".join(sorted(names)) or "none yet"
                 raise LedgerError(
                     f"the ledger {self.url} has no study {self._study_name!r} (studies: {known}). "
-                    "Check --study, or run `fewshot init STUDY.toml`."
+                    "Check `study`, or run `fewshot init STUDY.toml`."
                 )
             return names[self._study_name], self._study_name
         if not names:
             raise LedgerError(
                 f"the ledger {self.url} holds no study yet. Run `fewshot init STUDY.toml` first "
-                "(or point --ledger / FEWSHOT_LEDGER at the study's ledger)."
+                "(or point `url` / FEWSHOT_LEDGER at the study's ledger)."
             )
         if len(names) > 1:
             raise LedgerError(
                 f"the ledger {self.url} holds several studies ({', '.join(sorted(names))}); "
-                "pick one with --study NAME."
+                "pick one with `study`."
             )
         name = next(iter(names))
         return names[name], name

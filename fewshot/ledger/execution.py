@@ -163,9 +163,7 @@ def run_environment(
 
 def _check_command(command: Sequence[str]) -> None:
     if not command:
-        raise InvalidInput(
-            "exec needs a command after '--', e.g. fewshot exec --worker w1 -- python train.py"
-        )
+        raise InvalidInput("`command` must name the trainer to run, e.g. ['python', 'train.py'].")
     exe = command[0]
     if os.sep not in exe and shutil.which(exe) is None:
         raise InvalidInput(
@@ -191,7 +189,7 @@ def run_claims(
     or ``max_runs`` have run."""
     _check_command(command)
     if max_runs is not None and max_runs < 1:
-        raise InvalidInput(f"--max-runs must be 1 or more. Got {max_runs}.")
+        raise InvalidInput(f"`max_runs` must be 1 or more. Got {max_runs}.")
     if results_dir is not None:
         _make_results_dir(results_dir)
     study = ledger.study
@@ -350,13 +348,15 @@ def _run_one(
 
 def _make_results_dir(folder: Path) -> None:
     if folder.exists() and not folder.is_dir():
-        raise InvalidInput(f"--results {folder} is a file, not a folder. Give a folder.")
+        raise InvalidInput(f"`results_dir` {folder} is a file, not a folder. Give a folder.")
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise InvalidInput(
-            f"--results {folder}: cannot create the folder ({exc.strerror}). Pick a folder you "
+            f"`results_dir` {folder}: cannot create the folder ({exc.strerror}). Pick a folder you "
             "may write."
         ) from None
     if not os.access(folder, os.W_OK | os.X_OK):
-        raise InvalidInput(f"--results {folder}: you may not write in this folder. Pick another.")
+        raise InvalidInput(
+            f"`results_dir` {folder}: you may not write in this folder. Pick another."
+        )

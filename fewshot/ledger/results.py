@@ -167,7 +167,7 @@ def store_results(
             else:
                 raise ResultRefused(
                     f"{ln.at}run {ln.run!r} already has {ln.metric!r} = {old_value!r} at step "
-                    f"{_step(ln.step)}; refusing {ln.value!r}. Pass replace=True (--replace) to overwrite it."
+                    f"{_step(ln.step)}; refusing {ln.value!r}. Pass `replace` to overwrite it."
                 )
             continue
         if stale:

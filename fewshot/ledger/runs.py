@@ -116,7 +116,7 @@ def find_run(conn: Connection, sid: int, key: str, study_name: str) -> Row[Any]:
     if other is not None:
         raise UnknownRun(
             f"run {key!r} belongs to another study in this ledger, not to {study_name!r}. "
-            "Pick its study with --study."
+            "Pick its study with `study`."
         )
     keys = list(conn.execute(select(RunRow.key).where(RunRow.study_id == sid)).scalars())
     near = difflib.get_close_matches(key, keys, n=1, cutoff=0.6)

@@ -69,7 +69,7 @@ class Pool:
         self._require(name, option)
         return [("" if v is None else str(v)) for v in self.frame[name].tolist()]
 
-    def numeric(self, name: str, *, option: str = "--rank-by") -> np.ndarray:
+    def numeric(self, name: str, *, option: str = "rank_by") -> np.ndarray:
         """A column converted to floats; non-numeric text is an error naming the row."""
         import pandas as pd
 
@@ -146,7 +146,7 @@ def read_pool(path: str | Path, id_column: str = "id") -> Pool:
     if id_column not in frame.columns:
         raise PoolError(
             f"{p}: no id column {id_column!r}. Columns found: "
-            f"{', '.join(map(str, frame.columns))}. Name the id column with --id-column."
+            f"{', '.join(map(str, frame.columns))}. Name the id column with `id_column`."
         )
     ids = _checked_ids(p, fmt, frame[id_column], id_column)
     hashes = hash_ids(ids)
