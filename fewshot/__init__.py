@@ -33,6 +33,7 @@ _EXPORTS = {
     "exclude_ids": "fewshot.sampling",
     "keep_top": "fewshot.sampling",
     "subset_digest": "fewshot.sampling",
+    "DrawSettings": "fewshot.sampling.task",
     "DrawSpec": "fewshot.sampling.task",
     "Lineage": "fewshot.sampling.task",
     "TaskDraw": "fewshot.sampling.task",
@@ -42,6 +43,9 @@ _EXPORTS = {
     "Task": "fewshot.study",
     "StudyError": "fewshot.study",
     "load_study": "fewshot.study",
+    "check_study": "fewshot.study",
+    "PlanCounts": "fewshot.study",
+    "RESULT_COLUMNS": "fewshot.schema",
     "Ledger": "fewshot.ledger",
     "Claim": "fewshot.ledger",
     "LedgerError": "fewshot.ledger",
@@ -94,6 +98,7 @@ if TYPE_CHECKING:  # for type checkers and editors
         verify_subset,
     )
     from fewshot.sampling.pools import Pool, read_pool
-    from fewshot.sampling.task import DrawSpec, Lineage, TaskDraw, draw_task
-    from fewshot.study import Arm, Study, StudyError, Task, load_study
+    from fewshot.sampling.task import DrawSettings, DrawSpec, Lineage, TaskDraw, draw_task
+    from fewshot.schema import RESULT_COLUMNS
+    from fewshot.study import Arm, PlanCounts, Study, StudyError, Task, check_study, load_study
     from fewshot.writer import ResultWriter

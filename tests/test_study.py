@@ -117,3 +117,19 @@ def test_missing_and_non_utf8_study_files(tmp_path: Path):
     empty.write_text("")
     with pytest.raises(StudyError, match="needs a 'name' key"):
         load_study(empty)
+
+
+def test_plan_counts_match_the_runs(tmp_path: Path):
+    # counted by hand from the study: wide (zero-shot) 4 sizes, scratch 3 sizes; 3 seeds each
+    from fewshot import check_study
+
+    study = check_study(write_study(tmp_path))
+    plan = study.plan_counts()
+    assert plan.sizes == (0, 1, 3, 10)
+    assert plan.cells == {("wide", "reach"): (3, 3, 3, 3), ("scratch", "reach"): (0, 3, 3, 3)}
+    assert plan.total == 21 == len(list(study.runs())) and not plan.few_seeds
+    assert study.plan_dict()["runs"] == 21
+    two = load_study(
+        write_study(tmp_path, STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1]"))
+    )
+    assert two.plan_counts().few_seeds  # fewer than 3 seeds: the check says so

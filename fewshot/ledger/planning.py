@@ -17,10 +17,10 @@ from fewshot.errors import FewshotError
 from fewshot.ledger.models import ArmRow, DrawRow, RunRow, StudyRow, SubsetRow, TaskRow
 from fewshot.sampling.draw_folder import write_draw
 from fewshot.sampling.manifest import subset_path
-from fewshot.sampling.task import TaskDraw, draw_task, lineage_changes
+from fewshot.sampling.task import TaskDraw, lineage_changes
 from fewshot.study import Study
 
-__all__ = ["PlanReport", "StudyChangeRefused", "draw_all", "plan_study"]
+__all__ = ["PlanReport", "StudyChangeRefused", "plan_study"]
 
 
 class StudyChangeRefused(FewshotError, ValueError):
@@ -49,11 +49,6 @@ class PlanReport:
     new_tasks: tuple[str, ...]
     new_sizes: tuple[int, ...]
     new_seeds: tuple[int, ...]
-
-
-def draw_all(study: Study) -> dict[str, TaskDraw]:
-    """Draw every task of the study in memory (this is where pool and size errors surface)."""
-    return {t.name: draw_task(t.draw_spec(study.sizes, study.seeds)) for t in study.tasks}
 
 
 def _spec_json(study: Study) -> str:

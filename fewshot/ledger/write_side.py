@@ -14,7 +14,7 @@ from fewshot.ledger import draws_undo
 from fewshot.ledger.connection import LedgerConnection
 from fewshot.ledger.engine import LedgerError
 from fewshot.ledger.models import IngestedFileRow
-from fewshot.ledger.planning import PlanReport, draw_all, plan_study
+from fewshot.ledger.planning import PlanReport, plan_study
 from fewshot.ledger.results import (
     ResultFileError,
     ResultLine,
@@ -35,7 +35,7 @@ from fewshot.ledger.runs import (
     release_run,
     settle_run,
 )
-from fewshot.study import Study
+from fewshot.study import Study, draw_study
 
 __all__ = ["IngestReport", "LedgerWrites", "expand_result_paths"]
 
@@ -72,7 +72,7 @@ class LedgerWrites(LedgerConnection):
 
     def plan(self, study: Study) -> PlanReport:
         """Draw every task's subsets and plan every run of ``study`` not yet planned."""
-        draws = draw_all(study)
+        draws = draw_study(study)
         before = draws_undo.snapshot(study.draws_dir, [t.name for t in study.tasks])
         try:
             report = self._tx(lambda c: plan_study(c, study, draws))

@@ -1,4 +1,5 @@
-"""Study files: parse and validate a study TOML into frozen dataclasses, and expand its runs.
+"""Study files: parse and validate a study TOML into the frozen dataclasses of
+:mod:`fewshot.study.model`.
 
 Every error names the file, the key and, where it can be found, the line. Unknown
 keys are refused with the nearest known key as a suggestion. Paths in a study
@@ -11,154 +12,17 @@ import difflib
 import math
 import re
 import tomllib
-from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass, field
+from collections.abc import Mapping, Sequence
+from dataclasses import fields
 from pathlib import Path
 from typing import Any
 
-from fewshot.errors import FewshotError, InvalidInput
+from fewshot.errors import InvalidInput
 from fewshot.names import check_name
 from fewshot.ranges import INT64_MAX, MAX_REPLICATES
-from fewshot.sampling.task import DrawSettings, DrawSpec
+from fewshot.study.model import Arm, Study, StudyError, Task
 
-__all__ = ["Arm", "Task", "Study", "RunSpec", "StudyError", "load_study", "run_key"]
-
-
-class StudyError(FewshotError, ValueError):
-    """A study file is malformed or breaks a rule."""
-
-
-@dataclass(frozen=True)
-class Arm:
-    """One condition of the study.
-
-    Attributes
-    ----------
-    name : str
-    role : str
-        ``"pretrained"`` or ``"baseline"``.
-    checkpoint : str or None
-        Where the arm's starting weights are (free text for the trainer).
-    zero_shot : bool
-        Whether size 0 (no fine-tuning) is planned for this arm.
-    attributes : mapping of str to float
-        Free numbers, e.g. a parameter count for a scaling view.
-    """
-
-    name: str
-    role: str
-    checkpoint: str | None = None
-    zero_shot: bool = False
-    attributes: Mapping[str, float] = field(default_factory=dict)
-
-
-@dataclass(frozen=True)
-class Task(DrawSettings):
-    """A held-out target task and how its subsets are drawn.
-
-    Attributes
-    ----------
-    name : str
-    pool : pathlib.Path
-        The pool file (absolute, resolved against the study file).
-    id_column, keep_top, rank_by, lowest_first, stratify_by, allocation, reserve, exclude
-        Draw settings, keyword-only (see :class:`fewshot.sampling.task.DrawSettings`).
-    floor, expert : float or None
-        Reference scores for normalised scores.
-    group : str or None
-        Task group for aggregates.
-    """
-
-    name: str
-    pool: Path
-    floor: float | None = None
-    expert: float | None = None
-    group: str | None = None
-
-    def draw_spec(self, sizes: tuple[int, ...], seeds: tuple[int, ...]) -> DrawSpec:
-        """The sampler's settings for this task."""
-        return DrawSpec(self.name, self.pool, sizes, seeds, **self.draw_settings())
-
-
-@dataclass(frozen=True)
-class RunSpec:
-    """One planned fine-tuning run: (arm, task, size, seed, replicate).
-
-    Attributes
-    ----------
-    key : str
-        ``arm/task/n<size>/s<seed>`` (``/r<replicate>`` when the study has replicates).
-    """
-
-    key: str
-    arm: str
-    task: str
-    size: int
-    seed: int
-    replicate: int
-
-
-def run_key(arm: str, task: str, size: int, seed: int, replicate: int, replicates: int) -> str:
-    """The run key of DESIGN.md: ``arm/task/n<size>/s<seed>[/r<replicate>]``."""
-    key = f"{arm}/{task}/n{size}/s{seed}"
-    return f"{key}/r{replicate}" if replicates > 1 else key
-
-
-@dataclass(frozen=True)
-class Study:
-    """A parsed study file.
-
-    Attributes
-    ----------
-    name, metric, higher_is_better, sizes, seeds, replicates, baseline
-        As in the file; sizes and seeds are sorted.
-    arms, tasks : tuple
-    path : pathlib.Path
-        The study file.
-    draws_dir : pathlib.Path
-        Where subset id files are written (``draws/<study>`` beside the file by default).
-    """
-
-    name: str
-    metric: str
-    higher_is_better: bool
-    sizes: tuple[int, ...]
-    seeds: tuple[int, ...]
-    replicates: int
-    baseline: str
-    arms: tuple[Arm, ...]
-    tasks: tuple[Task, ...]
-    path: Path
-    draws_dir: Path
-
-    def arm(self, name: str) -> Arm:
-        """The arm called ``name``."""
-        return next(a for a in self.arms if a.name == name)
-
-    def task(self, name: str) -> Task:
-        """The task called ``name``."""
-        return next(t for t in self.tasks if t.name == name)
-
-    def runs(self) -> Iterator[RunSpec]:
-        """Every planned run: arms × tasks × sizes × seeds × replicates (size 0 only for zero-shot arms)."""
-        for arm in self.arms:
-            for task in self.tasks:
-                for size in self.sizes:
-                    if size == 0 and not arm.zero_shot:
-                        continue
-                    for seed in self.seeds:
-                        for r in range(self.replicates):
-                            yield RunSpec(
-                                run_key(arm.name, task.name, size, seed, r, self.replicates),
-                                arm.name,
-                                task.name,
-                                size,
-                                seed,
-                                r,
-                            )
-
-
-# --------------------------------------------------------------------------- parsing
+__all__ = ["load_study"]
 
 _TOP = {
     "name",
@@ -173,22 +37,8 @@ _TOP = {
     "draws_dir",
     "description",
 }
-_ARM = {"name", "role", "checkpoint", "zero_shot", "attributes"}
-_TASK = {
-    "name",
-    "pool",
-    "id_column",
-    "keep_top",
-    "rank_by",
-    "lowest_first",
-    "stratify_by",
-    "allocation",
-    "reserve",
-    "exclude",
-    "floor",
-    "expert",
-    "group",
-}
+_ARM = {f.name for f in fields(Arm)}
+_TASK = {f.name for f in fields(Task)}  # the task's own keys and its draw settings
 
 
 class _Where:
