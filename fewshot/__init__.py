@@ -52,6 +52,9 @@ _EXPORTS = {
     "ResultRefused": "fewshot.ledger",
     "UnknownRun": "fewshot.ledger",
     "ResultWriter": "fewshot.writer",
+    "RUN_FIELDS": "fewshot.worker",
+    "job_lines": "fewshot.worker",
+    "run_claims": "fewshot.worker",
 }
 
 __all__ = ["__version__", *sorted(_EXPORTS)]
@@ -101,4 +104,5 @@ if TYPE_CHECKING:  # for type checkers and editors
     from fewshot.sampling.task import DrawSettings, DrawSpec, Lineage, TaskDraw, draw_task
     from fewshot.schema import RESULT_COLUMNS
     from fewshot.study import Arm, PlanCounts, Study, StudyError, Task, check_study, load_study
+    from fewshot.worker import RUN_FIELDS, job_lines, run_claims
     from fewshot.writer import ResultWriter

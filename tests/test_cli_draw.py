@@ -280,3 +280,10 @@ def test_library_parameters_become_the_commands_flags():
     assert as_flags("`max_runs` must be 1", {"max_runs": "--max-runs"}) == "--max-runs must be 1"
     # a flag already spelled, part of a longer word, or a name not mapped stays as it is
     assert as_flags("--keep-top 5 and keep_tops, rank", flags) == "--keep-top 5 and keep_tops, rank"
+
+
+def test_backticked_parameters_leave_the_prose_alone():
+    from fewshot.cli.common import as_flags
+
+    msg = "`template` is not a valid template (x)."
+    assert as_flags(msg, {"template": "--template"}) == "--template is not a valid template (x)."

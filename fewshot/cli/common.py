@@ -42,13 +42,15 @@ def as_flags(message: str, flags: Mapping[str, str]) -> str:
     """``message`` with library parameter names replaced by the command's flags.
 
     The library's messages name parameters, in backticks (```max_runs``` must be ...) or, for the
-    draw settings, bare (``keep_top and rank_by go together``); a command says which of its flags
-    stand for which parameter (``flags``), and its user reads the flags. Backticked ``url`` and
+    draw settings, bare (``keep_top and rank_by go together``, in a message without backticks);
+    a command says which of its flags stand for which parameter (``flags``), and its user reads
+    the flags. Backticked ``url`` and
     ``study`` are the ledger's ``--ledger`` and ``--study`` in every command.
     """
-    every = {**LEDGER_FLAGS, **flags}
-    backticked = re.compile(r"`(" + "|".join(map(re.escape, every)) + r")`")
-    message = backticked.sub(lambda m: every[m.group(1)], message)
+    if "`" in message:  # parameters in backticks: only those are names
+        every = {**LEDGER_FLAGS, **flags}
+        backticked = re.compile(r"`(" + "|".join(map(re.escape, every)) + r")`")
+        return backticked.sub(lambda m: every[m.group(1)], message)
     if not flags:
         return message
     names = sorted(flags, key=len, reverse=True)

@@ -131,8 +131,8 @@ def ingest(
     study: StudyOpt = None,
 ) -> None:
     """Ingest results files, one transaction each; a file ingested before is skipped."""
-    from fewshot.ledger.execution import attempt_of_file
     from fewshot.ledger.write_side import expand_result_paths
+    from fewshot.worker.loop import attempt_of_file
 
     with reporting({"replace": "--replace"}):
         files = expand_result_paths(paths)

@@ -43,6 +43,7 @@ from fewshot.ledger.ledger import Ledger
 from fewshot.ledger.runs import Claim
 from fewshot.sampling import subset_digest
 from fewshot.sampling.pools import read_id_list
+from fewshot.worker.fields import run_environment
 
 __all__ = [
     "ExecOutcome",
@@ -137,28 +138,6 @@ def attempt_of_file(path: Path) -> int | None:
     """The attempt a results file of the work loop names (``*.attempt2.jsonl``), or None."""
     m = _ATTEMPT_FILE.search(path.name)
     return None if m is None else int(m.group(1)) or None
-
-
-def run_environment(
-    claim: Claim, ledger_url: str, study: str, results: Path | None
-) -> dict[str, str]:
-    """The ``FEWSHOT_*`` variables a trainer sees."""
-    env = {
-        "FEWSHOT_RUN": claim.key,
-        "FEWSHOT_LEDGER": ledger_url,
-        "FEWSHOT_STUDY": study,
-        "FEWSHOT_ARM": claim.arm,
-        "FEWSHOT_TASK": claim.task,
-        "FEWSHOT_SIZE": str(claim.size),
-        "FEWSHOT_SEED": str(claim.seed),
-        "FEWSHOT_REPLICATE": str(claim.replicate),
-        "FEWSHOT_SUBSET": claim.subset_file,
-        "FEWSHOT_SUBSET_DIGEST": claim.subset_digest,
-        "FEWSHOT_ATTEMPT": str(claim.attempt),
-    }
-    if results is not None:
-        env["FEWSHOT_RESULTS"] = str(results)
-    return env
 
 
 def _check_command(command: Sequence[str]) -> None:
