@@ -13,6 +13,7 @@ import hashlib
 import io
 import json
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -26,6 +27,8 @@ __all__ = [
     "ResultLine",
     "ResultRefused",
     "ResultFileError",
+    "attempt_of_file",
+    "results_file_for",
     "check_line",
     "file_digest_bytes",
     "parse_result_file",
@@ -271,3 +274,22 @@ def _num(text: str | None) -> float:
 def file_digest_bytes(data: bytes) -> str:
     """SHA-256 hex of a results file's content (what makes a re-ingest a no-op)."""
     return hashlib.sha256(data).hexdigest()
+
+
+# --------------------------------------------------------------------------- file names
+
+
+def results_file_for(folder: Path, key: str, attempt: int) -> Path:
+    """Where an attempt's results file goes under ``folder``: slashes of the run key become
+    ``__`` and the attempt is named (``arm__task__n10__s0.attempt2.jsonl``), so that two
+    attempts of a run never append to one file."""
+    return folder / f"{key.replace('/', '__')}.attempt{attempt}.jsonl"
+
+
+_ATTEMPT_FILE = re.compile(r"\.attempt([0-9]{1,18})\.(?:jsonl|csv)$", re.IGNORECASE)
+
+
+def attempt_of_file(path: Path) -> int | None:
+    """The attempt a results file of the work loop names (``*.attempt2.jsonl``), or None."""
+    m = _ATTEMPT_FILE.search(path.name)
+    return None if m is None else int(m.group(1)) or None

@@ -198,7 +198,9 @@ def test_ingest_jsonl_and_csv_idempotent(planned, tmp_path: Path):
         "run,metric,value,step,values\n"
         + "".join(f'{k},success,0.5,,"[0.0, 1.0]"\n' for k in keys[10:15])
     )
-    reports = led.ingest([tmp_path])
+    seen = []
+    reports = led.ingest([tmp_path], progress=lambda done, total, r: seen.append((done, total)))
+    assert seen == [(1, 2), (2, 2)]  # the progress callback sees every file, in order
     assert [(Path(r.path).name, r.stored, r.skipped) for r in reports] == [
         ("a.jsonl", 10, False),
         ("b.csv", 5, False),

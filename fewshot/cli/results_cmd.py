@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import math
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 from rich.table import Table
@@ -26,6 +26,9 @@ from fewshot.cli.common import (
     reporting,
 )
 from fewshot.errors import InvalidInput
+
+if TYPE_CHECKING:
+    from fewshot.ledger import IngestReport
 from fewshot.files import write_text_atomic
 
 
@@ -132,23 +135,25 @@ def ingest(
 ) -> None:
     """Ingest results files, one transaction each; a file ingested before is skipped."""
     from fewshot.ledger.write_side import expand_result_paths
-    from fewshot.worker.loop import attempt_of_file
 
     with reporting({"replace": "--replace"}):
         files = expand_result_paths(paths)
+        total = len(files)
         led = open_ledger(ledger, study)
         reports = []
+
         with progress() as bar:
-            job = bar.add_task("ingesting", total=len(files))
+            job = bar.add_task("ingesting", total=total)
+
+            def advance(done: int, _total: int, report: IngestReport) -> None:
+                reports.append(report)
+                bar.advance(job)
+
             try:
-                for f in files:
-                    # a work loop's results file names its attempt (run.attempt2.jsonl)
-                    which = attempt_of_file(f)
-                    reports.append(led.ingest_file(f, replace=replace, attempt=which))
-                    bar.advance(job)
+                led.ingest(files, replace=replace, progress=advance)
             finally:
                 led.close()
-                if reports and len(reports) < len(files):
+                if reports and len(reports) < total:
                     err.print(f"{len(reports)} file(s) before the refused one were ingested")
     stored = sum(r.stored for r in reports)
     skipped = sum(1 for r in reports if r.skipped)

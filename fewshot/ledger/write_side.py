@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import errno
 import time
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -35,6 +35,7 @@ from fewshot.ledger.runs import (
     release_run,
     settle_run,
 )
+from fewshot.results_format import attempt_of_file
 from fewshot.study import Study, draw_study
 
 __all__ = ["IngestReport", "LedgerWrites", "expand_result_paths"]
@@ -224,13 +225,28 @@ class LedgerWrites(LedgerConnection):
 
         return self._tx(go)
 
-    def ingest(self, paths: Iterable[str | Path], *, replace: bool = False) -> list[IngestReport]:
+    def ingest(
+        self,
+        paths: Iterable[str | Path],
+        *,
+        replace: bool = False,
+        progress: Callable[[int, int, IngestReport], None] | None = None,
+    ) -> list[IngestReport]:
         """Ingest JSONL or CSV results files (or folders of them), one transaction a file.
 
         A file whose content was ingested before is skipped, so re-running an ingest after a
-        crash never doubles a result.
+        crash never doubles a result. A work loop's results file names its attempt
+        (``run.attempt2.jsonl``), and its results count only while that attempt is current.
+        ``progress(done, total, report)`` is called after each file. A refused file raises;
+        the files before it stay ingested (``progress`` has seen them).
         """
-        return [self.ingest_file(p, replace=replace) for p in expand_result_paths(paths)]
+        files = expand_result_paths(paths)
+        reports: list[IngestReport] = []
+        for f in files:
+            reports.append(self.ingest_file(f, replace=replace, attempt=attempt_of_file(f)))
+            if progress is not None:
+                progress(len(reports), len(files), reports[-1])
+        return reports
 
     def ingest_file(
         self,

@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import collections
 import os
-import re
 import shutil
 import signal
 import subprocess
@@ -41,6 +40,7 @@ from pathlib import Path
 from fewshot.errors import FewshotError, InvalidInput
 from fewshot.ledger.ledger import Ledger
 from fewshot.ledger.runs import Claim
+from fewshot.results_format import attempt_of_file, results_file_for
 from fewshot.sampling import subset_digest
 from fewshot.sampling.pools import read_id_list
 from fewshot.worker.fields import run_environment
@@ -122,22 +122,6 @@ class ExecOutcome:
     returncode: int
     seconds: float
     ingested: int
-
-
-def results_file_for(folder: Path, key: str, attempt: int) -> Path:
-    """Where an attempt's results file goes under ``folder``: slashes of the run key become
-    ``__`` and the attempt is named (``arm__task__n10__s0.attempt2.jsonl``), so that two
-    attempts of a run never append to one file."""
-    return folder / f"{key.replace('/', '__')}.attempt{attempt}.jsonl"
-
-
-_ATTEMPT_FILE = re.compile(r"\.attempt([0-9]{1,18})\.(?:jsonl|csv)$", re.IGNORECASE)
-
-
-def attempt_of_file(path: Path) -> int | None:
-    """The attempt a results file of the work loop names (``*.attempt2.jsonl``), or None."""
-    m = _ATTEMPT_FILE.search(path.name)
-    return None if m is None else int(m.group(1)) or None
 
 
 def _check_command(command: Sequence[str]) -> None:
