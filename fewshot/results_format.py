@@ -19,6 +19,7 @@ from pathlib import Path
 from typing import Any
 
 from fewshot.errors import FewshotError
+from fewshot.files import decode_utf8
 from fewshot.ranges import INT64_MAX
 from fewshot.sampling.pools import DuplicateKey, repeated_names, unique_keys
 
@@ -160,15 +161,7 @@ def check_line(
 
 def parse_result_file(path: Path, data: bytes) -> list[ResultLine]:
     """Parse a JSONL or CSV results file; any bad line refuses the whole file, naming the line."""
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = data[: exc.start].count(b"\n") + 1
-        raise ResultFileError(
-            f"{path}, line {line}: not valid UTF-8. Write results as UTF-8."
-        ) from None
-    if text.startswith("\ufeff"):
-        text = text[1:]
+    text = decode_utf8(data, path, what="results file", error=ResultFileError)
     if path.suffix.lower() == ".csv":
         return _parse_csv(path, text)
     return _parse_jsonl(path, text)

@@ -180,7 +180,7 @@ def test_bad_draws_exit_2_with_a_message_and_write_nothing(tmp_path: Path, extra
         (b"id,score\ni1,1\n,2\n", "empty id"),
         (b"", "the file is empty"),
         (b"id,score\n", "no episodes"),
-        (b"id,score\ni\xe91,1\n", "line 2 is not valid UTF-8"),
+        (b"id,score\ni\xe91,1\n", "line 2: not valid UTF-8"),
     ],
 )
 def test_bad_pool_files_exit_2(tmp_path: Path, content, fragment):

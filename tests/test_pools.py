@@ -58,7 +58,7 @@ def test_utf8_bom_is_ignored(tmp_path: Path):
         ("p.csv", b"id,r\na,1\n,2\n", {}, "empty id in column 'id', first at line 3"),
         ("p.csv", b"", {}, "the file is empty"),
         ("p.csv", b"id,r\n", {}, "no episodes"),
-        ("p.csv", b"id,r\na,1\n\xff\xfe,2\n", {}, "line 3 is not valid UTF-8"),
+        ("p.csv", b"id,r\na,1\n\xff\xfe,2\n", {}, "line 3: not valid UTF-8"),
         ("p.jsonl", b'{"id": "a"}\n{"id": "b"\n', {}, "line 2 is not valid JSON"),
         ("p.jsonl", b'{"id": "a"}\n[1, 2]\n', {}, "line 2 must be a JSON object"),
         ("p.jsonl", b'{"id": "a"}\n{"r": 1}\n', {}, "empty id"),

@@ -29,7 +29,7 @@ from fewshot.errors import InvalidInput
 
 if TYPE_CHECKING:
     from fewshot.ledger import IngestReport
-from fewshot.files import write_text_atomic
+from fewshot.files import read_text, write_text_atomic
 
 
 def _pairs(items: list[str]) -> list[tuple[str, float]]:
@@ -51,10 +51,7 @@ def _pairs(items: list[str]) -> list[tuple[str, float]]:
 
 
 def _values_file(path: Path) -> list[float]:
-    try:
-        text = path.read_text(encoding="utf-8").strip()
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InvalidInput(f"{path}: cannot read the values file ({exc}).") from None
+    text = read_text(path, what="values file").strip()
     try:
         raw = json.loads(text) if text.startswith("[") else [float(x) for x in text.split()]
         values = [float(x) for x in raw]

@@ -18,6 +18,7 @@ from typing import Any
 
 from fewshot import __version__
 from fewshot.errors import InvalidInput, ManifestError
+from fewshot.files import read_text
 from fewshot.sampling.pools import file_digest
 from fewshot.sampling.rule import subset_digest
 from fewshot.sampling.task import TaskDraw
@@ -136,14 +137,7 @@ def load_manifest(path: str | Path) -> Manifest:
         does not match its ids).
     """
     p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ManifestError(
-            f"{p}: manifest not found. Check the path, or run `fewshot draw`."
-        ) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ManifestError(f"{p}: cannot read the manifest ({exc}).") from None
+    text = read_text(p, what="manifest", error=ManifestError, missing=", or draw the task first")
     try:
         data = json.loads(text)
     except json.JSONDecodeError as exc:

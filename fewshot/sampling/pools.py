@@ -21,6 +21,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from fewshot.errors import PoolError
+from fewshot.files import decode_utf8
 from fewshot.sampling.rule import hash_ids, repeated_ids
 
 if TYPE_CHECKING:  # pandas is imported where a pool is read, so a command loads it only then
@@ -135,7 +136,9 @@ def read_pool(path: str | Path, id_column: str = "id") -> Pool:
     if fmt == "parquet":
         frame = _parse_parquet(p, data)
     else:
-        text = _decode(p, data)  # checks UTF-8 and names the line that is not
+        text = decode_utf8(
+            data, p, what="file", error=PoolError
+        )  # checks UTF-8 and names the line that is not
         if fmt == "csv":
             body = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
             frame = _parse_csv(p, text, body, id_column)
@@ -180,18 +183,6 @@ def _checked_ids(p: Path, fmt: str, raw: pd.Series, id_column: str) -> tuple[str
             "a line. Remove line breaks from ids."
         )
     return tuple(text.tolist())
-
-
-def _decode(p: Path, data: bytes) -> str:
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = data[: exc.start].count(b"\n") + 1
-        raise PoolError(
-            f"{p}: line {line} is not valid UTF-8 (byte 0x{data[exc.start]:02x}). "
-            "Save the file as UTF-8."
-        ) from None
-    return text[1:] if text.startswith("\ufeff") else text
 
 
 def _parse_csv(p: Path, text: str, body: bytes, id_column: str) -> pd.DataFrame:
@@ -301,5 +292,5 @@ def read_id_list(path: str | Path, *, what: str = "id list") -> list[str]:
         raise PoolError(f"{p}: {what} not found. Check the path.") from None
     except OSError as exc:
         raise PoolError(f"{p}: cannot read the {what} ({exc.strerror}).") from None
-    text = _decode(p, data)
+    text = decode_utf8(data, p, what="file", error=PoolError)
     return [line.rstrip("\r") for line in text.split("\n") if line.strip()]

@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from fewshot.errors import InvalidInput
+from fewshot.files import read_text
 from fewshot.names import check_name
 from fewshot.ranges import INT64_MAX, MAX_REPLICATES
 from fewshot.study.model import Arm, Study, StudyError, Task
@@ -82,21 +83,7 @@ def load_study(path: str | Path) -> Study:
         duplicate names, and settings that break a rule.
     """
     p = Path(path)
-    try:
-        raw = p.read_bytes()
-    except FileNotFoundError:
-        raise StudyError(f"{p}: study file not found. Check the path.") from None
-    except OSError as exc:
-        raise StudyError(f"{p}: cannot read the study file ({exc.strerror}).") from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = raw[: exc.start].count(b"\n") + 1
-        raise StudyError(
-            f"{p}, line {line}: not valid UTF-8. Save the study file as UTF-8."
-        ) from None
-    if text.startswith("\ufeff"):  # a byte-order mark, as some editors write: not part of the TOML
-        text = text[1:]
+    text = read_text(p, what="study file", error=StudyError)
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
