@@ -305,3 +305,13 @@ def test_empty_ledger_says_what_to_do(tmp_path: Path, ledger_url: str):
 def test_missing_ledger_folder(tmp_path: Path):
     with pytest.raises(LedgerError, match="does not exist"):
         Ledger.open(tmp_path / "no" / "such" / "ledger.sqlite")
+
+
+def test_the_filled_ledger_fixture_holds_one_result_per_run(filled_ledger, cli):
+    res = filled_ledger.results()
+    runs = filled_ledger.runs()
+    assert len(res) == len(runs) == 21 and list(res.columns) == __import__("fewshot").RESULT_COLUMNS
+    wide = res[(res["arm"] == "wide") & (res["size"] == 10) & (res["seed"] == 2)]
+    assert wide["value"].tolist() == [102.0]  # 10 * size + seed, as the fixture documents
+    shown = cli("status", "--ledger", filled_ledger.connect_url)
+    assert shown.exit_code == 0, shown.output
