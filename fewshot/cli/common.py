@@ -228,8 +228,10 @@ def attempt_for(run: str, given: int | None) -> int | None:
         if given < 1:
             raise InvalidInput(f"--attempt must be 1 or more. Got {given}.")
         return given
-    raw = os.environ.get("FEWSHOT_ATTEMPT", "").strip()
-    if not raw or os.environ.get("FEWSHOT_RUN") != run:
+    from fewshot.worker.fields import ENV_ONLY, RUN_FIELDS
+
+    raw = os.environ.get(ENV_ONLY["attempt"][0], "").strip()
+    if not raw or os.environ.get(RUN_FIELDS["run"][0]) != run:
         return None
     if not raw.isdigit() or not 1 <= int(raw) <= 2**63 - 1:
         raise InvalidInput(
