@@ -135,6 +135,11 @@ def ingest(
     from fewshot.ledger.execution import attempt_of_file
 
     with reporting():
+        from fewshot.cli.cluster_cmd import ingest_pinned_folders
+
+        paths = ingest_pinned_folders(paths, ledger, study)  # a pinned SLURM job's exit records
+        if not paths:
+            return
         files = expand_result_paths(paths)
         led = open_ledger(ledger, study)
         reports = []
