@@ -197,16 +197,26 @@ def test_no_command_exits_2(tmp_path: Path):
 
 
 def test_work_accepts_every_option_of_exec():
-    # exec (now a hidden alias) and work share one loop: every exec option works on work
-    import click
-    import typer.main
+    # exec (now a hidden alias) and work share one loop: every exec option works on work,
+    # declared with the same flags
+    import inspect
+    import typing
 
-    cmd = typer.main.get_command(app)
-    assert isinstance(cmd, click.Group)
-    ctx = click.Context(cmd)
-    work = cmd.get_command(ctx, "work")
-    old = cmd.get_command(ctx, "exec")
-    assert work is not None and old is not None and old.hidden
-    flags = lambda c: {o for p in c.params for o in getattr(p, "opts", [])}  # noqa: E731
-    assert flags(old) <= flags(work)
-    assert {"--parallel", "--gpus", "--allow-network-fs"} <= flags(work)
+    from fewshot.cli import cluster_cmd, runs_cmd
+
+    def flags(fn) -> dict[str, tuple[str, ...]]:
+        hints = typing.get_type_hints(fn, include_extras=True)
+        found = {}
+        for name in inspect.signature(fn).parameters:
+            for meta in getattr(hints[name], "__metadata__", ()):
+                found[name] = tuple(getattr(meta, "param_decls", ()) or ())
+        return found
+
+    old, new = flags(runs_cmd.exec_runs), flags(cluster_cmd.work)
+    assert old.items() <= new.items()
+    assert {"parallel", "gpus", "allow_network_fs"} <= new.keys()
+    assert old.items() <= flags(cluster_cmd.exec_renamed).items()
+    listed = runner.invoke(app, ["--help"]).output
+    assert " work " in listed and " exec " not in listed  # hidden
+    res = runner.invoke(app, ["exec", "--help"])
+    assert res.exit_code == 0 and "renamed to" in res.output.lower()
