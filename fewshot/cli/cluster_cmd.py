@@ -211,7 +211,7 @@ def ingest_pinned_folders(paths: list[Path], ledger: str | None, study: str | No
             rep = ingest_pinned(led, folder)
         finally:
             led.close()
-        already = f", {rep.already} done before" if rep.already else ""
+        already = f", {rep.already} recorded before" if rep.already else ""
         out.print(
             f"{folder}: {rep.done} runs done, {rep.failed} failed{already}; "
             f"{rep.stored} results stored"
@@ -299,7 +299,14 @@ def slurm(
     import os
 
     from fewshot.cluster.pinned import frozen_runs, ingest_pinned, is_pinned_folder
-    from fewshot.cluster.slurm import JobPlan, check_time, max_array_size, submit, write_job
+    from fewshot.cluster.slurm import (
+        JobPlan,
+        check_time,
+        max_array_size,
+        require_sbatch,
+        submit,
+        write_job,
+    )
     from fewshot.ledger.engine import sqlite_path
     from fewshot.ledger.execution import _check_command
 
@@ -323,6 +330,8 @@ def slurm(
         if os.sep in command[0]:
             _check_command(command)
         limit = None if time_limit is None else check_time(time_limit)
+        if not script_only:
+            require_sbatch()
         from fewshot.ledger import resolve_url
 
         url = resolve_url(ledger)

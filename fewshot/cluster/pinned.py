@@ -76,7 +76,9 @@ def ingest_pinned(ledger: Any, folder: Path) -> PinnedReport:
     0, the run marked failed with the log tail otherwise. Runs already done are left alone, so
     ingesting twice changes nothing."""
     report = PinnedReport()
-    status = {str(r["key"]): str(r["status"]) for r in ledger.runs().to_dict(orient="records")}
+    rows = ledger.runs().to_dict(orient="records")
+    status = {str(r["key"]): str(r["status"]) for r in rows}
+    message = {str(r["key"]): str(r["message"] or "") for r in rows}
     for rec_file in sorted(folder.glob(f"*{EXIT_SUFFIX}")):
         try:
             rec = json.loads(rec_file.read_text())
@@ -90,23 +92,24 @@ def ingest_pinned(ledger: Any, folder: Path) -> PinnedReport:
                 f"{rec_file}: run {key!r} is not in study {ledger.study!r}. Give the ledger and "
                 "--study the job was submitted from."
             )
-        if status[key] == "done":
-            report.already += 1
+        job = f"(SLURM job {rec.get('job', '?')})"
+        if status[key] == "done" or (status[key] == "failed" and job in message[key]):
+            report.already += 1  # recorded before
             continue
         results = results_for(folder, key)
-        message = None
+        refused = None
         if rc == 0 and results.exists():
             try:
                 rep = ledger.ingest_file(results, run=key)
                 report.stored += rep.stored + rep.replaced
             except FewshotError as exc:
-                rc, message = 1, f"results file {results} was refused: {exc}"
+                rc, refused = 1, f"results file {results} was refused: {exc}"
         if rc == 0:
             ledger.done(key)
             report.done += 1
         else:
-            text = message or str(rec.get("tail") or "").strip() or f"exited with status {rc}"
-            ledger.fail(key, f"exit status {rc} (SLURM job {rec.get('job', '?')}): {text}")
+            text = refused or str(rec.get("tail") or "").strip() or f"exited with status {rc}"
+            ledger.fail(key, f"exit status {rc} {job}: {text}")
             report.failed += 1
         status[key] = "done" if rc == 0 else "failed"
     return report

@@ -160,14 +160,19 @@ def write_job(
     return script, tasks
 
 
-def submit(script: Path, *, env: dict[str, str] | None = None, test_only: bool = False) -> str:
-    """Submit ``script`` with sbatch; returns the job id (or sbatch's answer with ``test_only``)."""
+def require_sbatch() -> None:
+    """Refuse early (before anything is written) when SLURM's commands are not on PATH."""
     if shutil.which("sbatch") is None:
         raise InvalidInput(
             "sbatch was not found: SLURM's commands are not on PATH. Run this on a login node of "
             "the cluster (or load its slurm module), or pass --script-only to only write the "
             "script."
         )
+
+
+def submit(script: Path, *, env: dict[str, str] | None = None, test_only: bool = False) -> str:
+    """Submit ``script`` with sbatch; returns the job id (or sbatch's answer with ``test_only``)."""
+    require_sbatch()
     args = ["sbatch", "--test-only" if test_only else "--parsable", str(script)]
     try:
         done = subprocess.run(args, capture_output=True, text=True, timeout=120, env=env)
