@@ -11,6 +11,7 @@ import json
 import os
 import signal
 import sys
+import time
 from pathlib import Path
 
 
@@ -19,7 +20,7 @@ def main(argv: list[str]) -> int:
     pipe = os.fdopen(int(spec["fd"]), "w", buffering=1)
 
     def send(**event: object) -> None:
-        pipe.write(json.dumps(event) + "\n")
+        pipe.write(json.dumps({**event, "at": time.time()}) + "\n")
 
     from fewshot.errors import FewshotError
     from fewshot.ledger import Ledger

@@ -42,7 +42,7 @@ def _ledger(folder: Path, backend: str, pg: str | None, seeds: int) -> str:
     return resolve_url(url)
 
 
-def _time(url: str, loops: int, command: list[str]) -> tuple[float, int]:
+def _time(url: str, loops: int, command: list[str]) -> tuple[float, int, float]:
     start = time.perf_counter()
     summary = run_parallel(
         ledger=url,
@@ -54,7 +54,19 @@ def _time(url: str, loops: int, command: list[str]) -> tuple[float, int]:
         results_dir=None,
     )
     wall = time.perf_counter() - start
-    return wall, sum(s.done for s in summary.loops)
+    # per loop: from its first run's start to its last run's end, i.e. without the loop's own
+    # start-up; the claims between runs are inside the span
+    spans = {}
+    for o in summary.outcomes:
+        w = str(o["worker"])
+        end = float(o["at"])  # type: ignore[arg-type]
+        begin = end - float(o["seconds"])  # type: ignore[arg-type]
+        lo, hi, n = spans.get(w, (begin, end, 0))
+        spans[w] = (min(lo, begin), max(hi, end), n + 1)
+    in_loop = sum(hi - lo for lo, hi, _ in spans.values()) / max(
+        1, sum(n for *_, n in spans.values())
+    )
+    return wall, sum(s.done for s in summary.loops), in_loop
 
 
 def main() -> None:
@@ -72,16 +84,16 @@ def main() -> None:
         for backend in backends:
             for loops in (1, 2, 4, 8):
                 url = _ledger(folder, backend, args.pg, seeds)
-                wall, n = _time(url, loops, noop)
+                wall, n, _ = _time(url, loops, noop)
                 print(f"{backend:<11} {loops:>5} {n:>5} {wall:>8.2f} {n / wall:>9.1f}")
         for backend in backends:
             url = _ledger(folder, backend, args.pg, 6)  # 42 runs: 5 or 6 a loop at 8 loops
-            wall, n = _time(url, 8, sleep1)
+            wall, n, in_loop = _time(url, 8, sleep1)
             per_run = wall * 8 / n  # loop time per run, the trainer taking 1 s of it
             print(
                 f"{backend}: 8 loops, {n} runs of a 1 s trainer in {wall:.2f} s: overhead "
-                f"{(per_run - 1.0) * 100:.1f}% of a 1-second run (target < 5%; includes "
-                "starting the loops)"
+                f"{(per_run - 1.0) * 100:.1f}% of a 1-second run counting the loops' start-up, "
+                f"{(in_loop - 1.0) * 100:.1f}% once they run (target < 5%)"
             )
 
 
