@@ -8,8 +8,9 @@ import typer
 
 from fewshot import __version__
 from fewshot.cli import compare_cmd, demo_cmd, draw_cmd, results_cmd, runs_cmd, stats_cmd, study_cmd
-from fewshot.cli.cluster_cmd import exec_renamed, slurm, work
+from fewshot.cli.cluster_cmd import exec_renamed, work
 from fewshot.cli.common import STATE
+from fewshot.cli.slurm_cmd import slurm
 
 app = typer.Typer(
     name="fewshot",

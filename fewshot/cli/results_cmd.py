@@ -135,7 +135,7 @@ def ingest(
     from fewshot.ledger.execution import attempt_of_file
 
     with reporting():
-        from fewshot.cli.cluster_cmd import ingest_pinned_folders
+        from fewshot.cli.slurm_cmd import ingest_pinned_folders
 
         paths = ingest_pinned_folders(paths, ledger, study)  # a pinned SLURM job's exit records
         if not paths:
