@@ -4,7 +4,6 @@
 # accounting, free loopback ports), starts munged, slurmctld and slurmd, and exports
 # FEWSHOT_TEST_SLURM=1 and SLURM_CONF. stop_slurm stops them and removes the folder.
 SLURM_DIR=""
-SLURM_PIDS=""
 free_port() { python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1", 0)); print(s.getsockname()[1])'; }
 start_slurm() {
   if [ "$(id -u)" != 0 ]; then echo "not root: SLURM tests will skip"; return 1; fi
@@ -52,7 +51,6 @@ CONF
   munged --key-file="$SLURM_DIR/munge/munge.key" --socket="$SLURM_DIR/munge/socket" \
     --pid-file="$SLURM_DIR/munge/munged.pid" --log-file="$SLURM_DIR/munge/munged.log" \
     --seed-file="$SLURM_DIR/munge/seed" --force || { echo "munged did not start: SLURM tests will skip"; return 1; }
-  SLURM_PIDS="$(cat "$SLURM_DIR/munge/munged.pid")"
   printf 'AuthInfo=socket=%s\n' "$SLURM_DIR/munge/socket" >>"$SLURM_DIR/slurm.conf"
   slurmctld || { echo "slurmctld did not start (see $SLURM_DIR/slurmctld.log): SLURM tests will skip"; return 1; }
   slurmd || { echo "slurmd did not start (see $SLURM_DIR/slurmd.log): SLURM tests will skip"; return 1; }
@@ -70,11 +68,16 @@ CONF
 }
 stop_slurm() {
   [ -n "$SLURM_DIR" ] || return 0
-  local f
+  local f pids="" p k
   for f in slurmd.pid slurmctld.pid munge/munged.pid; do
-    [ -f "$SLURM_DIR/$f" ] && kill "$(cat "$SLURM_DIR/$f")" 2>/dev/null
+    [ -f "$SLURM_DIR/$f" ] && pids="$pids $(cat "$SLURM_DIR/$f")"
   done
-  sleep 1
+  for p in $pids; do kill "$p" 2>/dev/null; done
+  for k in $(seq 1 30); do  # wait until they are gone (at most 30 s) before removing their folder
+    for p in $pids; do kill -0 "$p" 2>/dev/null && break; p=""; done
+    [ -z "$p" ] && break
+    sleep 1
+  done
   rm -rf "$SLURM_DIR"
   SLURM_DIR=""
 }

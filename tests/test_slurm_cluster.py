@@ -51,6 +51,7 @@ with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
 
 
 def _setup(tmp_path: Path, ledger: str, monkeypatch, gate: bool) -> tuple[Path, list[str]]:
+    monkeypatch.chdir(tmp_path)  # a PostgreSQL ledger's slurm/ folder goes in the current folder
     study = write_study(tmp_path)
     assert runner.invoke(app, ["init", str(study), "--ledger", ledger]).exit_code == 0
     trainer = tmp_path / "trainer.py"
