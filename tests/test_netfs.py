@@ -126,3 +126,13 @@ def test_work_and_slurm_refuse_a_ledger_on_nfs_and_change_nothing(tmp_path: Path
     )
     assert res.exit_code == 0, res.output
     assert "warning:" in res.output and "1 runs: 1 done" in res.output
+
+
+def test_single_process_commands_only_warn(tmp_path: Path, monkeypatch):
+    study = write_study(tmp_path)
+    ledger = str(tmp_path / "l.sqlite")
+    assert runner.invoke(app, ["init", str(study), "--ledger", ledger]).exit_code == 0
+    monkeypatch.setattr(netfs, "MOUNTS_FILE", _table(tmp_path, tmp_path, "srv:/x", "lustre"))
+    res = runner.invoke(app, ["status", "--ledger", ledger])
+    assert res.exit_code == 0, res.output
+    assert "warning:" in res.output and "network filesystem (lustre)" in res.output
