@@ -453,6 +453,42 @@ CASES += [
         ["exec", "--worker", "w", *LEDGER, "--results", "{d}/pool.csv", "--", "true"],
         "is a file, not a folder",
     ),
+    (
+        "work-gpus-repeated",
+        None,
+        ["work", "--worker", "w", *LEDGER, "--gpus", "1,0,1", "--", "true"],
+        "device 1 is listed twice",
+    ),
+    (
+        "work-gpus-negative",
+        None,
+        ["work", "--worker", "w", *LEDGER, "--gpus=0,-2", "--", "true"],
+        "device ids are 0 or more",
+    ),
+    (
+        "work-parallel-zero",
+        None,
+        ["work", "--worker", "w", *LEDGER, "--parallel", "0", "--", "true"],
+        "--parallel must be 1 or more",
+    ),
+    (
+        "slurm-workers-zero",
+        None,
+        ["slurm", "--workers", "0", "--script-only", *LEDGER, "--", "true"],
+        "--workers must be 1 or more",
+    ),
+    (
+        "slurm-no-mode",
+        None,
+        ["slurm", "--script-only", *LEDGER, "--", "true"],
+        "either --workers N (pull mode) or --pinned",
+    ),
+    (
+        "slurm-bad-time",
+        None,
+        ["slurm", "--pinned", "--time", "2 hours", "--script-only", *LEDGER, "--", "true"],
+        "--time must be a SLURM time limit",
+    ),
 ]
 
 

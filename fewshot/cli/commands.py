@@ -8,7 +8,9 @@ import typer
 
 from fewshot import __version__
 from fewshot.cli import compare_cmd, demo_cmd, draw_cmd, results_cmd, runs_cmd, stats_cmd, study_cmd
+from fewshot.cli.cluster_cmd import exec_renamed, work
 from fewshot.cli.common import STATE
+from fewshot.cli.slurm_cmd import slurm
 
 app = typer.Typer(
     name="fewshot",
@@ -46,7 +48,10 @@ app.command("verify")(draw_cmd.verify)
 app.command("check")(study_cmd.check)
 app.command("init")(study_cmd.init)
 app.command("next")(runs_cmd.next_run)
-app.command("exec", context_settings={"allow_interspersed_args": False})(runs_cmd.exec_runs)
+NO_MIX = {"allow_interspersed_args": False}
+app.command("work", context_settings=NO_MIX)(work)
+app.command("exec", context_settings=NO_MIX, hidden=True)(exec_renamed)
+app.command("slurm", context_settings=NO_MIX)(slurm)
 app.command("jobs")(runs_cmd.jobs)
 app.command("done")(runs_cmd.done)
 app.command("fail")(runs_cmd.fail)

@@ -269,9 +269,13 @@ def open_ledger(ledger: str | None, study: str | None, *, create: bool = False) 
 
     Only ``init`` creates a ledger; every other command refuses a SQLite file that is not there.
     """
+    from fewshot.cluster.netfs import network_fs_warning
     from fewshot.ledger import Ledger
 
-    return Ledger.open(ledger, study=study, create=create)
+    led = Ledger.open(ledger, study=study, create=create)
+    if (warning := network_fs_warning(led.connect_url)) is not None:  # many writers are refused
+        err.print(styled("[yellow]warning:[/] {}", warning))
+    return led
 
 
 def print_frame(frame: Any, fmt: str) -> None:

@@ -134,6 +134,11 @@ def ingest(
     from fewshot.ledger.write_side import expand_result_paths
 
     with reporting({"replace": "--replace"}):
+        from fewshot.cli.slurm_cmd import ingest_pinned_folders
+
+        paths = ingest_pinned_folders(paths, ledger, study)  # a pinned SLURM job's exit records
+        if not paths:
+            return
         files = expand_result_paths(paths)
         total = len(files)
         led = open_ledger(ledger, study)
