@@ -61,8 +61,12 @@ def compare(
         str | None, typer.Option("--arms", help="Arms to compare, comma-separated (default: all).")
     ] = None,
     threshold: Annotated[
-        float, typer.Option("--threshold", help="Normalised level for episodes-to-threshold.")
-    ] = 1.0,
+        float,
+        typer.Option(
+            "--threshold",
+            help="Level for episodes-to-threshold, as a fraction of the expert (default 0.8).",
+        ),
+    ] = 0.8,
     metric: MetricOpt = None,
     select: SelectOpt = "final",
     estimator: EstimatorOpt = "mean",
@@ -77,7 +81,7 @@ def compare(
     study: StudyOpt = None,
 ) -> None:
     """Arms against a baseline: paired differences, P(improvement), effective data, episodes to a threshold."""
-    from fewshot.analysis import compare_json, compare_report
+    from fewshot.analysis import compare_json, compare_report, curve_scores, findings, read_study
     from fewshot.stats import CurveSettings
     from fewshot.tables import latex_table, transfer_rows
 
@@ -85,8 +89,9 @@ def compare(
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
         led = open_ledger(ledger, study)
         try:
+            data = read_study(led)
             rep = compare_report(
-                led,
+                data,
                 settings,
                 baseline=baseline,
                 arms=_arms(arms),
@@ -106,7 +111,18 @@ def compare(
         rows = transfer_rows(rep.table)
         typer.echo(latex_table(rows, _caption(rep)), nl=False)
         return
+    aggregate = None
+    if rep.value == "normalised" and len(rep.over_tasks) > 1:
+        with reporting(), as_flags():
+            aggregate = curve_scores(rep.scores, settings, across_tasks=True, arms=data.arm_order)
+    print_findings(findings(rep, aggregate, arm_order=data.arm_order))
     print_transfer(rep)
+
+
+def print_findings(found) -> None:  # type: ignore[no-untyped-def]
+    """The findings summary on the terminal, wrapped to its width."""
+    out.print("Findings", style="bold")
+    out.print(found.text(out.width), markup=False, highlight=False)
 
 
 def _unit(rep) -> str:  # type: ignore[no-untyped-def]

@@ -278,8 +278,12 @@ def report(
         str | None, typer.Option("--baseline", help="Baseline arm (default: the study's).")
     ] = None,
     threshold: Annotated[
-        float, typer.Option("--threshold", help="Normalised level for episodes-to-threshold.")
-    ] = 1.0,
+        float,
+        typer.Option(
+            "--threshold",
+            help="Level for episodes-to-threshold, as a fraction of the expert (default 0.8).",
+        ),
+    ] = 0.8,
     select: SelectOpt = "final",
     estimator: EstimatorOpt = "mean",
     ci: CiOpt = DEFAULT_METHOD,
