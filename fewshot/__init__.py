@@ -18,14 +18,14 @@ _EXPORTS = {
     "InvalidName": "fewshot.errors",
     "ManifestError": "fewshot.errors",
     "PoolError": "fewshot.errors",
-    "Manifest": "fewshot.manifest",
-    "Verification": "fewshot.manifest",
-    "load_manifest": "fewshot.manifest",
-    "pool_matches": "fewshot.manifest",
-    "verify_subset": "fewshot.manifest",
-    "write_draw": "fewshot.manifest",
-    "Pool": "fewshot.pools",
-    "read_pool": "fewshot.pools",
+    "Manifest": "fewshot.sampling.manifest",
+    "Verification": "fewshot.sampling.manifest",
+    "load_manifest": "fewshot.sampling.manifest",
+    "pool_matches": "fewshot.sampling.manifest",
+    "verify_subset": "fewshot.sampling.manifest",
+    "write_draw": "fewshot.sampling.draw_folder",
+    "Pool": "fewshot.sampling.pools",
+    "read_pool": "fewshot.sampling.pools",
     "RULE_VERSION": "fewshot.sampling",
     "HashedIds": "fewshot.sampling",
     "NestedDraw": "fewshot.sampling",
@@ -33,15 +33,19 @@ _EXPORTS = {
     "exclude_ids": "fewshot.sampling",
     "keep_top": "fewshot.sampling",
     "subset_digest": "fewshot.sampling",
-    "DrawSpec": "fewshot.taskdraw",
-    "Lineage": "fewshot.taskdraw",
-    "TaskDraw": "fewshot.taskdraw",
-    "draw_task": "fewshot.taskdraw",
+    "DrawSettings": "fewshot.sampling.task",
+    "DrawSpec": "fewshot.sampling.task",
+    "Lineage": "fewshot.sampling.task",
+    "TaskDraw": "fewshot.sampling.task",
+    "draw_task": "fewshot.sampling.task",
     "Study": "fewshot.study",
     "Arm": "fewshot.study",
     "Task": "fewshot.study",
     "StudyError": "fewshot.study",
     "load_study": "fewshot.study",
+    "check_study": "fewshot.study",
+    "PlanCounts": "fewshot.study",
+    "RESULT_COLUMNS": "fewshot.schema",
     "Ledger": "fewshot.ledger",
     "Claim": "fewshot.ledger",
     "LedgerError": "fewshot.ledger",
@@ -68,6 +72,9 @@ _EXPORTS = {
     "make_figure": "fewshot.analysis",
     "build_report": "fewshot.report",
     "write_report": "fewshot.report",
+    "RUN_FIELDS": "fewshot.worker",
+    "job_lines": "fewshot.worker",
+    "run_claims": "fewshot.worker",
 }
 
 __all__ = ["__version__", *sorted(_EXPORTS)]
@@ -113,15 +120,6 @@ if TYPE_CHECKING:  # for type checkers and editors
     )
     from fewshot.ledger import Claim, Ledger, LedgerError, ResultRefused, UnknownRun
     from fewshot.ledger.runs import StaleAttempt
-    from fewshot.manifest import (
-        Manifest,
-        Verification,
-        load_manifest,
-        pool_matches,
-        verify_subset,
-        write_draw,
-    )
-    from fewshot.pools import Pool, read_pool
     from fewshot.report import build_report, write_report
     from fewshot.sampling import (
         RULE_VERSION,
@@ -132,7 +130,18 @@ if TYPE_CHECKING:  # for type checkers and editors
         keep_top,
         subset_digest,
     )
+    from fewshot.sampling.draw_folder import write_draw
+    from fewshot.sampling.manifest import (
+        Manifest,
+        Verification,
+        load_manifest,
+        pool_matches,
+        verify_subset,
+    )
+    from fewshot.sampling.pools import Pool, read_pool
+    from fewshot.sampling.task import DrawSettings, DrawSpec, Lineage, TaskDraw, draw_task
+    from fewshot.schema import RESULT_COLUMNS
     from fewshot.stats import CurveSettings
-    from fewshot.study import Arm, Study, StudyError, Task, load_study
-    from fewshot.taskdraw import DrawSpec, Lineage, TaskDraw, draw_task
+    from fewshot.study import Arm, PlanCounts, Study, StudyError, Task, check_study, load_study
+    from fewshot.worker import RUN_FIELDS, job_lines, run_claims
     from fewshot.writer import ResultWriter

@@ -253,7 +253,7 @@ CASES = [
         "draw-pool-not-utf8",
         _bytes("p.csv", b"id\n\xff\n"),
         ["draw", "{d}/p.csv", "--task", "t", "--sizes", "1", "--out", "{d}/draws"],
-        "line 2 is not valid UTF-8",
+        "line 2: not valid UTF-8",
     ),
     (
         "verify-bad-manifest",

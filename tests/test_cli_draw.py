@@ -150,8 +150,8 @@ BAD_DRAWS = [
     (["--seeds", "1,1"], "seeds must not repeat"),
     (["--keep-top", "5", "--rank-by", "nope"], "no column 'nope' (--rank-by)"),
     (["--keep-top", "5", "--rank-by", "grp"], "column 'grp' (--rank-by) must be numeric"),
-    (["--keep-top", "50", "--rank-by", "score"], "keep_top (50) is larger than the pool (20"),
-    (["--keep-top", "5"], "keep_top and rank_by go together"),
+    (["--keep-top", "50", "--rank-by", "score"], "--keep-top (50) is larger than the pool (20"),
+    (["--keep-top", "5"], "--keep-top and --rank-by go together"),
     (["--stratify-by", "colour"], "no column 'colour' (--stratify-by)"),
     (["--task", "bad name"], "task name 'bad name' is not valid"),
     (["--task", "a/b"], "task name 'a/b' is not valid"),
@@ -180,7 +180,7 @@ def test_bad_draws_exit_2_with_a_message_and_write_nothing(tmp_path: Path, extra
         (b"id,score\ni1,1\n,2\n", "empty id"),
         (b"", "the file is empty"),
         (b"id,score\n", "no episodes"),
-        (b"id,score\ni\xe91,1\n", "line 2 is not valid UTF-8"),
+        (b"id,score\ni\xe91,1\n", "line 2: not valid UTF-8"),
     ],
 )
 def test_bad_pool_files_exit_2(tmp_path: Path, content, fragment):
@@ -265,3 +265,25 @@ def test_demo_pool_in_studies_draws(tmp_path: Path, demo_pool: Path):
         tmp_path,
     )
     assert result.exit_code == 0, result.output
+
+
+def test_library_parameters_become_the_commands_flags():
+    # The library names parameters; each command translates them to its flags.
+    from fewshot.cli.common import as_flags
+
+    flags = {"keep_top": "--keep-top", "rank_by": "--rank-by"}
+    assert (
+        as_flags("keep_top and rank_by go together", flags)
+        == "--keep-top and --rank-by go together"
+    )
+    assert as_flags("pick one with `study`.", {}) == "pick one with --study."
+    assert as_flags("`max_runs` must be 1", {"max_runs": "--max-runs"}) == "--max-runs must be 1"
+    # a flag already spelled, part of a longer word, or a name not mapped stays as it is
+    assert as_flags("--keep-top 5 and keep_tops, rank", flags) == "--keep-top 5 and keep_tops, rank"
+
+
+def test_backticked_parameters_leave_the_prose_alone():
+    from fewshot.cli.common import as_flags
+
+    msg = "`template` is not a valid template (x)."
+    assert as_flags(msg, {"template": "--template"}) == "--template is not a valid template (x)."

@@ -338,79 +338,73 @@ def _one_run_study(tmp_path: Path) -> tuple[Path, str]:
     return study, ledger
 
 
-def test_exec_keeps_the_lease_alive_while_the_trainer_runs(tmp_path: Path):
+def _exec(ledger: str, worker: str, trainer: str, *extra: str):
+    import os
     import subprocess
+
+    cmd = [sys.executable, "-m", "fewshot.cli", "exec", "--worker", worker, *extra]
+    cmd += ["--ledger", ledger, "--", sys.executable, "-c", trainer]
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
+    return subprocess.Popen(cmd, env=env)
+
+
+# A trainer that says it started (a file), then waits until the test lets it finish (another
+# file), so the test synchronises on what the trainer does, not on the time it takes.
+_GATED_TRAINER = """
+import pathlib, sys, time
+pathlib.Path(sys.argv[1]).write_text("started")
+deadline = time.monotonic() + 120
+while not pathlib.Path(sys.argv[2]).exists() and time.monotonic() < deadline:
+    time.sleep(0.02)
+"""
+
+
+def _gated(tmp_path: Path) -> tuple[str, Path, Path]:
+    started, release = tmp_path / "started", tmp_path / "release"
+    trainer = f"import sys; sys.argv[1:] = [{str(started)!r}, {str(release)!r}]\n" + _GATED_TRAINER
+    return trainer, started, release
+
+
+def test_exec_keeps_the_lease_alive_while_the_trainer_runs(tmp_path: Path, wait_until):
+    import time
 
     from fewshot.ledger import Ledger
 
     _, ledger = _one_run_study(tmp_path)
-    proc = subprocess.Popen(
-        [
-            sys.executable,
-            "-m",
-            "fewshot.cli",
-            "exec",
-            "--worker",
-            "slow",
-            "--lease",
-            "0.6s",
-            "--ledger",
-            ledger,
-            "--",
-            sys.executable,
-            "-c",
-            "import time; time.sleep(3)",
-        ],
-        env={**__import__("os").environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)},
-    )
-    import time
-
+    trainer, started, release = _gated(tmp_path)
+    proc = _exec(ledger, "slow", trainer, "--lease", "0.6s")
     led = Ledger.open(ledger)
-    for _ in range(200):  # wait for exec to start (imports take a while on a busy machine)
-        if led.counts()["running"] == 1:
-            break
-        time.sleep(0.05)
-    time.sleep(2.0)  # more than three leases: without renewal the run would be claimable now
-    assert led.claim("thief", lease=60) is None
+    try:
+        wait_until(started.exists, "the trainer to start")
+        first_expiry = float(led.runs()["lease_expires"].iloc[0])
+        # three leases past the first one's end: without renewal the run would be claimable now
+        wait_until(lambda: time.time() > first_expiry + 3 * 0.6, "three leases to pass")
+        assert not proc.poll(), "exec ended before the trainer was let go"
+        assert led.claim("thief", lease=60) is None
+    finally:
+        release.write_text("go")
     assert proc.wait(timeout=60) == 0
     assert led.counts()["done"] == 1 and led.runs()["attempts"].tolist() == [1]
     led.close()
 
 
-def test_an_interrupted_exec_hands_the_run_back(tmp_path: Path):
-    import os
+def test_an_interrupted_exec_hands_the_run_back(tmp_path: Path, wait_until):
     import signal
-    import subprocess
-    import time
 
     from fewshot.ledger import Ledger
 
     _, ledger = _one_run_study(tmp_path)
-    proc = subprocess.Popen(
-        [
-            sys.executable,
-            "-m",
-            "fewshot.cli",
-            "exec",
-            "--worker",
-            "w",
-            "--ledger",
-            ledger,
-            "--",
-            sys.executable,
-            "-c",
-            "import time; time.sleep(30)",
-        ],
-        env={**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)},
-    )
+    trainer, started, release = _gated(tmp_path)
+    proc = _exec(ledger, "w", trainer)
     led = Ledger.open(ledger)
-    for _ in range(100):
-        if led.counts()["running"] == 1:
-            break
-        time.sleep(0.1)
-    time.sleep(0.5)  # let the trainer start: the signal should find exec waiting on it
-    proc.send_signal(signal.SIGINT)
-    assert proc.wait(timeout=60) == 130
+    try:
+        # the trainer has started: the signal finds exec waiting on it
+        wait_until(started.exists, "the trainer to start")
+        assert led.counts()["running"] == 1
+        proc.send_signal(signal.SIGINT)
+        assert proc.wait(timeout=60) == 130
+    finally:
+        release.write_text("go")
     assert led.counts() == {"planned": 1, "running": 0, "done": 0, "failed": 0}
     led.close()
 

@@ -17,9 +17,9 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.errors import FewshotError
 from fewshot.ledger import Ledger
-from fewshot.ledger.execution import attempt_of_file, results_file_for
 from fewshot.ledger.runs import StaleAttempt
 from fewshot.study import load_study
+from fewshot.worker.loop import attempt_of_file, results_file_for
 from tests.conftest import STUDY_TOML, write_study
 
 ROOT = Path(__file__).resolve().parent.parent

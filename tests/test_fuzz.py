@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 
 from fewshot.errors import FewshotError
 from fewshot.ledger import Ledger
-from fewshot.ledger.results import parse_result_file
+from fewshot.results_format import parse_result_file
 from fewshot.study import load_study
 from tests.conftest import STUDY_TOML, write_study
 

@@ -16,8 +16,8 @@ from fewshot.ledger import (
     StudyChangeRefused,
     UnknownRun,
 )
-from fewshot.manifest import load_manifest, verify_subset
 from fewshot.sampling import subset_digest
+from fewshot.sampling.manifest import load_manifest, verify_subset
 from fewshot.study import load_study
 from tests.conftest import STUDY_TOML, ledger_dump, write_study
 
@@ -89,12 +89,13 @@ def test_changed_pool_is_refused(planned):
     assert ledger_dump(led._url) == before
 
 
-def test_claims_are_unique_and_leases_expire(planned):
+def test_claims_are_unique_and_leases_expire(planned, wait_until):
     led, _ = planned
     first = led.claim("w1", lease=0.2)
     second = led.claim("w2", lease=60)
     assert first.key != second.key and first.attempt == 1
-    time.sleep(0.3)
+    # leases are stamped with time.time(): wait until this one has passed
+    wait_until(lambda: time.time() > first.lease_expires, "the 0.2 s lease to expire")
     again = led.claim("w3", lease=60)
     assert again.key == first.key and again.attempt == 2  # the expired lease made it claimable
     assert not led.heartbeat(first.key, "w1")  # w1 no longer holds it
@@ -197,7 +198,9 @@ def test_ingest_jsonl_and_csv_idempotent(planned, tmp_path: Path):
         "run,metric,value,step,values\n"
         + "".join(f'{k},success,0.5,,"[0.0, 1.0]"\n' for k in keys[10:15])
     )
-    reports = led.ingest([tmp_path])
+    seen = []
+    reports = led.ingest([tmp_path], progress=lambda done, total, r: seen.append((done, total)))
+    assert seen == [(1, 2), (2, 2)]  # the progress callback sees every file, in order
     assert [(Path(r.path).name, r.stored, r.skipped) for r in reports] == [
         ("a.jsonl", 10, False),
         ("b.csv", 5, False),
@@ -278,7 +281,7 @@ def test_several_studies_need_a_choice(tmp_path: Path, ledger_url: str):
     led.plan(load_study(write_study(b, other_text)))
     led.close()
     with pytest.raises(
-        LedgerError, match=r"several studies \(mini, other\); pick one with --study"
+        LedgerError, match=r"several studies \(mini, other\); pick one with `study`"
     ):
         Ledger.open(ledger_url).claim("w")
     other = Ledger.open(ledger_url, study="other")
@@ -302,3 +305,13 @@ def test_empty_ledger_says_what_to_do(tmp_path: Path, ledger_url: str):
 def test_missing_ledger_folder(tmp_path: Path):
     with pytest.raises(LedgerError, match="does not exist"):
         Ledger.open(tmp_path / "no" / "such" / "ledger.sqlite")
+
+
+def test_the_filled_ledger_fixture_holds_one_result_per_run(filled_ledger, cli):
+    res = filled_ledger.results()
+    runs = filled_ledger.runs()
+    assert len(res) == len(runs) == 21 and list(res.columns) == __import__("fewshot").RESULT_COLUMNS
+    wide = res[(res["arm"] == "wide") & (res["size"] == 10) & (res["seed"] == 2)]
+    assert wide["value"].tolist() == [102.0]  # 10 * size + seed, as the fixture documents
+    shown = cli("status", "--ledger", filled_ledger.connect_url)
+    assert shown.exit_code == 0, shown.output

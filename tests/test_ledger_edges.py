@@ -14,11 +14,11 @@ from pathlib import Path
 import pytest
 from typer.testing import CliRunner
 
-import fewshot.ledger.core as core
+import fewshot.ledger.write_side as write_side
 from fewshot.cli import app
 from fewshot.errors import FewshotError
 from fewshot.ledger import Ledger
-from fewshot.pools import read_pool
+from fewshot.sampling.pools import read_pool
 from tests.conftest import STUDY_TOML, ledger_dump, write_csv, write_study
 
 runner = CliRunner()
@@ -155,7 +155,7 @@ def test_the_library_refuses_endless_leases(ready, lease: float):
 
 def test_init_cleans_the_staging_folder_of_a_killed_init(ready):
     study, ledger = ready
-    from fewshot.manifest import _STAGING, _STAGING_MARK, _host
+    from fewshot.sampling.draw_folder import STAGING, STAGING_MARK, host_name
 
     # A pid that has certainly exited: a child we started and waited for.
     dead = subprocess.run(
@@ -165,9 +165,9 @@ def test_init_cleans_the_staging_folder_of_a_killed_init(ready):
         check=True,
     )
     draws = study.parent / "draws" / "mini"
-    stale = draws / f".reach.{_STAGING}-{_host()}-{int(dead.stdout)}-abc"
+    stale = draws / f".reach.{STAGING}-{host_name()}-{int(dead.stdout)}-abc"
     stale.mkdir()
-    (stale / _STAGING_MARK).write_text("")
+    (stale / STAGING_MARK).write_text("")
     (stale / "half-written.txt").write_text("x")
     study.write_text(STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]"))
     result = run("init", study, "--ledger", ledger)
@@ -188,7 +188,7 @@ def test_a_known_file_is_skipped_before_it_is_parsed(ready, tmp_path: Path, monk
         def no_parsing(*_a: object, **_k: object):
             raise AssertionError("a file ingested before was parsed again")
 
-        monkeypatch.setattr(core, "parse_result_file", no_parsing)
+        monkeypatch.setattr(write_side, "parse_result_file", no_parsing)
         again = led.ingest_file(path)
     assert again.skipped and again.lines == 1 and again.stored == 0
     assert ledger_dump(ledger) == before

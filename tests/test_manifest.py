@@ -12,7 +12,7 @@ from pathlib import Path
 import pytest
 
 from fewshot import DrawSpec, ManifestError, draw_task, load_manifest, verify_subset, write_draw
-from fewshot.manifest import pool_matches, subset_path
+from fewshot.sampling.manifest import pool_matches, subset_path
 from tests.conftest import tree_snapshot, write_csv
 
 
@@ -146,7 +146,7 @@ def test_a_failed_rewrite_keeps_the_old_draw(tmp_path: Path, pool_csv, monkeypat
     out = tmp_path / "out"
     write_draw(out, draw_task(spec_for(pool_csv)))
     before = tree_snapshot(out)
-    import fewshot.manifest as m
+    import fewshot.sampling.draw_folder as m
 
     def broken(src, dst):
         raise OSError(5, "I/O error")

@@ -18,7 +18,7 @@ from typer.testing import CliRunner
 
 from fewshot import DrawSpec, ManifestError, draw_task, load_manifest, write_draw
 from fewshot.cli import app
-from fewshot.manifest import DRAWS_MARKER
+from fewshot.sampling.draw_folder import DRAWS_MARKER
 from tests.conftest import STUDIES, tree_snapshot, write_study
 
 runner = CliRunner()
@@ -148,7 +148,7 @@ def test_a_folder_written_before_the_marker_is_proved_by_its_manifest(tmp_path: 
 def test_staging_left_by_a_killed_draw_is_cleaned_but_a_live_one_is_kept(tmp_path: Path, pool_csv):
     out = tmp_path / "out"
     write_draw(out, draw_task(spec(pool_csv)))
-    from fewshot.manifest import _STAGING, _STAGING_MARK, _host
+    from fewshot.sampling.draw_folder import STAGING, STAGING_MARK, host_name
 
     # A pid that has certainly exited: a child we started and waited for.
     dead = subprocess.run(
@@ -158,13 +158,13 @@ def test_staging_left_by_a_killed_draw_is_cleaned_but_a_live_one_is_kept(tmp_pat
         check=True,
     )
     dead_pid = int(dead.stdout)
-    stale = out / f".t1.{_STAGING}-{_host()}-{dead_pid}-abc"
-    live = out / f".t1.{_STAGING}-{_host()}-{os.getppid()}-def"
-    unmarked = out / f".t1.{_STAGING}-{_host()}-{dead_pid}-ghi"
+    stale = out / f".t1.{STAGING}-{host_name()}-{dead_pid}-abc"
+    live = out / f".t1.{STAGING}-{host_name()}-{os.getppid()}-def"
+    unmarked = out / f".t1.{STAGING}-{host_name()}-{dead_pid}-ghi"
     for d in (stale, live, unmarked):
         d.mkdir()
-    (stale / _STAGING_MARK).write_text("")
-    (live / _STAGING_MARK).write_text("")
+    (stale / STAGING_MARK).write_text("")
+    (live / STAGING_MARK).write_text("")
     write_draw(out, draw_task(spec(pool_csv, seeds=(0, 1, 2))))
     assert not stale.exists()
     assert live.exists() and unmarked.exists()

@@ -74,7 +74,7 @@ def test_odd_paths_work_or_give_a_message(tmp_path: Path, name: str):
                 "--ledger",
                 ledger,
             ),
-            "cannot read the values file",
+            "values file not found",
         ),
         (
             ("exec", "--worker", "w", "--ledger", ledger, "--results", study, "--", "true"),

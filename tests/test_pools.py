@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from fewshot import PoolError, read_pool
-from fewshot.pools import read_id_list
+from fewshot.sampling.pools import read_id_list
 
 
 def test_csv_ids_stay_text(tmp_path: Path):
@@ -58,7 +58,7 @@ def test_utf8_bom_is_ignored(tmp_path: Path):
         ("p.csv", b"id,r\na,1\n,2\n", {}, "empty id in column 'id', first at line 3"),
         ("p.csv", b"", {}, "the file is empty"),
         ("p.csv", b"id,r\n", {}, "no episodes"),
-        ("p.csv", b"id,r\na,1\n\xff\xfe,2\n", {}, "line 3 is not valid UTF-8"),
+        ("p.csv", b"id,r\na,1\n\xff\xfe,2\n", {}, "line 3: not valid UTF-8"),
         ("p.jsonl", b'{"id": "a"}\n{"id": "b"\n', {}, "line 2 is not valid JSON"),
         ("p.jsonl", b'{"id": "a"}\n[1, 2]\n', {}, "line 2 must be a JSON object"),
         ("p.jsonl", b'{"id": "a"}\n{"r": 1}\n', {}, "empty id"),
@@ -84,7 +84,7 @@ def test_non_numeric_rank_column_names_the_line(tmp_path: Path):
     p.write_text("id,r\na,1\nb,high\nc,3\n", encoding="utf-8")
     with pytest.raises(PoolError, match=r"line 3 holds 'high'"):
         read_pool(p).numeric("r")
-    with pytest.raises(PoolError, match=r"no column 'q' \(--rank-by\). Columns found: id, r"):
+    with pytest.raises(PoolError, match=r"no column 'q' \(rank_by\). Columns found: id, r"):
         read_pool(p).numeric("q")
 
 

@@ -11,7 +11,6 @@ from pathlib import Path
 
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 ROOT = Path(__file__).resolve().parent.parent
 # A trainer that records several metrics at several steps, through the public API.
@@ -29,23 +28,20 @@ while (c := led.claim(sys.argv[2], lease=600)) is not None:
 """
 
 
-def _study(folder: Path, seeds: int) -> Path:
-    text = (
-        STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1, 2, 3, 4]")
-        .replace("seeds = [0, 1, 2]", "seeds = [" + ", ".join(map(str, range(seeds))) + "]")
-        .replace('role = "pretrained"', 'role = "pretrained"\nzero_shot = false')
+def _study(study_file, seeds: int) -> Path:
+    return study_file(
+        sizes=[1, 2, 3, 4], seeds=list(range(seeds)), arms={"wide": {"zero_shot": False}}
     )
-    return write_study(folder, text)
 
 
 def _env() -> dict[str, str]:
     return {**os.environ, "PYTHONPATH": str(ROOT)}
 
 
-def test_eight_workers_claim_once_and_store_once(tmp_path: Path, ledger_url: str):
+def test_eight_workers_claim_once_and_store_once(ledger_url: str, study_file):
     led = Ledger.open(ledger_url)
     total = led.plan(
-        load_study(_study(tmp_path, 50))
+        load_study(_study(study_file, 50))
     ).total_runs  # 2 arms x 4 sizes x 50 seeds = 400
     procs = [
         subprocess.Popen(
@@ -70,9 +66,11 @@ def test_eight_workers_claim_once_and_store_once(tmp_path: Path, ledger_url: str
     led.close()
 
 
-def test_a_killed_worker_loses_its_lease_and_the_run_finishes_once(tmp_path: Path, ledger_url: str):
+def test_a_killed_worker_loses_its_lease_and_the_run_finishes_once(
+    ledger_url: str, wait_until, study_file
+):
     led = Ledger.open(ledger_url)
-    led.plan(load_study(_study(tmp_path, 1)))
+    led.plan(load_study(_study(study_file, 1)))
     # the victim claims with a short lease, then "trains" for a long time and is killed with SIGKILL
     victim = subprocess.Popen(
         [
@@ -98,14 +96,14 @@ def test_a_killed_worker_loses_its_lease_and_the_run_finishes_once(tmp_path: Pat
         stderr=subprocess.DEVNULL,
         start_new_session=True,
     )
-    for _ in range(300):
-        if led.counts()["running"] == 1:
-            break
-        time.sleep(0.05)
-    held = led.runs(["running"]).iloc[0]["key"]
+    wait_until(lambda: led.counts()["running"] == 1, "the victim to claim a run", timeout=120)
+    held_run = led.runs(["running"]).iloc[0]
+    held = held_run["key"]
     os.killpg(victim.pid, signal.SIGKILL)  # the worker and its trainer die without a word
     victim.wait()
-    time.sleep(2.5)  # the lease expires
+    # the lease expires (the ledger stamps leases with the same clock, time.time())
+    expiry = float(held_run["lease_expires"])
+    wait_until(lambda: time.time() > expiry, "the victim's lease to expire")
     rescuer = subprocess.run(
         [sys.executable, "-c", WORKER, ledger_url, "rescuer"],
         capture_output=True,
@@ -122,7 +120,7 @@ def test_a_killed_worker_loses_its_lease_and_the_run_finishes_once(tmp_path: Pat
     led.close()
 
 
-def test_exec_never_goes_through_a_shell(tmp_path: Path):
+def test_exec_never_goes_through_a_shell(tmp_path: Path, study_file):
     import json
 
     from typer.testing import CliRunner
@@ -130,7 +128,7 @@ def test_exec_never_goes_through_a_shell(tmp_path: Path):
     from fewshot.cli import app
 
     ledger = str(tmp_path / "l.sqlite")
-    Ledger.open(ledger).plan(load_study(_study(tmp_path, 1)))
+    Ledger.open(ledger).plan(load_study(_study(study_file, 1)))
     seen = tmp_path / "argv.json"
     code = f"import json, sys; json.dump(sys.argv[1:], open({str(seen)!r}, 'w'))"
     tricky = ["$HOME", "; touch pwned", "`id`", "a && b", "*"]
@@ -158,7 +156,7 @@ def test_exec_never_goes_through_a_shell(tmp_path: Path):
     assert not (Path.cwd() / "pwned").exists() and not (tmp_path / "pwned").exists()
 
 
-def test_a_password_in_the_ledger_url_is_never_printed(tmp_path: Path):
+def test_a_password_in_the_ledger_url_is_never_printed(study_file):
     import pytest
     from typer.testing import CliRunner
 
@@ -178,7 +176,7 @@ def test_a_password_in_the_ledger_url_is_never_printed(tmp_path: Path):
     url = f"{scheme}://{user}:hunter2secret@{user_host[1]}"  # trust authentication ignores the password
     runner = CliRunner()
     out = [
-        runner.invoke(app, ["init", str(_study(tmp_path, 1)), "--ledger", url]),
+        runner.invoke(app, ["init", str(_study(study_file, 1)), "--ledger", url]),
         runner.invoke(app, ["status", "--ledger", url]),
         runner.invoke(app, ["status", "--ledger", url, "--format", "json"]),
         runner.invoke(app, ["record", "nope/reach/n1/s0", "return=1", "--ledger", url]),

@@ -13,8 +13,8 @@ from hypothesis import strategies as st
 from scipy import stats
 
 from fewshot import DrawError, InvalidInput, draw_nested, keep_top
-from fewshot.sampling import (
-    HashedIds,
+from fewshot.sampling.nested import HashedIds
+from fewshot.sampling.rule import (
     _splitmix64_array,
     exclude_ids,
     hash_ids,
@@ -92,7 +92,7 @@ def test_large_pool_partial_sort_equals_full_sort():
 
 def test_key_ties_are_broken_by_id(monkeypatch):
     # Force every key equal: the order must then be plain id order.
-    import fewshot.sampling as sampling
+    import fewshot.sampling.nested as sampling
 
     monkeypatch.setattr(sampling, "rank_keys", lambda h, s: np.zeros_like(h))
     ids = [f"x{k}" for k in range(5000)][::-1]

@@ -10,8 +10,20 @@ from fewshot.study import StudyError, load_study, run_key
 from tests.conftest import STUDY_TOML, write_study
 
 
-def test_parse_and_plan(tmp_path: Path):
-    study = load_study(write_study(tmp_path))
+def test_the_study_factory_writes_the_shared_study(tmp_path: Path, study_file):
+    # the fixture's study (built from named edits) and the shared text are one study
+    (tmp_path / "a").mkdir()
+    (tmp_path / "b").mkdir()
+    a = load_study(study_file(tmp_path / "a"))
+    b = load_study(write_study(tmp_path / "b"))
+    assert a.arms == b.arms and a.sizes == b.sizes and a.seeds == b.seeds
+    assert [t.draw_settings() for t in a.tasks] == [t.draw_settings() for t in b.tasks]
+    with pytest.raises(KeyError, match="no arm 'nope'"):
+        study_file(arms={"nope": {"role": "baseline"}})
+
+
+def test_parse_and_plan(tmp_path: Path, study_file):
+    study = load_study(study_file())
     assert study.name == "mini" and study.sizes == (0, 1, 3, 10) and study.seeds == (0, 1, 2)
     wide, scratch = study.arms
     assert wide.zero_shot and not scratch.zero_shot  # size 0 by default only for pretrained arms
@@ -25,10 +37,8 @@ def test_parse_and_plan(tmp_path: Path):
     assert study.draws_dir == tmp_path.resolve() / "draws" / "mini"
 
 
-def test_replicates_add_a_suffix(tmp_path: Path):
-    study = load_study(
-        write_study(tmp_path, STUDY_TOML.replace("baseline =", "replicates = 2\nbaseline ="))
-    )
+def test_replicates_add_a_suffix(study_file):
+    study = load_study(study_file(replicates=2))
     keys = [r.key for r in study.runs()]
     assert len(keys) == 42 and keys[:2] == ["wide/reach/n0/s0/r0", "wide/reach/n0/s0/r1"]
     assert run_key("a", "t", 1, 2, 0, 1) == "a/t/n1/s2"
@@ -117,3 +127,18 @@ def test_missing_and_non_utf8_study_files(tmp_path: Path):
     empty.write_text("")
     with pytest.raises(StudyError, match="needs a 'name' key"):
         load_study(empty)
+
+
+def test_plan_counts_match_the_runs(tmp_path: Path, study_file):
+    # counted by hand from the study: wide (zero-shot) 4 sizes, scratch 3 sizes; 3 seeds each
+    from fewshot import check_study
+
+    study = check_study(study_file())
+    plan = study.plan_counts()
+    assert plan.sizes == (0, 1, 3, 10)
+    assert plan.cells == {("wide", "reach"): (3, 3, 3, 3), ("scratch", "reach"): (0, 3, 3, 3)}
+    assert plan.total == 21 == len(list(study.runs())) and not plan.few_seeds
+    assert study.plan_dict()["runs"] == 21
+    (tmp_path / "two").mkdir()
+    two = load_study(study_file(tmp_path / "two", seeds=[0, 1]))
+    assert two.plan_counts().few_seeds  # fewer than 3 seeds: the check says so

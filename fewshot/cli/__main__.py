@@ -1,5 +1,5 @@
 """``python -m fewshot.cli``: the same as the ``fewshot`` command."""
 
-from fewshot.cli.app import main
+from fewshot.cli.commands import main
 
 main()

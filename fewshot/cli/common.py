@@ -5,8 +5,9 @@ from __future__ import annotations
 import json
 import math
 import os
+import re
 import sys
-from collections.abc import Iterator
+from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from enum import StrEnum
 from typing import Annotated, Any
@@ -33,12 +34,37 @@ class TableOrJson(StrEnum):
     json = "json"
 
 
+# Every ledger command has these flags for these library parameters (Ledger.open's).
+LEDGER_FLAGS = {"url": "--ledger", "study": "--study"}
+
+
+def as_flags(message: str, flags: Mapping[str, str]) -> str:
+    """``message`` with library parameter names replaced by the command's flags.
+
+    The library's messages name parameters, in backticks (```max_runs``` must be ...) or, for the
+    draw settings, bare (``keep_top and rank_by go together``, in a message without backticks);
+    a command says which of its flags stand for which parameter (``flags``), and its user reads
+    the flags. Backticked ``url`` and
+    ``study`` are the ledger's ``--ledger`` and ``--study`` in every command.
+    """
+    if "`" in message:  # parameters in backticks: only those are names
+        every = {**LEDGER_FLAGS, **flags}
+        backticked = re.compile(r"`(" + "|".join(map(re.escape, every)) + r")`")
+        return backticked.sub(lambda m: every[m.group(1)], message)
+    if not flags:
+        return message
+    names = sorted(flags, key=len, reverse=True)
+    bare = re.compile(r"(?<![\w`-])(" + "|".join(map(re.escape, names)) + r")(?![\w`-])")
+    return bare.sub(lambda m: flags[m.group(1)], message)
+
+
 @contextmanager
-def reporting() -> Iterator[None]:
+def reporting(flags: Mapping[str, str] | None = None) -> Iterator[None]:
     """Turn a :class:`FewshotError` into its message on stderr and exit status 2.
 
-    With ``fewshot --debug`` the exception propagates with its traceback. Either way every
-    password in the messages is masked (:func:`fewshot.masking.mask_secrets`).
+    ``flags`` maps library parameter names to the command's flags (see :func:`as_flags`). With
+    ``fewshot --debug`` the exception propagates with its traceback. Either way every password in
+    the messages is masked (:func:`fewshot.masking.mask_secrets`).
     """
     try:
         yield
@@ -46,7 +72,8 @@ def reporting() -> Iterator[None]:
         if STATE["debug"]:
             _mask_chain(exc)
             raise
-        err.print(styled("[bold red]error:[/] {}", mask_secrets(str(exc))))
+        text = as_flags(mask_secrets(str(exc)), flags or {})
+        err.print(styled("[bold red]error:[/] {}", text))
         raise typer.Exit(2) from None
     except Exception as exc:  # a bug: its traceback is shown, with any password masked
         _mask_chain(exc)
@@ -201,8 +228,10 @@ def attempt_for(run: str, given: int | None) -> int | None:
         if given < 1:
             raise InvalidInput(f"--attempt must be 1 or more. Got {given}.")
         return given
-    raw = os.environ.get("FEWSHOT_ATTEMPT", "").strip()
-    if not raw or os.environ.get("FEWSHOT_RUN") != run:
+    from fewshot.worker.fields import ENV_ONLY, RUN_FIELDS
+
+    raw = os.environ.get(ENV_ONLY["attempt"][0], "").strip()
+    if not raw or os.environ.get(RUN_FIELDS["run"][0]) != run:
         return None
     if not raw.isdigit() or not 1 <= int(raw) <= 2**63 - 1:
         raise InvalidInput(
@@ -223,7 +252,7 @@ AttemptOpt = Annotated[
 
 def lease_seconds(text: str) -> float:
     """``--lease`` in seconds: a duration from the lease floor (30 s) to 30 days."""
-    from fewshot.ledger.core import min_lease
+    from fewshot.ledger.runs import min_lease
 
     seconds = duration(text, option="--lease")
     floor = min_lease()

@@ -30,7 +30,7 @@ from fewshot.cli.stats_cmd import (
     SelectOpt,
 )
 from fewshot.errors import InvalidInput
-from fewshot.stats.methods import DEFAULT_METHOD
+from fewshot.schema import DEFAULT_INTERVAL_METHOD as DEFAULT_METHOD
 
 
 class CompareFormat(StrEnum):

@@ -20,15 +20,25 @@ from fewshot.cli.common import (
     styled,
 )
 from fewshot.errors import RedrawRefused
-from fewshot.manifest import (
+from fewshot.sampling.draw_folder import write_draw
+from fewshot.sampling.manifest import (
     load_manifest,
     pool_matches,
     subset_path,
     verify_subset,
-    write_draw,
 )
-from fewshot.pools import read_id_list
-from fewshot.taskdraw import DrawSpec, TaskDraw, draw_task
+from fewshot.sampling.pools import read_id_list
+from fewshot.sampling.task import DrawSpec, TaskDraw, draw_task
+
+# The library's parameter names that `fewshot draw` spells as flags, for its messages.
+DRAW_FLAGS = {
+    "id_column": "--id-column",
+    "keep_top": "--keep-top",
+    "rank_by": "--rank-by",
+    "lowest_first": "--lowest-first",
+    "stratify_by": "--stratify-by",
+    "allocation": "--allocation",
+}
 
 
 class AllocationChoice(StrEnum):
@@ -90,7 +100,7 @@ def draw(
     ),
 ) -> None:
     """Draw nested subsets of a pool for every seed and write a manifest and id files."""
-    with reporting():
+    with reporting(DRAW_FLAGS):
         spec = DrawSpec(
             task=task,
             pool=pool,

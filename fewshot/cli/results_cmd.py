@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import math
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 from rich.table import Table
@@ -26,7 +26,10 @@ from fewshot.cli.common import (
     reporting,
 )
 from fewshot.errors import InvalidInput
-from fewshot.files import write_text_atomic
+
+if TYPE_CHECKING:
+    from fewshot.ledger import IngestReport
+from fewshot.files import read_text, write_text_atomic
 
 
 def _pairs(items: list[str]) -> list[tuple[str, float]]:
@@ -48,10 +51,7 @@ def _pairs(items: list[str]) -> list[tuple[str, float]]:
 
 
 def _values_file(path: Path) -> list[float]:
-    try:
-        text = path.read_text(encoding="utf-8").strip()
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InvalidInput(f"{path}: cannot read the values file ({exc}).") from None
+    text = read_text(path, what="values file").strip()
     try:
         raw = json.loads(text) if text.startswith("[") else [float(x) for x in text.split()]
         values = [float(x) for x in raw]
@@ -95,7 +95,7 @@ def record(
     """Record results of a run: all of them or none."""
     from fewshot.ledger.results import check_line
 
-    with reporting():
+    with reporting({"replace": "--replace"}):
         pairs = _pairs(results)
         if values is not None and len(pairs) != 1:
             raise InvalidInput(
@@ -131,24 +131,26 @@ def ingest(
     study: StudyOpt = None,
 ) -> None:
     """Ingest results files, one transaction each; a file ingested before is skipped."""
-    from fewshot.ledger.core import expand_result_paths
-    from fewshot.ledger.execution import attempt_of_file
+    from fewshot.ledger.write_side import expand_result_paths
 
-    with reporting():
+    with reporting({"replace": "--replace"}):
         files = expand_result_paths(paths)
+        total = len(files)
         led = open_ledger(ledger, study)
         reports = []
+
         with progress() as bar:
-            job = bar.add_task("ingesting", total=len(files))
+            job = bar.add_task("ingesting", total=total)
+
+            def advance(done: int, _total: int, report: IngestReport) -> None:
+                reports.append(report)
+                bar.advance(job)
+
             try:
-                for f in files:
-                    # a work loop's results file names its attempt (run.attempt2.jsonl)
-                    which = attempt_of_file(f)
-                    reports.append(led.ingest_file(f, replace=replace, attempt=which))
-                    bar.advance(job)
+                led.ingest(files, replace=replace, progress=advance)
             finally:
                 led.close()
-                if reports and len(reports) < len(files):
+                if reports and len(reports) < total:
                     err.print(f"{len(reports)} file(s) before the refused one were ingested")
     stored = sum(r.stored for r in reports)
     skipped = sum(1 for r in reports if r.skipped)

@@ -23,8 +23,6 @@ from fewshot.cli.common import (
     reporting,
     styled,
 )
-from fewshot.errors import InvalidInput
-from fewshot.jobtemplate import parse_template
 
 WorkerOpt = Annotated[
     str, typer.Option("--worker", help="A name for this worker, e.g. the host name.")
@@ -92,9 +90,11 @@ def exec_runs(
     study: StudyOpt = None,
 ) -> None:
     """Claim runs and run COMMAND for each with FEWSHOT_* set; mark each done or failed by its exit status."""
-    from fewshot.ledger.execution import run_claims
+    from fewshot.worker.loop import run_claims
 
-    with reporting():
+    with reporting(
+        {"max_runs": "--max-runs", "results_dir": "--results", "command": "the command after --"}
+    ):
         seconds = lease_seconds(lease)
         led = open_ledger(ledger, study)
         try:
@@ -130,7 +130,7 @@ def exec_runs(
 
 
 def _print_outcome(o: object) -> None:
-    from fewshot.ledger.execution import ExecOutcome
+    from fewshot.worker.loop import ExecOutcome
 
     assert isinstance(o, ExecOutcome)
     if o.status == "superseded":
@@ -155,20 +155,6 @@ def _print_outcome(o: object) -> None:
     )
 
 
-PLACEHOLDERS = (
-    "run",
-    "arm",
-    "task",
-    "size",
-    "seed",
-    "replicate",
-    "subset",
-    "digest",
-    "ledger",
-    "study",
-)
-
-
 def jobs(
     *,
     template: Annotated[
@@ -182,34 +168,16 @@ def jobs(
 ) -> None:
     """Print one command line per pending run, for any scheduler (values are shell-quoted for
     where they stand: bare, in '...' or in "...")."""
-    with reporting():
-        parsed = parse_template(template, PLACEHOLDERS, option="--template")
-        fields = parsed.fields
+    from fewshot.worker.jobs import job_lines
+
+    with reporting({"template": "--template"}):
         led = open_ledger(ledger, study)
-        if "ledger" in fields and led.url != led.connect_url:
-            raise InvalidInput(
-                "the ledger URL holds a password, which {ledger} would print into every job line. "
-                "Drop {ledger} and give trainers the URL through FEWSHOT_LEDGER instead."
-            )
-        statuses = ["planned", "failed"] if include_failed else ["planned"]
-        runs = led.runs(statuses)
-        name = led.study
-        url = led.connect_url
-        led.close()
-    for r in runs.itertuples():
-        values = {
-            "run": r.key,
-            "arm": r.arm,
-            "task": r.task,
-            "size": r.size,
-            "seed": r.seed,
-            "replicate": r.replicate,
-            "subset": r.subset_file,
-            "digest": r.subset_digest,
-            "ledger": url,
-            "study": name,
-        }
-        typer.echo(parsed.render(values))
+        try:
+            lines = job_lines(led, template, include_failed=include_failed)
+        finally:
+            led.close()
+    for line in lines:
+        typer.echo(line)
 
 
 def done(

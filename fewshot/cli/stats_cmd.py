@@ -22,7 +22,8 @@ from fewshot.cli.common import (
 )
 from fewshot.cli.flags import as_flags
 from fewshot.errors import InvalidInput
-from fewshot.stats.methods import DEFAULT_METHOD, METHODS
+from fewshot.schema import DEFAULT_INTERVAL_METHOD as DEFAULT_METHOD
+from fewshot.schema import INTERVAL_METHODS as METHODS
 
 if TYPE_CHECKING:
     import pandas as pd

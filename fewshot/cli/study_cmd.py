@@ -19,40 +19,20 @@ from fewshot.cli.common import (
     reporting,
     styled,
 )
-from fewshot.ledger.planning import draw_all
-from fewshot.manifest import check_draw_target
-from fewshot.study import Study, load_study
+from fewshot.sampling.draw_folder import check_draw_target
+from fewshot.study import PlanCounts, Study, check_study, load_study
 
 
-def _plan_table(study: Study) -> Table:
+def _plan_table(study: Study, plan: PlanCounts) -> Table:
     table = Table(title=f"runs of {study.name}", title_justify="left")
     table.add_column("arm")
     table.add_column("task")
-    for n in study.sizes:
+    for n in plan.sizes:
         table.add_column(f"n{n}", justify="right")
     table.add_column("total", justify="right", style="bold")
-    counts: dict[tuple[str, str, int], int] = {}
-    for r in study.runs():
-        counts[(r.arm, r.task, r.size)] = counts.get((r.arm, r.task, r.size), 0) + 1
-    for arm in study.arms:
-        for task in study.tasks:
-            row = [counts.get((arm.name, task.name, n), 0) for n in study.sizes]
-            table.add_row(arm.name, task.name, *[str(c) if c else "-" for c in row], str(sum(row)))
+    for (arm, task), row in plan.cells.items():
+        table.add_row(arm, task, *[str(c) if c else "-" for c in row], str(sum(row)))
     return table
-
-
-def _plan_json(study: Study) -> dict[str, object]:
-    runs = list(study.runs())
-    return {
-        "study": study.name,
-        "arms": [a.name for a in study.arms],
-        "tasks": [t.name for t in study.tasks],
-        "sizes": list(study.sizes),
-        "seeds": list(study.seeds),
-        "replicates": study.replicates,
-        "runs": len(runs),
-        "keys": [r.key for r in runs],
-    }
 
 
 def check(
@@ -64,18 +44,17 @@ def check(
 ) -> None:
     """Validate a study file (and draw its subsets in memory), then print its plan. Touches no ledger."""
     with reporting():
-        study = load_study(study_file)
-        draw_all(study)
+        study = check_study(study_file)
     if fmt is TableOrJson.json:
-        print_json(_plan_json(study))
+        print_json(study.plan_dict())
         return
-    out.print(_plan_table(study))
-    n = len(list(study.runs()))
+    plan = study.plan_counts()
+    out.print(_plan_table(study, plan))
     out.print(
-        f"{n} runs: {len(study.arms)} arms x {len(study.tasks)} tasks x {len(study.sizes)} sizes x "
+        f"{plan.total} runs: {len(study.arms)} arms x {len(study.tasks)} tasks x {len(study.sizes)} sizes x "
         f"{len(study.seeds)} seeds x {study.replicates} replicate(s); size 0 only for zero-shot arms"
     )
-    if len(study.seeds) < 3:
+    if plan.few_seeds:
         err.print(
             f"note: {len(study.seeds)} seed(s) per cell is too few for a confidence interval; use 3 or more"
         )

@@ -14,7 +14,8 @@ import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
-from fewshot.manifest import DRAWS_MARKER, manifest_path
+from fewshot.sampling.draw_folder import DRAWS_MARKER
+from fewshot.sampling.manifest import manifest_path
 
 __all__ = ["DrawsSnapshot", "snapshot", "restore"]
 

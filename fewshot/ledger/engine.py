@@ -82,7 +82,7 @@ def resolve_url(ledger: str | os.PathLike[str] | None = None) -> str:
     if backend == "sqlite" and _in_memory(parsed.database, parsed.query):
         raise LedgerError(
             f"ledger URL {mask_url(value)!r} is an in-memory SQLite database, which is lost when "
-            "the command ends. Give a file path instead, e.g. --ledger fewshot.sqlite."
+            "the command ends. Give a file path instead, e.g. `url` fewshot.sqlite."
         )
     return value
 
@@ -135,7 +135,7 @@ def make_engine(url: str) -> Engine:
         path = parsed.database
         if path and path != ":memory:" and not Path(path).parent.exists():
             raise LedgerError(
-                f"ledger folder {Path(path).parent} does not exist. Create it or pick another --ledger."
+                f"ledger folder {Path(path).parent} does not exist. Create it or pick another `url`."
             )
         if path and _read_only_folder(Path(path)):
             # SQLite cannot create the WAL's shared-memory file beside a ledger in a folder we

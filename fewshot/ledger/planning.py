@@ -15,14 +15,12 @@ from sqlalchemy import Connection, insert, select, update
 
 from fewshot.errors import FewshotError
 from fewshot.ledger.models import ArmRow, DrawRow, RunRow, StudyRow, SubsetRow, TaskRow
-from fewshot.manifest import subset_path, write_draw
+from fewshot.sampling.draw_folder import write_draw
+from fewshot.sampling.manifest import subset_path
+from fewshot.sampling.task import TaskDraw, lineage_changes
 from fewshot.study import Study
-from fewshot.taskdraw import TaskDraw, draw_task
 
-__all__ = ["PlanReport", "StudyChangeRefused", "draw_all", "plan_study"]
-
-# lineage fields whose change would alter subsets already drawn
-_SUBSET_LINEAGE = ("rule", "pool", "exclusions", "filter", "strata", "reserve")
+__all__ = ["PlanReport", "StudyChangeRefused", "plan_study"]
 
 
 class StudyChangeRefused(FewshotError, ValueError):
@@ -51,11 +49,6 @@ class PlanReport:
     new_tasks: tuple[str, ...]
     new_sizes: tuple[int, ...]
     new_seeds: tuple[int, ...]
-
-
-def draw_all(study: Study) -> dict[str, TaskDraw]:
-    """Draw every task of the study in memory (this is where pool and size errors surface)."""
-    return {t.name: draw_task(t.draw_spec(study.sizes, study.seeds)) for t in study.tasks}
 
 
 def _spec_json(study: Study) -> str:
@@ -210,7 +203,7 @@ def _sync_tasks(
         if task.name in old:
             r = old[task.name]
             before = json.loads(r.lineage_json)
-            changed = [k for k in _SUBSET_LINEAGE if before.get(k) != lineage.get(k)]
+            changed = lineage_changes(before, lineage)
             if changed:
                 raise StudyChangeRefused(
                     f"{study.path}: task {task.name!r}: {', '.join(changed)} changed since its subsets "

@@ -1,22 +1,19 @@
-"""Results from any trainer: checked result lines, stored once, in bulk.
+"""Results stored once, in bulk, by the rules of the ledger.
 
 The rules: a result is keyed by (run, metric, step); the same value again is a
-no-op; a different value is refused unless the caller asks to replace it; values
-must be finite; an unknown run is refused; a subset digest that differs from the
-planned one is refused. A refusal writes nothing of that call or file.
+no-op; a different value is refused unless the caller asks to replace it; an
+unknown run is refused; a subset digest that differs from the planned one is
+refused. A refusal writes nothing of that call or file. Lines are parsed and
+checked (finite values, known fields) by :mod:`fewshot.results_format`, whose
+names are re-exported here.
 """
 
 from __future__ import annotations
 
-import csv
-import hashlib
-import io
 import json
-import math
 import time
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass, field
-from pathlib import Path
+from dataclasses import dataclass
 from typing import Any
 
 from sqlalchemy import Connection, delete, insert, select, update
@@ -24,8 +21,14 @@ from sqlalchemy import Connection, delete, insert, select, update
 from fewshot.errors import FewshotError
 from fewshot.ledger.models import FINAL_STEP, ResultRow, ResultValueRow, RunRow, SubsetRow
 from fewshot.ledger.runs import check_attempt, find_run, lock_run
-from fewshot.pools import DuplicateKey, repeated_names, unique_keys
-from fewshot.ranges import INT64_MAX
+from fewshot.results_format import (
+    ResultFileError,
+    ResultLine,
+    ResultRefused,
+    check_line,
+    file_digest_bytes,
+    parse_result_file,
+)
 
 __all__ = [
     "ResultLine",
@@ -33,245 +36,10 @@ __all__ = [
     "ResultFileError",
     "StoreReport",
     "check_line",
+    "file_digest_bytes",
     "parse_result_file",
     "store_results",
 ]
-
-LINE_KEYS = {"run", "metric", "value", "step", "values", "subset_digest", "budget"}
-MAX_LINE = 1 << 20  # a result line over 1 MiB is refused as damaged
-
-
-class ResultRefused(FewshotError, ValueError):
-    """A result breaks a rule (non-finite value, wrong digest, a conflicting value)."""
-
-
-class ResultFileError(FewshotError, ValueError):
-    """A results file cannot be read or has a malformed line."""
-
-
-@dataclass(frozen=True)
-class ResultLine:
-    """One checked result, as a trainer reports it.
-
-    Attributes
-    ----------
-    run, metric : str
-    value : float
-    step : int or None
-        None means the final evaluation.
-    values : tuple of float
-        Per-episode values behind ``value`` (may be empty).
-    subset_digest : str or None
-    budget : dict or None
-        e.g. ``{"steps": 5000}``.
-    where : str
-        Where it came from (``file:line`` or ``"call"``), for messages.
-    """
-
-    run: str
-    metric: str
-    value: float
-    step: int | None = None
-    values: tuple[float, ...] = ()
-    subset_digest: str | None = None
-    budget: dict[str, Any] | None = field(default=None, compare=False)
-    where: str = field(default="call", compare=False)
-
-    @property
-    def at(self) -> str:
-        """``"<where>: "`` for messages, or nothing for a direct call."""
-        return "" if self.where == "call" else f"{self.where}: "
-
-
-def _finite(x: object, what: str, where: str) -> float:
-    where = "" if where == "call" else f"{where}: "
-    if isinstance(x, bool) or not isinstance(x, int | float):
-        raise ResultRefused(f"{where}{what} must be a number. Got {x!r}.")
-    try:
-        v = float(x)
-    except OverflowError:  # a whole number beyond a float's range
-        raise ResultRefused(
-            f"{where}{what} is too large for a floating-point number. Got {x!r}."
-        ) from None
-    if not math.isfinite(v):
-        raise ResultRefused(f"{where}{what} must be a finite number. Got {x!r}.")
-    return v
-
-
-def _finite_number(x: float) -> bool:
-    try:
-        return math.isfinite(x)
-    except OverflowError:  # a whole number beyond a float's range
-        return False
-
-
-def check_line(
-    run: object,
-    metric: object,
-    value: object,
-    *,
-    step: object = None,
-    values: object = None,
-    subset_digest: object = None,
-    budget: object = None,
-    where: str = "call",
-) -> ResultLine:
-    """Check one result's fields and return it as a :class:`ResultLine`."""
-    at = "" if where == "call" else f"{where}: "
-    if type(value) is float and math.isfinite(value):  # the common case, without a call
-        v = value
-    else:
-        v = _finite(value, f"value of {metric!r}", where)
-    if not isinstance(run, str) or not run or "\x00" in run:
-        raise ResultRefused(f"{at}'run' must be a run key such as 'arm/task/n10/s0'. Got {run!r}.")
-    if not isinstance(metric, str) or not metric.strip() or len(metric) > 200 or "\x00" in metric:
-        raise ResultRefused(f"{at}'metric' must be a non-empty name. Got {metric!r}.")
-    if step is not None and (
-        isinstance(step, bool) or not isinstance(step, int) or not 0 <= step <= INT64_MAX
-    ):
-        raise ResultRefused(
-            f"{at}'step' must be a whole number from 0 to 2**63-1 (what the ledger's column "
-            f"holds), or null. Got {step!r}."
-        )
-    vals: tuple[float, ...] = ()
-    if values is not None:
-        if not isinstance(values, list | tuple):
-            raise ResultRefused(f"{at}'values' must be a list of numbers. Got {values!r}.")
-        vals = tuple(_finite(x, f"values[{k}]", where) for k, x in enumerate(values))
-    if subset_digest is not None and (
-        not isinstance(subset_digest, str)
-        or len(subset_digest) != 64
-        or any(c not in "0123456789abcdef" for c in subset_digest)
-    ):
-        raise ResultRefused(
-            f"{at}'subset_digest' must be 64 lowercase hex digits (SHA-256). Got {subset_digest!r}."
-        )
-    if budget is not None:
-        if not isinstance(budget, dict) or not all(
-            isinstance(k, str)
-            and isinstance(b, int | float)
-            and not isinstance(b, bool)
-            and _finite_number(b)
-            for k, b in budget.items()
-        ):
-            raise ResultRefused(f"{at}'budget' must map names to finite numbers. Got {budget!r}.")
-    return ResultLine(run, metric, v, step, vals, subset_digest, budget, where)  # type: ignore[arg-type]
-
-
-# --------------------------------------------------------------------------- files
-
-
-def parse_result_file(path: Path, data: bytes) -> list[ResultLine]:
-    """Parse a JSONL or CSV results file; any bad line refuses the whole file, naming the line."""
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = data[: exc.start].count(b"\n") + 1
-        raise ResultFileError(
-            f"{path}, line {line}: not valid UTF-8. Write results as UTF-8."
-        ) from None
-    if text.startswith("\ufeff"):
-        text = text[1:]
-    if path.suffix.lower() == ".csv":
-        return _parse_csv(path, text)
-    return _parse_jsonl(path, text)
-
-
-def _parse_jsonl(path: Path, text: str) -> list[ResultLine]:
-    out = []
-    lines = text.split("\n")
-    for n, line in enumerate(lines, 1):
-        if not line.strip():
-            continue
-        where = f"{path}, line {n}"
-        if len(line) > MAX_LINE:
-            raise ResultFileError(
-                f"{where}: the line is {len(line)} characters long; results lines are short. The file is damaged."
-            )
-        try:
-            obj = json.loads(line, object_pairs_hook=unique_keys)
-        except DuplicateKey as exc:
-            raise ResultFileError(
-                f"{where}: the field {exc.key!r} is given more than once; keep one."
-            ) from None
-        except json.JSONDecodeError as exc:
-            last = n == len(lines) or (n == len(lines) - 1 and lines[-1] == "")
-            hint = " (the last line is cut short: was the trainer still writing?)" if last else ""
-            raise ResultFileError(f"{where}: not valid JSON ({exc.msg}){hint}.") from None
-        out.append(_from_mapping(obj, where))
-    return out
-
-
-def _from_mapping(obj: object, where: str) -> ResultLine:
-    if not isinstance(obj, dict):
-        raise ResultFileError(
-            f"{where}: a result line must be a JSON object. Got {type(obj).__name__}."
-        )
-    unknown = set(obj) - LINE_KEYS
-    if unknown:
-        raise ResultFileError(
-            f"{where}: unknown field(s) {', '.join(sorted(unknown))}. Known: {', '.join(sorted(LINE_KEYS))}."
-        )
-    for key in ("run", "metric", "value"):
-        if key not in obj:
-            raise ResultFileError(
-                f"{where}: missing {key!r}; every result needs run, metric and value."
-            )
-    return check_line(
-        obj["run"],
-        obj["metric"],
-        obj["value"],
-        step=obj.get("step"),
-        values=obj.get("values"),
-        subset_digest=obj.get("subset_digest"),
-        budget=obj.get("budget"),
-        where=where,
-    )
-
-
-def _parse_csv(path: Path, text: str) -> list[ResultLine]:
-    reader = csv.DictReader(io.StringIO(text))
-    header = list(reader.fieldnames or [])
-    twice = repeated_names(header)
-    if twice:
-        raise ResultFileError(
-            f"{path}, line 1: column(s) {', '.join(map(repr, twice))} appear more than once in the "
-            "header; keep one of each."
-        )
-    missing = [k for k in ("run", "metric", "value") if k not in header]
-    if missing:
-        raise ResultFileError(
-            f"{path}, line 1: the header lacks {', '.join(missing)}. Columns: {', '.join(sorted(LINE_KEYS))}."
-        )
-    unknown = set(header) - LINE_KEYS
-    if unknown:
-        raise ResultFileError(f"{path}, line 1: unknown column(s) {', '.join(sorted(unknown))}.")
-    out = []
-    for row in reader:
-        where = f"{path}, line {reader.line_num}"
-        try:
-            obj: dict[str, Any] = {
-                "run": row["run"],
-                "metric": row["metric"],
-                "value": _num(row["value"]),
-            }
-            if row.get("step"):
-                obj["step"] = int(row["step"])
-            for key in ("values", "budget"):
-                if row.get(key):
-                    obj[key] = json.loads(row[key])
-            if row.get("subset_digest"):
-                obj["subset_digest"] = row["subset_digest"]
-        except (ValueError, TypeError) as exc:
-            raise ResultFileError(f"{where}: {exc}.") from None
-        out.append(_from_mapping(obj, where))
-    return out
-
-
-def _num(text: str | None) -> float:
-    if text is None or not text.strip():
-        raise ValueError("'value' is empty")
-    return float(text)
 
 
 # --------------------------------------------------------------------------- storing
@@ -399,7 +167,7 @@ def store_results(
             else:
                 raise ResultRefused(
                     f"{ln.at}run {ln.run!r} already has {ln.metric!r} = {old_value!r} at step "
-                    f"{_step(ln.step)}; refusing {ln.value!r}. Pass replace=True (--replace) to overwrite it."
+                    f"{_step(ln.step)}; refusing {ln.value!r}. Pass `replace` to overwrite it."
                 )
             continue
         if stale:
@@ -495,8 +263,3 @@ def _step(step: int | None) -> str:
 def _chunks(items: Sequence[Any], n: int) -> Iterable[Sequence[Any]]:
     for k in range(0, len(items), n):
         yield items[k : k + n]
-
-
-def file_digest_bytes(data: bytes) -> str:
-    """SHA-256 hex of a results file's content (what makes a re-ingest a no-op)."""
-    return hashlib.sha256(data).hexdigest()

@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import difflib
+import math
+import os
 import time
 from dataclasses import dataclass
 from typing import Any
@@ -114,7 +116,7 @@ def find_run(conn: Connection, sid: int, key: str, study_name: str) -> Row[Any]:
     if other is not None:
         raise UnknownRun(
             f"run {key!r} belongs to another study in this ledger, not to {study_name!r}. "
-            "Pick its study with --study."
+            "Pick its study with `study`."
         )
     keys = list(conn.execute(select(RunRow.key).where(RunRow.study_id == sid)).scalars())
     near = difflib.get_close_matches(key, keys, n=1, cutoff=0.6)
@@ -262,3 +264,40 @@ def settle_run(
         return str(run.status)
     finish_run(conn, run, status, message)
     return status
+
+
+MAX_LEASE = 30 * 86400.0
+MIN_LEASE = 30.0
+# Tests (only) may shorten the lease floor through this variable; see DEVELOPERS.md.
+TESTING_MIN_LEASE = "FEWSHOT_TESTING_MIN_LEASE"
+
+
+def min_lease() -> float:
+    """The shortest lease a claim may have: 30 s, less only under ``FEWSHOT_TESTING_MIN_LEASE``."""
+    raw = os.environ.get(TESTING_MIN_LEASE)
+    if raw:
+        try:
+            value = float(raw)
+        except ValueError:
+            value = MIN_LEASE
+        if math.isfinite(value) and value > 0:
+            return min(value, MIN_LEASE)
+    return MIN_LEASE
+
+
+def check_lease(lease: float) -> None:
+    ok = isinstance(lease, int | float) and not isinstance(lease, bool)
+    floor = min_lease()
+    if not ok or not math.isfinite(lease) or not floor <= lease <= MAX_LEASE:
+        raise FewshotError(
+            f"lease must be a finite number of seconds from {floor:g} to 30 days "
+            f"({MAX_LEASE:.0f}); a shorter lease would run out while a busy machine renews it. "
+            f"Got {lease!r}."
+        )
+
+
+def check_worker(worker: str) -> None:
+    if not isinstance(worker, str) or not worker.strip() or len(worker) > 200 or "\x00" in worker:
+        raise FewshotError(
+            "worker must be a non-empty name of at most 200 characters, e.g. the host name."
+        )

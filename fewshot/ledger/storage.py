@@ -41,13 +41,13 @@ def check_ledger_file(path: Path) -> None:
         raise LedgerError(f"cannot read the ledger {path} ({exc.strerror}).") from None
     if not header.startswith(SQLITE_MAGIC):
         hint = (
-            " It looks like a study file: give it to `fewshot init`, and the ledger with --ledger."
+            " It looks like a study file: give it to `fewshot init`, and the ledger as `url`."
             if path.suffix.lower() == ".toml"
             else ""
         )
         raise LedgerError(
             f"{path} is not a fewshot ledger (not a SQLite database); {_REFUSED}.{hint} Point "
-            "--ledger (or FEWSHOT_LEDGER) at the study's ledger, e.g. fewshot.sqlite."
+            "`url` (or FEWSHOT_LEDGER) at the study's ledger, e.g. fewshot.sqlite."
         )
     if len(header) < 100:
         raise _damaged(path, f"only {size} bytes, less than a SQLite header")
@@ -66,7 +66,7 @@ def check_ledger_file(path: Path) -> None:
         shown = ", ".join(sorted(tables)[:6])
         raise LedgerError(
             f"{path} is a SQLite database of another program (tables: {shown}), not a fewshot "
-            f"ledger; {_REFUSED}. Give fewshot a ledger of its own, e.g. --ledger fewshot.sqlite."
+            f"ledger; {_REFUSED}. Give fewshot a ledger of its own, e.g. `url` fewshot.sqlite."
         )
 
 

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from fewshot.errors import InvalidInput
+from fewshot.schema import MIN_TRUSTED_SEEDS
 from fewshot.stats.bootstrap import DEFAULT_METHOD, METHODS, DegenerateCells, bootstrap_cells
 from fewshot.stats.estimators import estimator as get_estimator
 
@@ -23,8 +24,8 @@ __all__ = ["CURVE_COLUMNS", "FEW_SEEDS", "CurveSettings", "curves", "variance_sh
 
 # Below this many seeds an interval is not read as evidence: cells are flagged ("!", "under 3
 # seeds") in every table, figure and note (common practice; at 2 seeds a t interval has 1 degree
-# of freedom and a bootstrap has 3 distinct resamples).
-FEW_SEEDS = 3
+# of freedom and a bootstrap has 3 distinct resamples). One number, kept in fewshot.schema.
+FEW_SEEDS = MIN_TRUSTED_SEEDS
 
 CURVE_COLUMNS = [
     "arm",

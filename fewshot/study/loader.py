@@ -1,4 +1,5 @@
-"""Study files: parse and validate a study TOML into frozen dataclasses, and expand its runs.
+"""Study files: parse and validate a study TOML into the frozen dataclasses of
+:mod:`fewshot.study.model`.
 
 Every error names the file, the key and, where it can be found, the line. Unknown
 keys are refused with the nearest known key as a suggestion. Paths in a study
@@ -11,175 +12,18 @@ import difflib
 import math
 import re
 import tomllib
-from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass, field
+from collections.abc import Mapping, Sequence
+from dataclasses import fields
 from pathlib import Path
 from typing import Any
 
-from fewshot.errors import FewshotError, InvalidInput
+from fewshot.errors import InvalidInput
+from fewshot.files import read_text
 from fewshot.names import check_name
 from fewshot.ranges import INT64_MAX, MAX_REPLICATES
-from fewshot.taskdraw import DrawSpec
+from fewshot.study.model import Arm, Study, StudyError, Task
 
-__all__ = ["Arm", "Task", "Study", "RunSpec", "StudyError", "load_study", "run_key"]
-
-
-class StudyError(FewshotError, ValueError):
-    """A study file is malformed or breaks a rule."""
-
-
-@dataclass(frozen=True)
-class Arm:
-    """One condition of the study.
-
-    Attributes
-    ----------
-    name : str
-    role : str
-        ``"pretrained"`` or ``"baseline"``.
-    checkpoint : str or None
-        Where the arm's starting weights are (free text for the trainer).
-    zero_shot : bool
-        Whether size 0 (no fine-tuning) is planned for this arm.
-    attributes : mapping of str to float
-        Free numbers, e.g. a parameter count for a scaling view.
-    """
-
-    name: str
-    role: str
-    checkpoint: str | None = None
-    zero_shot: bool = False
-    attributes: Mapping[str, float] = field(default_factory=dict)
-
-
-@dataclass(frozen=True)
-class Task:
-    """A held-out target task and how its subsets are drawn.
-
-    Attributes
-    ----------
-    name : str
-    pool : pathlib.Path
-        The pool file (absolute, resolved against the study file).
-    id_column, keep_top, rank_by, lowest_first, stratify_by, allocation, reserve, exclude
-        Draw settings (see :class:`fewshot.taskdraw.DrawSpec`).
-    floor, expert : float or None
-        Reference scores for normalised scores.
-    group : str or None
-        Task group for aggregates.
-    """
-
-    name: str
-    pool: Path
-    id_column: str = "id"
-    keep_top: int | None = None
-    rank_by: str | None = None
-    lowest_first: bool = False
-    stratify_by: str | None = None
-    allocation: str = "proportional"
-    reserve: int = 0
-    exclude: Path | None = None
-    floor: float | None = None
-    expert: float | None = None
-    group: str | None = None
-
-    def draw_spec(self, sizes: tuple[int, ...], seeds: tuple[int, ...]) -> DrawSpec:
-        """The sampler's settings for this task."""
-        return DrawSpec(
-            task=self.name,
-            pool=self.pool,
-            sizes=sizes,
-            seeds=seeds,
-            id_column=self.id_column,
-            keep_top=self.keep_top,
-            rank_by=self.rank_by,
-            lowest_first=self.lowest_first,
-            stratify_by=self.stratify_by,
-            allocation=self.allocation,
-            reserve=self.reserve,
-            exclude=self.exclude,
-        )
-
-
-@dataclass(frozen=True)
-class RunSpec:
-    """One planned fine-tuning run: (arm, task, size, seed, replicate).
-
-    Attributes
-    ----------
-    key : str
-        ``arm/task/n<size>/s<seed>`` (``/r<replicate>`` when the study has replicates).
-    """
-
-    key: str
-    arm: str
-    task: str
-    size: int
-    seed: int
-    replicate: int
-
-
-def run_key(arm: str, task: str, size: int, seed: int, replicate: int, replicates: int) -> str:
-    """The run key of DESIGN.md: ``arm/task/n<size>/s<seed>[/r<replicate>]``."""
-    key = f"{arm}/{task}/n{size}/s{seed}"
-    return f"{key}/r{replicate}" if replicates > 1 else key
-
-
-@dataclass(frozen=True)
-class Study:
-    """A parsed study file.
-
-    Attributes
-    ----------
-    name, metric, higher_is_better, sizes, seeds, replicates, baseline
-        As in the file; sizes and seeds are sorted.
-    arms, tasks : tuple
-    path : pathlib.Path
-        The study file.
-    draws_dir : pathlib.Path
-        Where subset id files are written (``draws/<study>`` beside the file by default).
-    """
-
-    name: str
-    metric: str
-    higher_is_better: bool
-    sizes: tuple[int, ...]
-    seeds: tuple[int, ...]
-    replicates: int
-    baseline: str
-    arms: tuple[Arm, ...]
-    tasks: tuple[Task, ...]
-    path: Path
-    draws_dir: Path
-
-    def arm(self, name: str) -> Arm:
-        """The arm called ``name``."""
-        return next(a for a in self.arms if a.name == name)
-
-    def task(self, name: str) -> Task:
-        """The task called ``name``."""
-        return next(t for t in self.tasks if t.name == name)
-
-    def runs(self) -> Iterator[RunSpec]:
-        """Every planned run: arms × tasks × sizes × seeds × replicates (size 0 only for zero-shot arms)."""
-        for arm in self.arms:
-            for task in self.tasks:
-                for size in self.sizes:
-                    if size == 0 and not arm.zero_shot:
-                        continue
-                    for seed in self.seeds:
-                        for r in range(self.replicates):
-                            yield RunSpec(
-                                run_key(arm.name, task.name, size, seed, r, self.replicates),
-                                arm.name,
-                                task.name,
-                                size,
-                                seed,
-                                r,
-                            )
-
-
-# --------------------------------------------------------------------------- parsing
+__all__ = ["load_study"]
 
 _TOP = {
     "name",
@@ -194,22 +38,8 @@ _TOP = {
     "draws_dir",
     "description",
 }
-_ARM = {"name", "role", "checkpoint", "zero_shot", "attributes"}
-_TASK = {
-    "name",
-    "pool",
-    "id_column",
-    "keep_top",
-    "rank_by",
-    "lowest_first",
-    "stratify_by",
-    "allocation",
-    "reserve",
-    "exclude",
-    "floor",
-    "expert",
-    "group",
-}
+_ARM = {f.name for f in fields(Arm)}
+_TASK = {f.name for f in fields(Task)}  # the task's own keys and its draw settings
 
 
 class _Where:
@@ -253,21 +83,7 @@ def load_study(path: str | Path) -> Study:
         duplicate names, and settings that break a rule.
     """
     p = Path(path)
-    try:
-        raw = p.read_bytes()
-    except FileNotFoundError:
-        raise StudyError(f"{p}: study file not found. Check the path.") from None
-    except OSError as exc:
-        raise StudyError(f"{p}: cannot read the study file ({exc.strerror}).") from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = raw[: exc.start].count(b"\n") + 1
-        raise StudyError(
-            f"{p}, line {line}: not valid UTF-8. Save the study file as UTF-8."
-        ) from None
-    if text.startswith("\ufeff"):  # a byte-order mark, as some editors write: not part of the TOML
-        text = text[1:]
+    text = read_text(p, what="study file", error=StudyError)
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -436,22 +252,6 @@ def _task(doc: dict[str, Any], i: int, base: Path, where: _Where) -> Task:
     _unknown(doc, _TASK, where, "tasks", i)
     g = lambda key, kind, **kw: _get(doc, key, kind, where, "tasks", i, **kw)  # noqa: E731
     name = _named(g("name", "str", required=True), "task name", "name", where, "tasks", i)
-    keep, rank = g("keep_top", "int"), g("rank_by", "str")
-    if (keep is None) != (rank is None):
-        key = "keep_top" if keep is not None else "rank_by"
-        raise where.error(
-            "keep_top and rank_by go together: give both or neither.", key, "tasks", i
-        )
-    if keep is not None and keep < 1:
-        raise where.error(f"must be 1 or more. Got {keep}.", "keep_top", "tasks", i)
-    allocation = g("allocation", "str", default="proportional")
-    if allocation not in ("proportional", "equal"):
-        raise where.error(
-            f"must be 'proportional' or 'equal'. Got {allocation!r}.", "allocation", "tasks", i
-        )
-    reserve = g("reserve", "int", default=0)
-    if reserve < 0:
-        raise where.error(f"must be 0 or more. Got {reserve}.", "reserve", "tasks", i)
     group = g("group", "str")
     if group is not None:
         group = _named(group, "group name", "group", where, "tasks", i)
@@ -461,18 +261,22 @@ def _task(doc: dict[str, Any], i: int, base: Path, where: _Where) -> Task:
             "floor and expert must differ (they scale normalised scores).", "expert", "tasks", i
         )
     exclude = g("exclude", "str")
-    return Task(
+    task = Task(
         name=name,
         pool=(base / g("pool", "str", required=True)),
         id_column=g("id_column", "str", default="id"),
-        keep_top=keep,
-        rank_by=rank,
+        keep_top=g("keep_top", "int"),
+        rank_by=g("rank_by", "str"),
         lowest_first=g("lowest_first", "bool", default=False),
         stratify_by=g("stratify_by", "str"),
-        allocation=allocation,
-        reserve=reserve,
+        allocation=g("allocation", "str", default="proportional"),
+        reserve=g("reserve", "int", default=0),
         exclude=(base / exclude) if exclude else None,
         floor=None if floor is None else float(floor),
         expert=None if expert is None else float(expert),
         group=group,
     )
+    problem = task.settings_problem()  # the draw rules, checked as `fewshot draw` checks them
+    if problem is not None:
+        raise where.error(problem[1], problem[0], "tasks", i)
+    return task

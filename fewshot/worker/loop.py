@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import collections
 import os
-import re
 import shutil
 import signal
 import subprocess
@@ -39,10 +38,12 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from fewshot.errors import FewshotError, InvalidInput
-from fewshot.ledger.core import Ledger
+from fewshot.ledger.ledger import Ledger
 from fewshot.ledger.runs import Claim
-from fewshot.pools import read_id_list
+from fewshot.results_format import attempt_of_file, results_file_for
 from fewshot.sampling import subset_digest
+from fewshot.sampling.pools import read_id_list
+from fewshot.worker.fields import run_environment
 
 __all__ = [
     "ExecOutcome",
@@ -123,49 +124,9 @@ class ExecOutcome:
     ingested: int
 
 
-def results_file_for(folder: Path, key: str, attempt: int) -> Path:
-    """Where an attempt's results file goes under ``folder``: slashes of the run key become
-    ``__`` and the attempt is named (``arm__task__n10__s0.attempt2.jsonl``), so that two
-    attempts of a run never append to one file."""
-    return folder / f"{key.replace('/', '__')}.attempt{attempt}.jsonl"
-
-
-_ATTEMPT_FILE = re.compile(r"\.attempt([0-9]{1,18})\.(?:jsonl|csv)$", re.IGNORECASE)
-
-
-def attempt_of_file(path: Path) -> int | None:
-    """The attempt a results file of the work loop names (``*.attempt2.jsonl``), or None."""
-    m = _ATTEMPT_FILE.search(path.name)
-    return None if m is None else int(m.group(1)) or None
-
-
-def run_environment(
-    claim: Claim, ledger_url: str, study: str, results: Path | None
-) -> dict[str, str]:
-    """The ``FEWSHOT_*`` variables a trainer sees."""
-    env = {
-        "FEWSHOT_RUN": claim.key,
-        "FEWSHOT_LEDGER": ledger_url,
-        "FEWSHOT_STUDY": study,
-        "FEWSHOT_ARM": claim.arm,
-        "FEWSHOT_TASK": claim.task,
-        "FEWSHOT_SIZE": str(claim.size),
-        "FEWSHOT_SEED": str(claim.seed),
-        "FEWSHOT_REPLICATE": str(claim.replicate),
-        "FEWSHOT_SUBSET": claim.subset_file,
-        "FEWSHOT_SUBSET_DIGEST": claim.subset_digest,
-        "FEWSHOT_ATTEMPT": str(claim.attempt),
-    }
-    if results is not None:
-        env["FEWSHOT_RESULTS"] = str(results)
-    return env
-
-
 def _check_command(command: Sequence[str]) -> None:
     if not command:
-        raise InvalidInput(
-            "exec needs a command after '--', e.g. fewshot exec --worker w1 -- python train.py"
-        )
+        raise InvalidInput("`command` must name the trainer to run, e.g. ['python', 'train.py'].")
     exe = command[0]
     if os.sep not in exe and shutil.which(exe) is None:
         raise InvalidInput(
@@ -191,7 +152,7 @@ def run_claims(
     or ``max_runs`` have run."""
     _check_command(command)
     if max_runs is not None and max_runs < 1:
-        raise InvalidInput(f"--max-runs must be 1 or more. Got {max_runs}.")
+        raise InvalidInput(f"`max_runs` must be 1 or more. Got {max_runs}.")
     if results_dir is not None:
         _make_results_dir(results_dir)
     study = ledger.study
@@ -350,13 +311,15 @@ def _run_one(
 
 def _make_results_dir(folder: Path) -> None:
     if folder.exists() and not folder.is_dir():
-        raise InvalidInput(f"--results {folder} is a file, not a folder. Give a folder.")
+        raise InvalidInput(f"`results_dir` {folder} is a file, not a folder. Give a folder.")
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise InvalidInput(
-            f"--results {folder}: cannot create the folder ({exc.strerror}). Pick a folder you "
+            f"`results_dir` {folder}: cannot create the folder ({exc.strerror}). Pick a folder you "
             "may write."
         ) from None
     if not os.access(folder, os.W_OK | os.X_OK):
-        raise InvalidInput(f"--results {folder}: you may not write in this folder. Pick another.")
+        raise InvalidInput(
+            f"`results_dir` {folder}: you may not write in this folder. Pick another."
+        )

@@ -16,12 +16,16 @@ import json
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from fewshot.errors import PoolError
-from fewshot.sampling import hash_ids, repeated_ids
+from fewshot.files import decode_utf8
+from fewshot.sampling.rule import hash_ids, repeated_ids
+
+if TYPE_CHECKING:  # pandas is imported where a pool is read, so a command loads it only then
+    import pandas as pd
 
 __all__ = ["Pool", "read_pool", "read_id_list", "file_digest", "POOL_FORMATS"]
 
@@ -66,8 +70,10 @@ class Pool:
         self._require(name, option)
         return [("" if v is None else str(v)) for v in self.frame[name].tolist()]
 
-    def numeric(self, name: str, *, option: str = "--rank-by") -> np.ndarray:
+    def numeric(self, name: str, *, option: str = "rank_by") -> np.ndarray:
         """A column converted to floats; non-numeric text is an error naming the row."""
+        import pandas as pd
+
         self._require(name, option)
         raw = self.frame[name]
         values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
@@ -130,7 +136,9 @@ def read_pool(path: str | Path, id_column: str = "id") -> Pool:
     if fmt == "parquet":
         frame = _parse_parquet(p, data)
     else:
-        text = _decode(p, data)  # checks UTF-8 and names the line that is not
+        text = decode_utf8(
+            data, p, what="file", error=PoolError
+        )  # checks UTF-8 and names the line that is not
         if fmt == "csv":
             body = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
             frame = _parse_csv(p, text, body, id_column)
@@ -141,7 +149,7 @@ def read_pool(path: str | Path, id_column: str = "id") -> Pool:
     if id_column not in frame.columns:
         raise PoolError(
             f"{p}: no id column {id_column!r}. Columns found: "
-            f"{', '.join(map(str, frame.columns))}. Name the id column with --id-column."
+            f"{', '.join(map(str, frame.columns))}. Name the id column with `id_column`."
         )
     ids = _checked_ids(p, fmt, frame[id_column], id_column)
     hashes = hash_ids(ids)
@@ -157,6 +165,8 @@ def read_pool(path: str | Path, id_column: str = "id") -> Pool:
 
 def _checked_ids(p: Path, fmt: str, raw: pd.Series, id_column: str) -> tuple[str, ...]:
     """The id column as strings, checked with vectorised pandas (the pool may be large)."""
+    import pandas as pd
+
     text = raw if pd.api.types.is_string_dtype(raw) else raw.astype(str)
     text = text.where(raw.notna(), "")
     where = Pool(p, fmt, "", id_column, (), pd.DataFrame())._where
@@ -175,19 +185,9 @@ def _checked_ids(p: Path, fmt: str, raw: pd.Series, id_column: str) -> tuple[str
     return tuple(text.tolist())
 
 
-def _decode(p: Path, data: bytes) -> str:
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = data[: exc.start].count(b"\n") + 1
-        raise PoolError(
-            f"{p}: line {line} is not valid UTF-8 (byte 0x{data[exc.start]:02x}). "
-            "Save the file as UTF-8."
-        ) from None
-    return text[1:] if text.startswith("\ufeff") else text
-
-
 def _parse_csv(p: Path, text: str, body: bytes, id_column: str) -> pd.DataFrame:
+    import pandas as pd
+
     if not text.strip():
         raise PoolError(f"{p}: the file is empty. A pool CSV needs a header and rows.")
     header = next(csv.reader(io.StringIO(text)), [])
@@ -211,6 +211,8 @@ def _parse_csv(p: Path, text: str, body: bytes, id_column: str) -> pd.DataFrame:
 
 
 def _parse_jsonl(p: Path, text: str) -> pd.DataFrame:
+    import pandas as pd
+
     rows: list[dict[str, object]] = []
     for n, line in enumerate(text.splitlines(), 1):
         if not line.strip():
@@ -262,6 +264,8 @@ def _text(value: object) -> str | None:
 
 
 def _parse_parquet(p: Path, data: bytes) -> pd.DataFrame:
+    import pandas as pd
+
     try:
         import pyarrow  # noqa: F401
     except ImportError:
@@ -288,5 +292,5 @@ def read_id_list(path: str | Path, *, what: str = "id list") -> list[str]:
         raise PoolError(f"{p}: {what} not found. Check the path.") from None
     except OSError as exc:
         raise PoolError(f"{p}: cannot read the {what} ({exc.strerror}).") from None
-    text = _decode(p, data)
+    text = decode_utf8(data, p, what="file", error=PoolError)
     return [line.rstrip("\r") for line in text.split("\n") if line.strip()]

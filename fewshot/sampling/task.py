@@ -7,40 +7,46 @@ draws and their lineage; the ``draw`` command and the ledger both call it.
 from __future__ import annotations
 
 from collections import Counter
-from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, fields
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
 from fewshot.errors import DrawError, InvalidInput, PoolError
 from fewshot.names import check_name
-from fewshot.pools import Pool, file_digest, read_id_list, read_pool
-from fewshot.sampling import (
-    MAX_SEED,
-    RULE_VERSION,
-    HashedIds,
-    NestedDraw,
-    draw_nested,
-    exclude_ids,
-    keep_top,
-)
+from fewshot.sampling.nested import HashedIds, NestedDraw, draw_nested
+from fewshot.sampling.pools import Pool, file_digest, read_id_list, read_pool
+from fewshot.sampling.rule import MAX_SEED, RULE_VERSION, exclude_ids, keep_top
 
-__all__ = ["DrawSpec", "Lineage", "TaskDraw", "draw_task"]
+__all__ = [
+    "DrawSettings",
+    "DrawSpec",
+    "Lineage",
+    "SUBSET_LINEAGE_KEYS",
+    "TaskDraw",
+    "draw_task",
+    "lineage_changes",
+]
+
+# The keys of a stored lineage (:meth:`Lineage.as_dict`) whose change alters subsets already
+# drawn: the draw folder (manifest) and the ledger (plan) both refuse such a change.
+SUBSET_LINEAGE_KEYS = ("rule", "pool", "exclusions", "filter", "strata", "reserve")
 
 
-@dataclass(frozen=True)
-class DrawSpec:
-    """What to draw for one task.
+def lineage_changes(old: Mapping[str, Any], new: Mapping[str, Any]) -> list[str]:
+    """The :data:`SUBSET_LINEAGE_KEYS` on which two stored lineages differ."""
+    return [k for k in SUBSET_LINEAGE_KEYS if old.get(k) != new.get(k)]
+
+
+@dataclass(frozen=True, kw_only=True)
+class DrawSettings:
+    """How a task's subsets are drawn from its pool: held once, by :class:`DrawSpec` and by a
+    study's :class:`~fewshot.study.Task` (both subclass it), with one set of checks.
 
     Attributes
     ----------
-    task : str
-        The task's name (the naming rule applies).
-    pool : pathlib.Path
-        The pool file.
-    sizes, seeds : tuple of int
-        The ladder and the seeds.
     id_column : str
         The pool column holding episode ids.
     keep_top, rank_by, lowest_first
@@ -54,10 +60,6 @@ class DrawSpec:
         A file of ids never to be drawn, one a line.
     """
 
-    task: str
-    pool: Path
-    sizes: tuple[int, ...]
-    seeds: tuple[int, ...]
     id_column: str = "id"
     keep_top: int | None = None
     rank_by: str | None = None
@@ -66,6 +68,56 @@ class DrawSpec:
     allocation: str = "proportional"
     reserve: int = 0
     exclude: Path | None = None
+
+    def draw_settings(self) -> dict[str, Any]:
+        """The settings as keyword arguments (of :class:`DrawSpec`, say)."""
+        return {f.name: getattr(self, f.name) for f in fields(DrawSettings)}
+
+    def settings_problem(self) -> tuple[str, str] | None:
+        """The first setting that breaks a rule, as (parameter, message naming it), or None."""
+        keep, rank = self.keep_top, self.rank_by
+        if (keep is None) != (rank is None):
+            return (
+                "keep_top" if keep is not None else "rank_by",
+                "keep_top and rank_by go together: give both (e.g. keep_top 2000 ranked by "
+                "return) or neither.",
+            )
+        if keep is not None and (isinstance(keep, bool) or not isinstance(keep, int) or keep < 1):
+            return "keep_top", f"keep_top must be a whole number, 1 or more. Got {keep!r}."
+        if self.lowest_first and keep is None:
+            return "lowest_first", "lowest_first only applies with keep_top and rank_by."
+        if self.allocation not in ("proportional", "equal"):
+            return (
+                "allocation",
+                f"allocation must be 'proportional' or 'equal'. Got {self.allocation!r}.",
+            )
+        if self.allocation != "proportional" and self.stratify_by is None:
+            return "allocation", "allocation only applies with stratify_by."
+        reserve = self.reserve
+        if isinstance(reserve, bool) or not isinstance(reserve, int) or reserve < 0:
+            return "reserve", f"reserve must be a whole number, 0 or more. Got {reserve!r}."
+        return None
+
+
+@dataclass(frozen=True)
+class DrawSpec(DrawSettings):
+    """What to draw for one task: its name, pool, sizes and seeds, and the
+    :class:`DrawSettings` (keyword-only).
+
+    Attributes
+    ----------
+    task : str
+        The task's name (the naming rule applies).
+    pool : pathlib.Path
+        The pool file.
+    sizes, seeds : tuple of int
+        The ladder and the seeds.
+    """
+
+    task: str
+    pool: Path
+    sizes: tuple[int, ...]
+    seeds: tuple[int, ...]
 
 
 @dataclass(frozen=True)
@@ -171,7 +223,7 @@ def draw_task(spec: DrawSpec, *, on_seed: Callable[[int], None] | None = None) -
     filt: dict[str, object] | None = None
     if spec.keep_top is not None:
         assert spec.rank_by is not None
-        scores = pool.numeric(spec.rank_by, option="--rank-by")[positions]
+        scores = pool.numeric(spec.rank_by, option="rank_by")[positions]
         ids_now = [pool.ids[j] for j in positions]
         kept_ids = keep_top(
             ids_now, scores, spec.keep_top, highest=not spec.lowest_first, column=spec.rank_by
@@ -221,7 +273,7 @@ def _strata(
 ) -> tuple[dict[str, object] | None, list[str] | None]:
     if spec.stratify_by is None:
         return None, None
-    column = pool.column(spec.stratify_by, option="--stratify-by")
+    column = pool.column(spec.stratify_by, option="stratify_by")
     labels = [column[j] for j in positions]
     blank = [pool.ids[positions[k]] for k, v in enumerate(labels) if v == ""]
     if blank:
@@ -247,7 +299,7 @@ def _check_disjoint(draws: Sequence[NestedDraw], excluded: set[str]) -> None:
 def _draw_task_iv(spec: DrawSpec) -> None:
     check_name(spec.task, what="task name")
     if not spec.seeds:
-        raise InvalidInput("seeds must list at least one seed, e.g. --seeds 0,1,2.")
+        raise InvalidInput("seeds must list at least one seed, e.g. (0, 1, 2).")
     for s in spec.seeds:
         if isinstance(s, bool) or not isinstance(s, int) or not 0 <= s <= MAX_SEED:
             raise InvalidInput(
@@ -255,16 +307,6 @@ def _draw_task_iv(spec: DrawSpec) -> None:
             )
     if len(set(spec.seeds)) != len(spec.seeds):
         raise InvalidInput(f"seeds must not repeat. Got {list(spec.seeds)}.")
-    if (spec.keep_top is None) != (spec.rank_by is None):
-        raise InvalidInput(
-            "keep_top and rank_by go together: give both (e.g. --keep-top 2000 --rank-by return) "
-            "or neither."
-        )
-    if spec.lowest_first and spec.keep_top is None:
-        raise InvalidInput("--lowest-first only applies with --keep-top and --rank-by.")
-    if spec.allocation not in ("proportional", "equal"):
-        raise InvalidInput(
-            f"allocation must be 'proportional' or 'equal'. Got {spec.allocation!r}."
-        )
-    if spec.allocation != "proportional" and spec.stratify_by is None:
-        raise InvalidInput("--allocation only applies with --stratify-by.")
+    problem = spec.settings_problem()
+    if problem is not None:
+        raise InvalidInput(problem[1])
