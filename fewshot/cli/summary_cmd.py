@@ -17,7 +17,7 @@ from fewshot.cli.stats_cmd import (
     SeedOpt,
     SelectOpt,
 )
-from fewshot.stats.methods import DEFAULT_METHOD
+from fewshot.schema import DEFAULT_INTERVAL_METHOD as DEFAULT_METHOD
 
 THRESHOLD_HELP = "Level for episodes-to-threshold, as a fraction of the expert (default 0.8)."
 
