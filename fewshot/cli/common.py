@@ -7,6 +7,7 @@ import math
 import os
 import re
 import sys
+import warnings
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from enum import StrEnum
@@ -67,7 +68,11 @@ def reporting(flags: Mapping[str, str] | None = None) -> Iterator[None]:
     the messages is masked (:func:`fewshot.masking.mask_secrets`).
     """
     try:
-        yield
+        with warnings.catch_warnings():
+            if not STATE["debug"]:  # numerical warnings of the libraries are not for the user
+                warnings.simplefilter("ignore", RuntimeWarning)
+                warnings.filterwarnings("ignore", module=r"(numpy|pandas|scipy)(\.|$)")
+            yield
     except FewshotError as exc:
         if STATE["debug"]:
             _mask_chain(exc)

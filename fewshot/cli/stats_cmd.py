@@ -134,8 +134,9 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
             FEW_SEEDS,
         )
     )
-    for note in report.notes:
-        err.print(f"note: {note}")
+    for note in dict.fromkeys(report.notes):
+        if not note.startswith("seeds behind each interval"):  # the line above says it
+            err.print(f"note: {note}")
 
 
 def curves_cmd(
