@@ -7,7 +7,6 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
 
 import typer
-from rich.table import Table
 from rich.text import Text
 
 from fewshot.cli.common import (
@@ -20,6 +19,7 @@ from fewshot.cli.common import (
     reporting,
     styled,
 )
+from fewshot.cli.fit import fits, make_table, split_interval
 from fewshot.cli.flags import as_flags
 from fewshot.errors import InvalidInput
 from fewshot.schema import DEFAULT_INTERVAL_METHOD as DEFAULT_METHOD
@@ -97,24 +97,41 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
         f"{report.scores.metric} ({label}{report.kind}): {curve_title(report)}, "
         f"{s.confidence:.0%} {t['method'].iloc[0] if len(t) else s.method} intervals"
     )
-    table = Table(title=title, title_justify="left")
     firsts = (
         ["arm", "task"]
         if report.kind == "per-task"
         else (["arm", "group", "aggregate"] if report.kind == "by-group" else ["arm", "aggregate"])
     )
-    for c in firsts:
-        table.add_column(c, no_wrap=True)
     show_n = t["n_seeds"].nunique() > 1
-    for n in sizes:
-        table.add_column(f"n{n}", justify="right")
+    wide_rows = []
     for key, rows in t.groupby(firsts, sort=False, dropna=False):
         by = {int(r["size"]): r for _, r in rows.iterrows()}
         keys = key if isinstance(key, tuple) else (key,)
-        table.add_row(
-            *[str(k) for k in keys],
-            *[Text.from_markup(_cell(by[n], show_n)) if n in by else "" for n in sizes],
+        wide_rows.append(
+            [
+                *[str(k) for k in keys],
+                *[Text.from_markup(_cell(by[n], show_n)) if n in by else "" for n in sizes],
+            ]
         )
+    columns = [*firsts, *[f"n{n}" for n in sizes]]
+    if fits(columns, wide_rows, out.width):
+        table = make_table(title, columns, wide_rows)
+    else:  # size down the rows: one line per cell of the curve, the interval in its own column
+        long_rows = []
+        for _, r in t.iterrows():
+            low = "" if math.isnan(r["low"]) else _fmt(r["low"])
+            est, interval = split_interval(_fmt(r["estimate"]), low, _fmt(r["high"]))
+            flag = " !" if r["n_seeds"] < FEW_SEEDS else ""
+            long_rows.append(
+                [
+                    *[str(r[k]) if r[k] is not None else "-" for k in firsts],
+                    str(r["size"]),
+                    est,
+                    Text(interval + flag),
+                    str(r["n_seeds"]),
+                ]
+            )
+        table = make_table(title, [*firsts, "size", "estimate", "interval", "seeds"], long_rows)
     out.print(table)
     seeds = (
         f"seeds per interval: {int(t['n_seeds'].min())} to {int(t['n_seeds'].max())} (nK in a cell)"

@@ -166,16 +166,19 @@ def _figures(rep: StudyReports) -> str:
 def _transfer_section(cmp: CompareReport) -> str:
     body = table_html(transfer_rows(cmp.table))
     if len(cmp.thresholds):
-        body += f"<h3>Episodes to reach {number(cmp.threshold)} (normalised)</h3>" + table_html(
-            [
-                {
-                    "arm": r["arm"],
-                    "task": r["task"],
-                    "episodes": flagged(threshold_cell(r), r["n_seeds"]),
-                    "seeds": str(r["n_seeds"]),
-                }
-                for _, r in cmp.thresholds.iterrows()
-            ]
+        body += (
+            f"<h3>Episodes to reach {number(cmp.threshold)} of expert (normalised)</h3>"
+            + table_html(
+                [
+                    {
+                        "arm": r["arm"],
+                        "task": r["task"],
+                        "episodes": flagged(threshold_cell(r), r["n_seeds"]),
+                        "seeds": str(r["n_seeds"]),
+                    }
+                    for _, r in cmp.thresholds.iterrows()
+                ]
+            )
         )
     if len(cmp.areas):
         body += "<h3>Area under the normalised curve (log size)</h3>" + table_html(
