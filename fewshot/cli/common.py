@@ -281,7 +281,6 @@ def open_ledger(ledger: str | None, study: str | None, *, create: bool = False) 
 
 def print_frame(frame: Any, fmt: str) -> None:
     """A DataFrame as CSV or JSON records on stdout."""
-    if fmt == "csv":
-        sys.stdout.write(frame.to_csv(index=False))
-    else:
-        sys.stdout.write(frame.to_json(orient="records", indent=2, date_format="iso") + "\n")
+    from fewshot.cli.exports import export_text
+
+    sys.stdout.write(export_text(frame, fmt))
