@@ -53,7 +53,9 @@ def test_json_and_csv_exports_are_plain_and_agree(ledger: str):
 
 def test_export_help_offers_only_what_it_accepts(ledger: str):
     shown = runner.invoke(app, ["export", "--help"], env={"COLUMNS": "120"})
-    assert "csv|json" in shown.output and "|table" not in shown.output and "table|" not in shown.output
+    assert (
+        "csv|json" in shown.output and "|table" not in shown.output and "table|" not in shown.output
+    )
     refused = runner.invoke(app, ["export", "--format", "table", "--ledger", ledger])
     assert refused.exit_code == 2 and "Traceback" not in refused.output
 
@@ -70,3 +72,26 @@ def test_status_fits(ledger: str, width: int):
     assert "…" not in shown.output
     table = [line for line in shown.output.splitlines() if line[:1] in "┏┃┡│└"]
     assert table and max(len(line) for line in table) <= width
+
+
+@pytest.mark.parametrize("command", ["curves", "compare", "plot", "report", "summary"])
+def test_help_shows_the_accepted_values_of_every_choice(command: str):
+    from fewshot.analysis import FIGURE_KINDS
+    from fewshot.cli.stats_cmd import ESTIMATOR_NAMES, FIGURE_NAMES
+    from fewshot.schema import INTERVAL_METHODS
+    from fewshot.stats import ESTIMATORS
+
+    assert set(ESTIMATOR_NAMES) == set(ESTIMATORS) and tuple(FIGURE_NAMES) == tuple(FIGURE_KINDS)
+    shown = runner.invoke(app, [command, "--help"], env={"COLUMNS": "200"})
+    lines = {
+        line.split()[1]: line
+        for line in shown.output.splitlines()
+        if line.startswith("│ ")
+        if len(line.split()) > 1 and line.split()[1].startswith("--")
+    }
+    assert "|".join(ESTIMATOR_NAMES) in lines["--estimator"]
+    assert "|".join(INTERVAL_METHODS) in lines["--ci"]
+    if "--format" in lines:
+        assert "<str>" not in lines["--format"]
+    refused = runner.invoke(app, [command, "--estimator", "average"])
+    assert refused.exit_code == 2 and "average" in refused.output

@@ -22,8 +22,10 @@ from fewshot.cli.common import (
 from fewshot.cli.fit import fits, fitted_tables, make_table
 from fewshot.cli.flags import as_flags
 from fewshot.cli.stats_cmd import (
+    DEFAULT_CI,
     CiOpt,
     ConfidenceOpt,
+    Estimator,
     EstimatorOpt,
     MetricOpt,
     ResamplesOpt,
@@ -31,7 +33,6 @@ from fewshot.cli.stats_cmd import (
     SelectOpt,
 )
 from fewshot.errors import InvalidInput
-from fewshot.schema import DEFAULT_INTERVAL_METHOD as DEFAULT_METHOD
 
 
 class CompareFormat(StrEnum):
@@ -70,8 +71,8 @@ def compare(
     ] = 0.8,
     metric: MetricOpt = None,
     select: SelectOpt = "final",
-    estimator: EstimatorOpt = "mean",
-    ci: CiOpt = DEFAULT_METHOD,
+    estimator: EstimatorOpt = Estimator.mean,
+    ci: CiOpt = DEFAULT_CI,
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,
@@ -265,12 +266,14 @@ def _measure_tables(rep) -> list[Table]:  # type: ignore[no-untyped-def]
         return _flag(text + (" !" if int(n) < FEW_SEEDS and text else ""))  # type: ignore[call-overload]
 
     t = rep.table
-    keys = [[str(r["arm"]), str(r["task"]), str(r["size"])] for _, r in t.iterrows()]
-    diff = [
+    keys: list[list[str | Text]] = [
+        [str(r["arm"]), str(r["task"]), str(r["size"])] for _, r in t.iterrows()
+    ]
+    diff: list[list[str | Text]] = [
         [*k, number(r["difference"]), iv(r["low"], r["high"], r["n_seeds"]), str(r["n_seeds"])]
         for k, (_, r) in zip(keys, t.iterrows(), strict=True)
     ]
-    prob = [
+    prob: list[list[str | Text]] = [
         [
             *k,
             number(r.get("probability")),
@@ -278,7 +281,7 @@ def _measure_tables(rep) -> list[Table]:  # type: ignore[no-untyped-def]
         ]
         for k, (_, r) in zip(keys, t.iterrows(), strict=True)
     ]
-    eff = []
+    eff: list[list[str | Text]] = []
     for k, (_, r) in zip(keys, t.iterrows(), strict=True):
         if pd.isna(r.get("effective")):
             continue

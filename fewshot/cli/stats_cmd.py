@@ -3,8 +3,9 @@
 from __future__ import annotations
 
 import math
+from enum import StrEnum
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.text import Text
@@ -37,8 +38,30 @@ SelectOpt = Annotated[
         "--select", help="Score rule: final, best:<val metric>, least:<val metric>, last:<k>."
     ),
 ]
-EstimatorOpt = Annotated[str, typer.Option("--estimator", help="mean, median or iqm over seeds.")]
-CiOpt = Annotated[str, typer.Option("--ci", help=f"Interval method: {', '.join(METHODS)}.")]
+ESTIMATOR_NAMES = ("mean", "median", "iqm")  # fewshot.stats.ESTIMATORS (a test holds them equal)
+FIGURE_NAMES = ("curves", "aggregate", "difference", "summary", "profile", "scaling")
+
+
+class Estimator(StrEnum):
+    mean = "mean"
+    median = "median"
+    iqm = "iqm"
+
+
+class CurvesFormat(StrEnum):
+    table = "table"
+    csv = "csv"
+    json = "json"
+    latex = "latex"
+
+
+# the interval methods and figure kinds by name (help lists them; a test holds them equal to the
+# library's own lists)
+IntervalMethod = StrEnum("IntervalMethod", [(m, m) for m in METHODS])  # type: ignore[misc]
+FigureKind = StrEnum("FigureKind", [(k, k) for k in FIGURE_NAMES])  # type: ignore[misc]
+DEFAULT_CI: Any = IntervalMethod(DEFAULT_METHOD)
+EstimatorOpt = Annotated[Estimator, typer.Option("--estimator", help="Estimator over seeds.")]
+CiOpt = Annotated[IntervalMethod, typer.Option("--ci", help="Interval method.")]
 ConfidenceOpt = Annotated[
     float, typer.Option("--confidence", help="Confidence level of the intervals.")
 ]
@@ -103,7 +126,7 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
         else (["arm", "group", "aggregate"] if report.kind == "by-group" else ["arm", "aggregate"])
     )
     show_n = t["n_seeds"].nunique() > 1
-    wide_rows = []
+    wide_rows: list[list[str | Text]] = []
     for key, rows in t.groupby(firsts, sort=False, dropna=False):
         by = {int(r["size"]): r for _, r in rows.iterrows()}
         keys = key if isinstance(key, tuple) else (key,)
@@ -117,7 +140,7 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     if fits(columns, wide_rows, out.width):
         table = make_table(title, columns, wide_rows)
     else:  # size down the rows: one line per cell of the curve, the interval in its own column
-        long_rows = []
+        long_rows: list[list[str | Text]] = []
         for _, r in t.iterrows():
             low = "" if math.isnan(r["low"]) else _fmt(r["low"])
             est, interval = split_interval(_fmt(r["estimate"]), low, _fmt(r["high"]))
@@ -163,8 +186,8 @@ def curves_cmd(
     normalised: Annotated[
         bool, typer.Option("--normalised", help="Scores as (score - floor) / (expert - floor).")
     ] = False,
-    estimator: EstimatorOpt = "mean",
-    ci: CiOpt = DEFAULT_METHOD,
+    estimator: EstimatorOpt = Estimator.mean,
+    ci: CiOpt = DEFAULT_CI,
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,
@@ -174,7 +197,9 @@ def curves_cmd(
     by_group: Annotated[
         bool, typer.Option("--by-group", help="Aggregate normalised scores per task group.")
     ] = False,
-    fmt: Annotated[str, typer.Option("--format", help="table, csv, json or latex.")] = "table",
+    fmt: Annotated[
+        CurvesFormat, typer.Option("--format", help="Output format.")
+    ] = CurvesFormat.table,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -232,10 +257,7 @@ def curves_cmd(
 
 def plot(
     *,
-    kind: Annotated[
-        str,
-        typer.Option("--kind", help="curves, aggregate, difference, summary, profile or scaling."),
-    ],
+    kind: Annotated[FigureKind, typer.Option("--kind", help="The figure.")],
     out_file: Annotated[Path, typer.Option("--out", help="The figure file: .png, .svg or .pdf.")],
     metric: MetricOpt = None,
     select: SelectOpt = "final",
@@ -251,8 +273,8 @@ def plot(
     by_group: Annotated[
         bool, typer.Option("--by-group", help="Aggregate per task group (--kind aggregate).")
     ] = False,
-    estimator: EstimatorOpt = "mean",
-    ci: CiOpt = DEFAULT_METHOD,
+    estimator: EstimatorOpt = Estimator.mean,
+    ci: CiOpt = DEFAULT_CI,
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,
@@ -304,8 +326,8 @@ def report(
         ),
     ] = 0.8,
     select: SelectOpt = "final",
-    estimator: EstimatorOpt = "mean",
-    ci: CiOpt = DEFAULT_METHOD,
+    estimator: EstimatorOpt = Estimator.mean,
+    ci: CiOpt = DEFAULT_CI,
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,

@@ -10,14 +10,15 @@ import typer
 from fewshot.cli.common import LedgerOpt, StudyOpt, open_ledger, out, print_json, reporting
 from fewshot.cli.flags import as_flags
 from fewshot.cli.stats_cmd import (
+    DEFAULT_CI,
     CiOpt,
     ConfidenceOpt,
+    Estimator,
     EstimatorOpt,
     ResamplesOpt,
     SeedOpt,
     SelectOpt,
 )
-from fewshot.schema import DEFAULT_INTERVAL_METHOD as DEFAULT_METHOD
 
 THRESHOLD_HELP = "Level for episodes-to-threshold, as a fraction of the expert (default 0.8)."
 
@@ -36,8 +37,8 @@ def summary(
     ] = None,
     threshold: Annotated[float, typer.Option("--threshold", help=THRESHOLD_HELP)] = 0.8,
     select: SelectOpt = "final",
-    estimator: EstimatorOpt = "mean",
-    ci: CiOpt = DEFAULT_METHOD,
+    estimator: EstimatorOpt = Estimator.mean,
+    ci: CiOpt = DEFAULT_CI,
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,
