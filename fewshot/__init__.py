@@ -64,6 +64,8 @@ _EXPORTS = {
     "seeds_needed_report": "fewshot.analysis",
     "StudyReports": "fewshot.analysis",
     "analyse_study": "fewshot.analysis",
+    "Findings": "fewshot.analysis",
+    "summarise_study": "fewshot.analysis",
     "curves_json": "fewshot.analysis",
     "compare_json": "fewshot.analysis",
     "seeds_json": "fewshot.analysis",

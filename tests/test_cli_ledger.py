@@ -251,7 +251,7 @@ BAD_COMMANDS = [
     (["jobs", "--template", "x {}"], "unknown placeholder"),
     (["ingest", "missing-dir"], "no such results file or folder"),
     (["status", "--study", "other"], "has no study 'other'"),
-    (["export", "--format", "table"], "csv or json"),
+    (["export", "--format", "table"], "'table' is not one of 'csv'"),
 ]
 
 

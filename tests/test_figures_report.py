@@ -110,7 +110,7 @@ def test_svg_and_pdf(ledger, tmp_path: Path, suffix):
 @pytest.mark.parametrize(
     ("args", "fragment"),
     [
-        (["--kind", "pie", "--out", "x.png"], "--kind must be one of"),
+        (["--kind", "pie", "--out", "x.png"], "'pie' is not one of"),
         (["--kind", "curves", "--out", "x.gif"], "must end in .png, .svg or .pdf"),
     ],
 )

@@ -23,6 +23,14 @@ from fewshot.analysis.data import (
     study_scores,
 )
 from fewshot.analysis.figures import FIGURE_KINDS, compare_figure, curve_figure, make_figure
+from fewshot.analysis.findings import (
+    DEFAULT_THRESHOLD,
+    Finding,
+    Findings,
+    findings,
+    study_findings,
+    summarise_study,
+)
 from fewshot.analysis.seeds import SeedsReport, seeds_needed_report, seeds_report
 from fewshot.analysis.shapes import (
     compare_json,
@@ -36,6 +44,12 @@ from fewshot.analysis.transfer import CompareReport, compare_report, compare_sco
 
 __all__ = [
     "BOTH_AGGREGATES",
+    "DEFAULT_THRESHOLD",
+    "Finding",
+    "Findings",
+    "findings",
+    "study_findings",
+    "summarise_study",
     "FIGURE_KINDS",
     "CompareReport",
     "CurveReport",

@@ -71,7 +71,7 @@ def compare_json(report: CompareReport) -> dict[str, Any]:
         "rows": json_records(report.table),
         "thresholds": json_records(report.thresholds),
         "areas": json_records(report.areas),
-        "headline": json_records(report.headline),
+        "fraction_of_tasks_above_threshold": json_records(report.headline),
         "scaling": json_records(report.scaling),
         "notes": report.notes,
     }

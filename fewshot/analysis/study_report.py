@@ -65,7 +65,7 @@ def analyse_study(
     *,
     select: str = "final",
     baseline: str | None = None,
-    threshold: float = 1.0,
+    threshold: float = 0.8,
 ) -> StudyReports:
     """Read the study once (``source``: a ledger, or a study read by :func:`read_study` with its
     status) and compute its curves, aggregates and comparison once each."""

@@ -69,7 +69,7 @@ def compare_report(
     *,
     baseline: str | None = None,
     arms: list[str] | None = None,
-    threshold: float = 1.0,
+    threshold: float = 0.8,
     metric: str | None = None,
     select: str = "final",
 ) -> CompareReport:
@@ -92,7 +92,7 @@ def compare_scores(
     *,
     baseline: str,
     arms: list[str] | None = None,
-    threshold: float = 1.0,
+    threshold: float = 0.8,
     arm_table: pd.DataFrame | None = None,
 ) -> CompareReport:
     """:func:`compare_report` on scores already read (no ledger): what the tests hold to the mirror

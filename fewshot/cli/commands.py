@@ -7,7 +7,16 @@ from typing import Annotated
 import typer
 
 from fewshot import __version__
-from fewshot.cli import compare_cmd, demo_cmd, draw_cmd, results_cmd, runs_cmd, stats_cmd, study_cmd
+from fewshot.cli import (
+    compare_cmd,
+    demo_cmd,
+    draw_cmd,
+    results_cmd,
+    runs_cmd,
+    stats_cmd,
+    study_cmd,
+    summary_cmd,
+)
 from fewshot.cli.cluster_cmd import exec_renamed, work
 from fewshot.cli.common import STATE
 from fewshot.cli.slurm_cmd import slurm
@@ -65,6 +74,7 @@ app.command("plot")(stats_cmd.plot)
 app.command("report")(stats_cmd.report)
 app.command("demo")(demo_cmd.demo)
 app.command("seeds-needed")(compare_cmd.seeds_needed_cmd)
+app.command("summary")(summary_cmd.summary)
 
 
 def main() -> None:

@@ -7,6 +7,7 @@ import math
 import os
 import re
 import sys
+import warnings
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from enum import StrEnum
@@ -67,7 +68,11 @@ def reporting(flags: Mapping[str, str] | None = None) -> Iterator[None]:
     the messages is masked (:func:`fewshot.masking.mask_secrets`).
     """
     try:
-        yield
+        with warnings.catch_warnings():
+            if not STATE["debug"]:  # numerical warnings of the libraries are not for the user
+                warnings.simplefilter("ignore", RuntimeWarning)
+                warnings.filterwarnings("ignore", module=r"(numpy|pandas|scipy)(\.|$)")
+            yield
     except FewshotError as exc:
         if STATE["debug"]:
             _mask_chain(exc)
@@ -280,7 +285,6 @@ def open_ledger(ledger: str | None, study: str | None, *, create: bool = False) 
 
 def print_frame(frame: Any, fmt: str) -> None:
     """A DataFrame as CSV or JSON records on stdout."""
-    if fmt == "csv":
-        sys.stdout.write(frame.to_csv(index=False))
-    else:
-        sys.stdout.write(frame.to_json(orient="records", indent=2, date_format="iso") + "\n")
+    from fewshot.cli.exports import export_text
+
+    sys.stdout.write(export_text(frame, fmt))

@@ -19,10 +19,13 @@ from fewshot.cli.common import (
     print_json,
     reporting,
 )
+from fewshot.cli.fit import fits, fitted_tables, make_table
 from fewshot.cli.flags import as_flags
 from fewshot.cli.stats_cmd import (
+    DEFAULT_CI,
     CiOpt,
     ConfidenceOpt,
+    Estimator,
     EstimatorOpt,
     MetricOpt,
     ResamplesOpt,
@@ -30,7 +33,6 @@ from fewshot.cli.stats_cmd import (
     SelectOpt,
 )
 from fewshot.errors import InvalidInput
-from fewshot.schema import DEFAULT_INTERVAL_METHOD as DEFAULT_METHOD
 
 
 class CompareFormat(StrEnum):
@@ -61,12 +63,16 @@ def compare(
         str | None, typer.Option("--arms", help="Arms to compare, comma-separated (default: all).")
     ] = None,
     threshold: Annotated[
-        float, typer.Option("--threshold", help="Normalised level for episodes-to-threshold.")
-    ] = 1.0,
+        float,
+        typer.Option(
+            "--threshold",
+            help="Level for episodes-to-threshold, as a fraction of the expert (default 0.8).",
+        ),
+    ] = 0.8,
     metric: MetricOpt = None,
     select: SelectOpt = "final",
-    estimator: EstimatorOpt = "mean",
-    ci: CiOpt = DEFAULT_METHOD,
+    estimator: EstimatorOpt = Estimator.mean,
+    ci: CiOpt = DEFAULT_CI,
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,
@@ -77,7 +83,7 @@ def compare(
     study: StudyOpt = None,
 ) -> None:
     """Arms against a baseline: paired differences, P(improvement), effective data, episodes to a threshold."""
-    from fewshot.analysis import compare_json, compare_report
+    from fewshot.analysis import compare_json, compare_report, curve_scores, findings, read_study
     from fewshot.stats import CurveSettings
     from fewshot.tables import latex_table, transfer_rows
 
@@ -85,8 +91,9 @@ def compare(
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
         led = open_ledger(ledger, study)
         try:
+            data = read_study(led)
             rep = compare_report(
-                led,
+                data,
                 settings,
                 baseline=baseline,
                 arms=_arms(arms),
@@ -106,7 +113,18 @@ def compare(
         rows = transfer_rows(rep.table)
         typer.echo(latex_table(rows, _caption(rep)), nl=False)
         return
+    aggregate = None
+    if rep.value == "normalised" and len(rep.over_tasks) > 1:
+        with reporting(), as_flags():
+            aggregate = curve_scores(rep.scores, settings, across_tasks=True, arms=data.arm_order)
+    print_findings(findings(rep, aggregate, arm_order=data.arm_order))
     print_transfer(rep)
+
+
+def print_findings(found) -> None:  # type: ignore[no-untyped-def]
+    """The findings summary on the terminal, wrapped to its width."""
+    out.print("Findings", style="bold")
+    out.print(found.text(out.width), markup=False, highlight=False)
 
 
 def _unit(rep) -> str:  # type: ignore[no-untyped-def]
@@ -137,23 +155,25 @@ def _flag(text: str) -> Text:
 
 def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
     """The transfer tables of a compare report, on the terminal."""
+    import pandas as pd
+
     from fewshot.stats.curves import FEW_SEEDS
-    from fewshot.tables import flagged, threshold_cell, transfer_rows, with_interval
+    from fewshot.tables import flagged, number, threshold_cell, transfer_rows, with_interval
 
     rows = transfer_rows(rep.table)
-    table = Table(
-        title=f"against {rep.baseline}: {_unit(rep)} difference, P(improvement), effective data",
-        title_justify="left",
-    )
-    for c in rows[0] if rows else []:
-        table.add_column(
-            c, justify="right" if c not in ("arm", "task") else "left", no_wrap=c in ("arm", "task")
-        )
-    for r in rows:
-        table.add_row(*[_flag(v) for v in r.values()])
-    out.print(table)
+    title = f"against {rep.baseline}: {_unit(rep)} difference, P(improvement), effective data"
+    columns = list(rows[0]) if rows else []
+    cells = [[_flag(v) for v in r.values()] for r in rows]
+    if fits(columns, cells, out.width):
+        out.print(make_table(title, columns, cells))
+    else:  # one measure per table, the interval in its own column
+        for table in _measure_tables(rep):
+            out.print(table)
     if len(rep.thresholds):
-        t2 = Table(title=f"episodes to reach {rep.threshold:g} (normalised)", title_justify="left")
+        t2 = Table(
+            title=f"episodes to reach {rep.threshold:g} of expert (normalised)",
+            title_justify="left",
+        )
         for c in ("arm", "task", "episodes", "seeds"):
             t2.add_column(c)
         for _, r in rep.thresholds.iterrows():
@@ -181,25 +201,36 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
             )
         out.print(t5)
     if len(rep.headline):
-        t3 = Table(
-            title=f"fraction of tasks above {rep.threshold:g} (normalised)", title_justify="left"
-        )
+        title = f"fraction of tasks above {rep.threshold:g} of expert (normalised)"
         sizes = sorted(set(rep.headline["size"]))
-        t3.add_column("arm")
-        for n in sizes:
-            t3.add_column(f"n{n}", justify="right")
+        wide = []
         for arm, g in rep.headline.groupby("arm", sort=False):
             by = {int(r["size"]): r for _, r in g.iterrows()}
-            t3.add_row(
-                str(arm),
-                *[
-                    Text(with_interval(by[n]["fraction"], by[n]["low"], by[n]["high"]))
-                    if n in by
-                    else ""
-                    for n in sizes
-                ],
+            wide.append(
+                [
+                    str(arm),
+                    *[
+                        Text(with_interval(by[n]["fraction"], by[n]["low"], by[n]["high"]))
+                        if n in by
+                        else ""
+                        for n in sizes
+                    ],
+                ]
             )
-        out.print(t3)
+        columns = ["arm", *[f"n{n}" for n in sizes]]
+        if fits(columns, wide, out.width):
+            out.print(make_table(title, columns, wide))
+        else:  # size down the rows
+            long = [
+                [
+                    str(r["arm"]),
+                    str(r["size"]),
+                    number(r["fraction"]),
+                    "" if pd.isna(r["low"]) else f"[{number(r['low'])}, {number(r['high'])}]",
+                ]
+                for _, r in rep.headline.iterrows()
+            ]
+            out.print(make_table(title, ["arm", "size", "fraction", "interval"], long))
     if len(rep.scaling):
         attr = rep.scaling["attribute"].iloc[0]
         t4 = Table(title=f"scaling: across-task IQM by {attr}", title_justify="left")
@@ -216,6 +247,76 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
     out.print(f"[dim]\\[low, high] = interval; ! = fewer than {FEW_SEEDS} seeds[/]", markup=True)
     for note in rep.notes:
         err.print(f"note: {note}")
+
+
+def _measure_tables(rep) -> list[Table]:  # type: ignore[no-untyped-def]
+    """The transfer table split by measure (for a narrow screen): difference, P(improvement),
+    effective data; one table per arm when a measure is still too wide."""
+    import pandas as pd
+
+    from fewshot.stats.curves import FEW_SEEDS
+    from fewshot.tables import bound, number
+
+    def iv(low: object, high: object, n: object, size_bound: bool = False) -> Text:
+        if low is None or pd.isna(low) or pd.isna(high):
+            text = ""
+        else:
+            f = bound if size_bound else number
+            text = f"[{f(low)}, {f(high)}]"  # type: ignore[arg-type]
+        return _flag(text + (" !" if int(n) < FEW_SEEDS and text else ""))  # type: ignore[call-overload]
+
+    t = rep.table
+    keys: list[list[str | Text]] = [
+        [str(r["arm"]), str(r["task"]), str(r["size"])] for _, r in t.iterrows()
+    ]
+    diff: list[list[str | Text]] = [
+        [*k, number(r["difference"]), iv(r["low"], r["high"], r["n_seeds"]), str(r["n_seeds"])]
+        for k, (_, r) in zip(keys, t.iterrows(), strict=True)
+    ]
+    prob: list[list[str | Text]] = [
+        [
+            *k,
+            number(r.get("probability")),
+            iv(r.get("p_low"), r.get("p_high"), r.get("p_seeds", 0) or 0),
+        ]
+        for k, (_, r) in zip(keys, t.iterrows(), strict=True)
+    ]
+    eff: list[list[str | Text]] = []
+    for k, (_, r) in zip(keys, t.iterrows(), strict=True):
+        if pd.isna(r.get("effective")):
+            continue
+        mark = r.get("mark") if isinstance(r.get("mark"), str) else ""
+        label = r.get("label") if isinstance(r.get("label"), str) else ""
+        eff.append(
+            [
+                *k,
+                f"{mark}{number(r['effective'])} (x{number(r['multiplier'], 2)})",
+                iv(r.get("effective_low"), r.get("effective_high"), r["n_seeds"], True),
+                label,
+            ]
+        )
+    w = out.width
+    unit = _unit(rep)
+    tables = fitted_tables(
+        f"{unit} difference against {rep.baseline}",
+        ["arm", "task", "size", "difference", "interval", "seeds"],
+        diff,
+        w,
+    )
+    tables += fitted_tables(
+        f"P(improvement) over {rep.baseline}",
+        ["arm", "task", "size", "P(impr.)", "interval"],
+        prob,
+        w,
+    )
+    if eff:
+        tables += fitted_tables(
+            f"effective data D_E (x data multiplier) against {rep.baseline}",
+            ["arm", "task", "size", "D_E (x)", "interval", "reading"],
+            eff,
+            w,
+        )
+    return tables
 
 
 def seeds_needed_cmd(

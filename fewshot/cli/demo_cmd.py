@@ -28,8 +28,8 @@ def demo(
     ] = 0,
 ) -> None:
     """Run a whole few-shot transfer study end to end and write its report."""
-    from fewshot.cli.compare_cmd import print_transfer
-    from fewshot.cli.stats_cmd import print_curve_table
+    from fewshot.analysis import study_findings
+    from fewshot.cli.compare_cmd import print_findings
     from fewshot.demo.run import analyse_demo, prepare_demo, run_workers
 
     start = time.monotonic()
@@ -49,10 +49,15 @@ def demo(
             job = bar.add_task(f"runs ({n} workers)", total=demo_run.total)
             run_workers(demo_run, n, on_tick=lambda done, total: bar.update(job, completed=done))
         result = analyse_demo(demo_run)
-    print_curve_table(result.curves)
-    print_transfer(result.compare)
+    print_findings(study_findings(result.reports))
     counts = result.counts
+    led = demo_run.ledger
     out.print(
-        f"{counts['done']} runs done, {counts['failed']} failed, in {time.monotonic() - start:.0f} s. "
-        f"Report: {result.report}\nLedger: {demo_run.ledger} (try: fewshot status --ledger {demo_run.ledger})"
+        f"\n{counts['done']} runs done, {counts['failed']} failed, in {time.monotonic() - start:.0f} s."
+        f"\nReport (figures and every table): {result.report}\nDetails:\n"
+        f"  fewshot curves --ledger {led} --normalised\n"
+        f"  fewshot compare --ledger {led}\n"
+        f"  fewshot status --ledger {led}",
+        markup=False,
+        highlight=False,
     )

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import json
 import math
+import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
 
 import typer
-from rich.table import Table
 from rich.text import Text
 
 from fewshot.cli.common import (
@@ -25,6 +25,8 @@ from fewshot.cli.common import (
     progress,
     reporting,
 )
+from fewshot.cli.exports import ExportFormat, export_text
+from fewshot.cli.fit import fits, make_table
 from fewshot.errors import InvalidInput
 
 if TYPE_CHECKING:
@@ -198,30 +200,30 @@ def status(
         )
         return
     sizes = sorted(set(rep.cells["size"]))
-    table = Table(
-        title=f"{rep.study}: runs done / total (running, failed, has results but not marked done)",
-        title_justify="left",
-    )
-    table.add_column("arm")
-    for n in sizes:
-        table.add_column(f"n{n}", justify="right")
+    title = f"{rep.study}: runs done / total (running, failed, has results but not marked done)"
+
+    def cell(c) -> Text:  # type: ignore[no-untyped-def]
+        extra = "".join(
+            [
+                f" [yellow]{c.running}r[/]" if c.running else "",
+                f" [red]{c.failed}f[/]" if c.failed else "",
+                f" [cyan]{c.has_results}h[/]" if c.has_results else "",
+            ]
+        )
+        return Text.from_markup(f"{c.done}/{c.total}{extra}")
+
+    wide: list[list[str | Text]] = []
     for arm, cells in rep.cells.groupby("arm", sort=False):
         by = {int(c.size): c for c in cells.itertuples()}
-        row: list[str | Text] = []
-        for n in sizes:
-            c = by.get(n)
-            if c is None:
-                row.append("-")
-                continue
-            extra = "".join(
-                [
-                    f" [yellow]{c.running}r[/]" if c.running else "",
-                    f" [red]{c.failed}f[/]" if c.failed else "",
-                    f" [cyan]{c.has_results}h[/]" if c.has_results else "",
-                ]
-            )
-            row.append(Text.from_markup(f"{c.done}/{c.total}{extra}"))
-        table.add_row(str(arm), *row)
+        wide.append([str(arm), *[cell(by[n]) if n in by else "-" for n in sizes]])
+    columns = ["arm", *[f"n{n}" for n in sizes]]
+    if fits(columns, wide, out.width):
+        table = make_table(title, columns, wide)
+    else:  # size down the rows
+        long: list[list[str | Text]] = [
+            [str(c.arm), str(c.size), cell(c)] for c in rep.cells.itertuples()
+        ]
+        table = make_table(title, ["arm", "size", "runs"], long)
     out.print(table)
     if len(rep.expired):
         out.print(
@@ -260,7 +262,7 @@ def status(
 
 def export(
     *,
-    fmt: Annotated[TableJsonCsv, typer.Option("--format", help="csv or json.")] = TableJsonCsv.csv,
+    fmt: Annotated[ExportFormat, typer.Option("--format", help="csv or json.")] = ExportFormat.csv,
     out_file: Annotated[
         Path | None, typer.Option("--out", help="Write to this file instead of stdout.")
     ] = None,
@@ -269,18 +271,12 @@ def export(
 ) -> None:
     """Write every result as a tidy table (one row per result), the input of the statistics."""
     with reporting():
-        if fmt is TableJsonCsv.table:
-            raise InvalidInput("export writes csv or json; use --format csv or --format json.")
         led = open_ledger(ledger, study)
         frame = led.results()
         led.close()
+        text = export_text(frame, fmt.value)
         if out_file is not None:
-            text = (
-                frame.to_csv(index=False)
-                if fmt is TableJsonCsv.csv
-                else frame.to_json(orient="records", indent=2, date_format="iso")
-            )
             write_text_atomic(out_file, text, what="export")
             err.print(f"wrote {len(frame)} results to {out_file}")
             return
-    print_frame(frame, fmt.value)
+    sys.stdout.write(text)

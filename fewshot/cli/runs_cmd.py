@@ -166,7 +166,7 @@ def jobs(
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
-    """Print one command line per pending run, for any scheduler (values are shell-quoted for
+    """Print one command line per planned run, for any scheduler (values are shell-quoted for
     where they stand: bare, in '...' or in "...")."""
     from fewshot.worker.jobs import job_lines
 

@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 import math
+from enum import StrEnum
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
-from rich.table import Table
 from rich.text import Text
 
 from fewshot.cli.common import (
@@ -20,6 +20,7 @@ from fewshot.cli.common import (
     reporting,
     styled,
 )
+from fewshot.cli.fit import fits, make_table, split_interval
 from fewshot.cli.flags import as_flags
 from fewshot.errors import InvalidInput
 from fewshot.schema import DEFAULT_INTERVAL_METHOD as DEFAULT_METHOD
@@ -37,8 +38,30 @@ SelectOpt = Annotated[
         "--select", help="Score rule: final, best:<val metric>, least:<val metric>, last:<k>."
     ),
 ]
-EstimatorOpt = Annotated[str, typer.Option("--estimator", help="mean, median or iqm over seeds.")]
-CiOpt = Annotated[str, typer.Option("--ci", help=f"Interval method: {', '.join(METHODS)}.")]
+ESTIMATOR_NAMES = ("mean", "median", "iqm")  # fewshot.stats.ESTIMATORS (a test holds them equal)
+FIGURE_NAMES = ("curves", "aggregate", "difference", "summary", "profile", "scaling")
+
+
+class Estimator(StrEnum):
+    mean = "mean"
+    median = "median"
+    iqm = "iqm"
+
+
+class CurvesFormat(StrEnum):
+    table = "table"
+    csv = "csv"
+    json = "json"
+    latex = "latex"
+
+
+# the interval methods and figure kinds by name (help lists them; a test holds them equal to the
+# library's own lists)
+IntervalMethod = StrEnum("IntervalMethod", [(m, m) for m in METHODS])  # type: ignore[misc]
+FigureKind = StrEnum("FigureKind", [(k, k) for k in FIGURE_NAMES])  # type: ignore[misc]
+DEFAULT_CI: Any = IntervalMethod(DEFAULT_METHOD)
+EstimatorOpt = Annotated[Estimator, typer.Option("--estimator", help="Estimator over seeds.")]
+CiOpt = Annotated[IntervalMethod, typer.Option("--ci", help="Interval method.")]
 ConfidenceOpt = Annotated[
     float, typer.Option("--confidence", help="Confidence level of the intervals.")
 ]
@@ -97,24 +120,41 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
         f"{report.scores.metric} ({label}{report.kind}): {curve_title(report)}, "
         f"{s.confidence:.0%} {t['method'].iloc[0] if len(t) else s.method} intervals"
     )
-    table = Table(title=title, title_justify="left")
     firsts = (
         ["arm", "task"]
         if report.kind == "per-task"
         else (["arm", "group", "aggregate"] if report.kind == "by-group" else ["arm", "aggregate"])
     )
-    for c in firsts:
-        table.add_column(c, no_wrap=True)
     show_n = t["n_seeds"].nunique() > 1
-    for n in sizes:
-        table.add_column(f"n{n}", justify="right")
+    wide_rows: list[list[str | Text]] = []
     for key, rows in t.groupby(firsts, sort=False, dropna=False):
         by = {int(r["size"]): r for _, r in rows.iterrows()}
         keys = key if isinstance(key, tuple) else (key,)
-        table.add_row(
-            *[str(k) for k in keys],
-            *[Text.from_markup(_cell(by[n], show_n)) if n in by else "" for n in sizes],
+        wide_rows.append(
+            [
+                *[str(k) for k in keys],
+                *[Text.from_markup(_cell(by[n], show_n)) if n in by else "" for n in sizes],
+            ]
         )
+    columns = [*firsts, *[f"n{n}" for n in sizes]]
+    if fits(columns, wide_rows, out.width):
+        table = make_table(title, columns, wide_rows)
+    else:  # size down the rows: one line per cell of the curve, the interval in its own column
+        long_rows: list[list[str | Text]] = []
+        for _, r in t.iterrows():
+            low = "" if math.isnan(r["low"]) else _fmt(r["low"])
+            est, interval = split_interval(_fmt(r["estimate"]), low, _fmt(r["high"]))
+            flag = " !" if r["n_seeds"] < FEW_SEEDS else ""
+            long_rows.append(
+                [
+                    *[str(r[k]) if r[k] is not None else "-" for k in firsts],
+                    str(r["size"]),
+                    est,
+                    Text(interval + flag),
+                    str(r["n_seeds"]),
+                ]
+            )
+        table = make_table(title, [*firsts, "size", "estimate", "interval", "seeds"], long_rows)
     out.print(table)
     seeds = (
         f"seeds per interval: {int(t['n_seeds'].min())} to {int(t['n_seeds'].max())} (nK in a cell)"
@@ -134,8 +174,9 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
             FEW_SEEDS,
         )
     )
-    for note in report.notes:
-        err.print(f"note: {note}")
+    for note in dict.fromkeys(report.notes):
+        if not note.startswith("seeds behind each interval"):  # the line above says it
+            err.print(f"note: {note}")
 
 
 def curves_cmd(
@@ -145,8 +186,8 @@ def curves_cmd(
     normalised: Annotated[
         bool, typer.Option("--normalised", help="Scores as (score - floor) / (expert - floor).")
     ] = False,
-    estimator: EstimatorOpt = "mean",
-    ci: CiOpt = DEFAULT_METHOD,
+    estimator: EstimatorOpt = Estimator.mean,
+    ci: CiOpt = DEFAULT_CI,
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,
@@ -156,7 +197,9 @@ def curves_cmd(
     by_group: Annotated[
         bool, typer.Option("--by-group", help="Aggregate normalised scores per task group.")
     ] = False,
-    fmt: Annotated[str, typer.Option("--format", help="table, csv, json or latex.")] = "table",
+    fmt: Annotated[
+        CurvesFormat, typer.Option("--format", help="Output format.")
+    ] = CurvesFormat.table,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -214,10 +257,7 @@ def curves_cmd(
 
 def plot(
     *,
-    kind: Annotated[
-        str,
-        typer.Option("--kind", help="curves, aggregate, difference, summary, profile or scaling."),
-    ],
+    kind: Annotated[FigureKind, typer.Option("--kind", help="The figure.")],
     out_file: Annotated[Path, typer.Option("--out", help="The figure file: .png, .svg or .pdf.")],
     metric: MetricOpt = None,
     select: SelectOpt = "final",
@@ -233,8 +273,8 @@ def plot(
     by_group: Annotated[
         bool, typer.Option("--by-group", help="Aggregate per task group (--kind aggregate).")
     ] = False,
-    estimator: EstimatorOpt = "mean",
-    ci: CiOpt = DEFAULT_METHOD,
+    estimator: EstimatorOpt = Estimator.mean,
+    ci: CiOpt = DEFAULT_CI,
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,
@@ -279,11 +319,15 @@ def report(
         str | None, typer.Option("--baseline", help="Baseline arm (default: the study's).")
     ] = None,
     threshold: Annotated[
-        float, typer.Option("--threshold", help="Normalised level for episodes-to-threshold.")
-    ] = 1.0,
+        float,
+        typer.Option(
+            "--threshold",
+            help="Level for episodes-to-threshold, as a fraction of the expert (default 0.8).",
+        ),
+    ] = 0.8,
     select: SelectOpt = "final",
-    estimator: EstimatorOpt = "mean",
-    ci: CiOpt = DEFAULT_METHOD,
+    estimator: EstimatorOpt = Estimator.mean,
+    ci: CiOpt = DEFAULT_CI,
     confidence: ConfidenceOpt = 0.95,
     resamples: ResamplesOpt = 10_000,
     seed: SeedOpt = 0,

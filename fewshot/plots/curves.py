@@ -70,11 +70,11 @@ def curves_figure(
         ax.set_title(task)
         ax.set_xlabel("episodes (log scale)")
         ax.set_ylabel(ylabel)
-    _legend(fig, axes[0])
+    top = _legend(fig, axes[0])
     fig.suptitle(
         f"{ylabel} against episodes; {interval} intervals over {_seeds_text(curves)}", fontsize=8
     )
-    fig.tight_layout(rect=(0, 0, 1, 0.9))
+    fig.tight_layout(rect=(0, 0, 1, top))
     return fig
 
 
@@ -113,9 +113,9 @@ def aggregate_figure(
         ax.set_ylabel(
             f"{statistic.upper() if statistic == 'iqm' else statistic} of {metric} (normalised)"
         )
-    _legend(fig, axes[0])
+    top = _legend(fig, axes[0])
     fig.suptitle(f"stratified bootstrap intervals over {_seeds_text(data)} per task", fontsize=8)
-    fig.tight_layout(rect=(0, 0, 1, 0.86))
+    fig.tight_layout(rect=(0, 0, 1, top))
     return fig
 
 
@@ -147,7 +147,7 @@ def difference_figure(
         ax.set_title("mean over tasks" if task == "all" else task)
         ax.set_xlabel("episodes (log scale)")
         ax.set_ylabel(f"{unit} minus {baseline}")
-    _legend(fig, axes[0])
+    top = _legend(fig, axes[0])
     fig.suptitle(f"paired by seed; intervals over {_seeds_text(data)}", fontsize=8)
-    fig.tight_layout(rect=(0, 0, 1, 0.88))
+    fig.tight_layout(rect=(0, 0, 1, top))
     return fig

@@ -180,17 +180,31 @@ def _grid(
     return fig, axes.ravel()
 
 
-def _legend(fig: Figure, ax) -> None:  # type: ignore[no-untyped-def]
+def _legend(fig: Figure, ax) -> float:  # type: ignore[no-untyped-def]
+    """The arms' legend across the top of ``fig``, below its suptitle, never wider than the figure
+    (fewer columns, then more rows, as the names need); returns the figure fraction left above the
+    panels (the ``top`` of ``tight_layout``'s rect)."""
     handles, labels = ax.get_legend_handles_labels()
-    if handles:
-        fig.legend(
+    height_pt = fig.get_figheight() * 72
+    top = 1 - 16 / height_pt  # room for an 8-point suptitle
+    if not handles:
+        return top
+    width = fig.bbox.width
+    for ncol in range(min(len(labels), 5), 0, -1):
+        legend = fig.legend(
             handles,
             labels,
             loc="upper center",
-            ncol=min(len(labels), 5),
+            ncol=ncol,
             frameon=False,
-            bbox_to_anchor=(0.5, 0.95),
+            bbox_to_anchor=(0.5, top),
+            borderaxespad=0.2,
         )
+        box = legend.get_window_extent()
+        if box.width <= 0.98 * width or ncol == 1:
+            break
+        legend.remove()
+    return max(0.3, top - box.height / fig.bbox.height - 0.01)
 
 
 @styled

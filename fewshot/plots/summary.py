@@ -94,18 +94,23 @@ def profile_figure(
         rows = data[data["arm"] == arm].sort_values("tau")
         if len(rows):
             colour, _ = styles[arm]
-            ax.plot(
+            # the empirical share above tau is a step function: it holds its value from each
+            # tau up to the next one (right-continuous steps: 'post')
+            ax.step(
                 rows["tau"],
                 rows["fraction"],
+                where="post",
                 color=colour,
                 ls="--" if roles.get(arm) == "baseline" else "-",
                 lw=1.2,
                 label=arm,
             )
-            ax.fill_between(rows["tau"], rows["low"], rows["high"], color=colour, alpha=0.18, lw=0)
+            ax.fill_between(
+                rows["tau"], rows["low"], rows["high"], step="post", color=colour, alpha=0.18, lw=0
+            )
     over = data["over"].iloc[0]
-    ax.set_xlabel("normalised score threshold τ")
-    ax.set_ylabel(f"fraction of {over} above τ")
+    ax.set_xlabel("normalised score τ (0 = floor, 1 = expert)")
+    ax.set_ylabel(f"share of {over} scoring above τ")
     ax.set_title(f"performance profile at {size} episodes; {_seeds_text(data)}")
     ax.set_ylim(-0.02, 1.02)
     ax.legend(frameon=False)

@@ -5,12 +5,20 @@ the :class:`~fewshot.analysis.StudyReports` that :func:`fewshot.analysis.analyse
 from __future__ import annotations
 
 from collections.abc import Callable
+from html import escape
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
-from fewshot.analysis import CompareReport, StudyData, StudyReports, compare_figure, curve_figure
+from fewshot.analysis import (
+    CompareReport,
+    StudyData,
+    StudyReports,
+    compare_figure,
+    curve_figure,
+    study_findings,
+)
 from fewshot.errors import InvalidInput
 from fewshot.files import write_text_atomic
 from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
@@ -158,16 +166,19 @@ def _figures(rep: StudyReports) -> str:
 def _transfer_section(cmp: CompareReport) -> str:
     body = table_html(transfer_rows(cmp.table))
     if len(cmp.thresholds):
-        body += f"<h3>Episodes to reach {number(cmp.threshold)} (normalised)</h3>" + table_html(
-            [
-                {
-                    "arm": r["arm"],
-                    "task": r["task"],
-                    "episodes": flagged(threshold_cell(r), r["n_seeds"]),
-                    "seeds": str(r["n_seeds"]),
-                }
-                for _, r in cmp.thresholds.iterrows()
-            ]
+        body += (
+            f"<h3>Episodes to reach {number(cmp.threshold)} of expert (normalised)</h3>"
+            + table_html(
+                [
+                    {
+                        "arm": r["arm"],
+                        "task": r["task"],
+                        "episodes": flagged(threshold_cell(r), r["n_seeds"]),
+                        "seeds": str(r["n_seeds"]),
+                    }
+                    for _, r in cmp.thresholds.iterrows()
+                ]
+            )
         )
     if len(cmp.areas):
         body += "<h3>Area under the normalised curve (log size)</h3>" + table_html(
@@ -192,6 +203,8 @@ def build_report(rep: StudyReports, *, title: str | None = None) -> str:
     sections: list[tuple[str, str]] = [
         ("Caution", f'<div class="caution">{paragraph(HARDWARE_CAUTION)}</div>')
     ]
+    if cmp is not None:
+        sections.append(("Findings", _findings_section(rep)))
     sections.append(("The study", _study_section(data)))
     completion, warnings = _completion_section(data)
     sections.append(("Completion", completion))
@@ -216,6 +229,25 @@ def build_report(rep: StudyReports, *, title: str | None = None) -> str:
     sections.append(("Warnings", bullet_list(dict.fromkeys(warnings), cls="warn")))
     heading = title or f"Study {study['name']}"
     return page(heading, sections, subtitle=f"Study {study['name']}, ledger {data.url}.")
+
+
+def _findings_section(rep: StudyReports) -> str:
+    """The findings summary, read off the reports (no statistic computed here)."""
+    found = study_findings(rep)
+    body = "".join(paragraph(p) for p in found.preamble)
+    arm = None
+    items: list[str] = []
+    for f in found.statements:
+        if f.arm != arm:
+            if items:
+                body += bullet_list(items, cls="findings")
+            items = []
+            arm = f.arm
+            body += f"<h3>{escape('Across arms' if f.arm == 'across arms' else f.arm)}</h3>"
+        items.append(f.text)
+    if items:
+        body += bullet_list(items, cls="findings")
+    return body
 
 
 def _curve_table(curves) -> str:  # type: ignore[no-untyped-def]

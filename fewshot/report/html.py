@@ -29,7 +29,9 @@ th, td { padding: 0.25em 0.6em; border-bottom: 1px solid #ddd; text-align: left;
 th { border-bottom: 2px solid #444; } td.num { text-align: right; font-variant-numeric: tabular-nums; }
 figure { margin: 1.2em 0; } figure img { max-width: 100%; } figcaption { font-size: 0.9em; color: #444; }
 .caution { border-left: 4px solid #D55E00; background: #fdf3ec; padding: 0.6em 1em; }
-.warn li { margin: 0.2em 0; }
+.warn li, .findings li { margin: 0.2em 0; }
+h3 { font-size: 1.05em; margin: 1em 0 0.3em; }
+img, table { max-width: 100%; } table { display: block; overflow-x: auto; }
 @media print { body { max-width: none; margin: 0; font-size: 11pt; } h2 { break-after: avoid; }
   table, figure { break-inside: avoid; } }
 """
@@ -80,7 +82,8 @@ def page(title: str, sections: Sequence[tuple[str, str]], *, subtitle: str = "")
         f'<p class="meta">{_e(subtitle)} Written by fewshot {_e(__version__)} on {stamp}.</p>',
     ]
     for heading, body in sections:
-        parts.append(f"<section><h2>{_e(heading)}</h2>{body}</section>")
+        slug = "-".join(heading.lower().split()[:1]) or "section"
+        parts.append(f'<section id="{_e(slug)}"><h2>{_e(heading)}</h2>{body}</section>')
     parts.append("</body></html>")
     return "\n".join(parts)
 

@@ -1,0 +1,80 @@
+"""Output a user reads: no raw library warnings, no note said twice, every table fits."""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+
+import numpy as np
+from typer.testing import CliRunner
+
+from fewshot.cli.commands import app
+from fewshot.ledger import Ledger
+from fewshot.study import load_study
+from tests.conftest import STUDY_TOML, write_study
+
+runner = CliRunner()
+
+
+def _gappy(folder: Path) -> str:
+    """Two tasks; on the second, one arm has no runs done at size 1 (missing runs)."""
+    text = (
+        STUDY_TOML
+        + '\n[[tasks]]\nname = "push"\npool = "pool.csv"\nid_column = "episode"\nfloor = 0.0\nexpert = 80.0\n'
+    )
+    path = str(folder / "l.sqlite")
+    led = Ledger.open(path)
+    led.plan(load_study(write_study(folder, text)))
+    rng = np.random.default_rng(1)
+    for r in led.runs().itertuples():
+        if r.task == "push" and r.arm == "wide" and r.size == 1:
+            continue
+        for step in (1, 2, 3):
+            led.record(
+                r.key, "return", float(30 + 10 * np.log1p(r.size) + rng.normal(0, 3)), step=step
+            )
+        led.done(r.key)
+    led.close()
+    return path
+
+
+def test_no_raw_numpy_warning_reaches_the_user(tmp_path: Path, monkeypatch):
+    ledger = _gappy(tmp_path)
+    import fewshot.analysis as analysis
+
+    original = analysis.curve_report
+
+    def noisy(*args, **kwargs):  # type: ignore[no-untyped-def]
+        # what an all-missing cell did before: numpy's own warning from a mean of nothing
+        np.nanmean(np.array([]))
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(analysis, "curve_report", noisy)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = runner.invoke(
+            app,
+            [
+                "curves",
+                "--across-tasks",
+                "--select",
+                "last:2",
+                "--ledger",
+                ledger,
+                "--resamples",
+                "200",
+            ],
+        )
+    assert res.exit_code == 0, res.output
+    raw = [str(w.message) for w in caught if issubclass(w.category, RuntimeWarning)]
+    assert raw == [] and "Mean of empty slice" not in res.output
+
+
+def test_a_note_is_said_once(tmp_path: Path):
+    ledger = _gappy(tmp_path)
+    res = runner.invoke(app, ["curves", "--ledger", ledger, "--resamples", "200"])
+    assert res.exit_code == 0, res.output
+    assert "seeds per interval" in res.output
+    assert "seeds behind each interval" not in res.output
+    notes = [line for line in res.output.splitlines() if line.startswith("note:")]
+    assert len(notes) == len(set(notes))
