@@ -240,6 +240,9 @@ BAD_COMMANDS = [
     (["record", "wide/reach/n1/s0", "a=1", "b=2", "--values", "x.txt"], "exactly one metric"),
     (["done", "nope/reach/n1/s0"], "has no run"),
     (["fail", "wide/reach/n1/s77", "--message", "x"], "has no run"),
+    # a run no worker claimed has not failed; the message says how to mark one run outside fewshot
+    (["fail", "wide/reach/n1/s0", "--message", "x"], "never claimed"),
+    (["fail", "wide/reach/n1/s0", "--message", "x"], "--unclaimed"),
     (["next", "--worker", "w", "--lease", "soon"], "--lease must be a duration"),
     (["next", "--worker", "w", "--lease", "0s"], "longer than zero"),
     (["next", "--worker", " "], "worker must be a non-empty name"),

@@ -90,7 +90,7 @@ def test_a_read_only_ledger_can_be_read(tmp_path: Path):
         assert "0 of 21 runs done" in shown.stdout
         exported = cli("export", "--format", "json")
         assert exported.returncode == 0 and json.loads(exported.stdout) == []
-        refused = cli("fail", "wide/reach/n1/s0", "--message", "x")
+        refused = cli("fail", "wide/reach/n1/s0", "--message", "x", "--unclaimed")
         assert refused.returncode == 2 and "read-only for you" in refused.stderr
         assert "Traceback" not in refused.stderr
     finally:

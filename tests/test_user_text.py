@@ -59,7 +59,9 @@ def _last_line(message: str) -> str:
 @example(message=NASTY[3])
 @example(message=NASTY[4])
 def test_failure_messages_print_as_given(ledger: str, message: str):
-    result = run("fail", "wide/reach/n1/s0", "--message", message, "--ledger", ledger)
+    result = run(
+        "fail", "wide/reach/n1/s0", "--message", message, "--unclaimed", "--ledger", ledger
+    )
     assert result.exit_code == 0, result.output
     shown = run("status", "--ledger", ledger)
     assert shown.exit_code == 0, shown.output

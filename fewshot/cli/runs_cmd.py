@@ -203,15 +203,19 @@ def fail(
     *,
     message: Annotated[str, typer.Option("--message", help="Why it failed.")],
     attempt: AttemptOpt = None,
+    unclaimed: Annotated[
+        bool,
+        typer.Option("--unclaimed", help="Fail a run no worker claimed (it ran outside fewshot)."),
+    ] = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
     """Mark a run failed, with a message."""
-    with reporting():
+    with reporting({"unclaimed": "--unclaimed"}):
         which = attempt_for(run, attempt)
         led = open_ledger(ledger, study)
         try:
-            led.fail(run, message, attempt=which)
+            led.fail(run, message, attempt=which, unclaimed=unclaimed)
         finally:
             led.close()
     out.print(f"failed {run}")

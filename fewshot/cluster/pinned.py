@@ -109,7 +109,7 @@ def ingest_pinned(ledger: Any, folder: Path) -> PinnedReport:
             report.done += 1
         else:
             text = refused or str(rec.get("tail") or "").strip() or f"exited with status {rc}"
-            ledger.fail(key, f"exit status {rc} {job}: {text}")
+            ledger.fail(key, f"exit status {rc} {job}: {text}", unclaimed=True)
             report.failed += 1
         status[key] = "done" if rc == 0 else "failed"
     return report

@@ -10,6 +10,7 @@ from pathlib import Path
 
 from sqlalchemy import Connection, insert, select
 
+from fewshot.errors import InvalidInput
 from fewshot.ledger import draws_undo
 from fewshot.ledger.connection import LedgerConnection
 from fewshot.ledger.engine import LedgerError
@@ -136,14 +137,34 @@ class LedgerWrites(LedgerConnection):
         attempt is the run's current one: else :class:`StaleAttempt` and nothing changes."""
         self._finish(run, "done", None, attempt)
 
-    def fail(self, run: str, message: str, *, attempt: int | None = None) -> None:
-        """Mark ``run`` failed, keeping the (tail of the) message; ``attempt`` as for :meth:`done`."""
-        self._finish(run, "failed", message, attempt)
+    def fail(
+        self, run: str, message: str, *, attempt: int | None = None, unclaimed: bool = False
+    ) -> None:
+        """Mark ``run`` failed, keeping the (tail of the) message; ``attempt`` as for :meth:`done`.
 
-    def _finish(self, run: str, status: str, message: str | None, attempt: int | None) -> None:
+        A run no worker ever claimed is refused (there is no attempt that could have failed),
+        unless ``unclaimed`` says the caller ran it outside the claims (a pinned scheduler job)."""
+        self._finish(run, "failed", message, attempt, unclaimed=unclaimed)
+
+    def _finish(
+        self,
+        run: str,
+        status: str,
+        message: str | None,
+        attempt: int | None,
+        *,
+        unclaimed: bool = True,
+    ) -> None:
         def go(c: Connection) -> None:
             sid, name = self._sid(c)
-            finish_run(c, find_run(c, sid, run, name), status, message, attempt=attempt)
+            row = find_run(c, sid, run, name)
+            if not unclaimed and row.status == "planned" and not row.attempts:
+                raise InvalidInput(
+                    f"run '{run}' was never claimed (it is planned, with no attempt), so it has "
+                    "not failed. Leave it planned for a worker, or, if it was run outside the "
+                    "ledger's claims, mark it failed with `unclaimed`."
+                )
+            finish_run(c, row, status, message, attempt=attempt)
 
         self._tx(go)
 
