@@ -16,7 +16,7 @@ import pandas as pd
 
 from fewshot.errors import InvalidInput
 from fewshot.stats.curves import FEW_SEEDS, CurveSettings
-from fewshot.stats.estimators import AGGREGATES, nan_estimate
+from fewshot.stats.estimators import AGGREGATES, nan_estimates
 from fewshot.stats.intervals import rescaled_strata, strata_df, stratified_t
 
 __all__ = ["AGGREGATE_COLUMNS", "METHOD", "aggregate_curves"]
@@ -100,9 +100,10 @@ def aggregate_curves(
         pooled_b = rescaled_strata(strata, [indices[t] for t, _ in parts])
         df = strata_df(strata)
         pooled = np.concatenate([full for _, full in parts])
-        for name in aggregates:
-            est = float(nan_estimate(name, pooled[None, :])[0])
-            theta = nan_estimate(name, pooled_b)
+        ests = nan_estimates(aggregates, pooled[None, :])
+        thetas = nan_estimates(aggregates, pooled_b)  # one sort of the resamples for all
+        for name, est_row, theta in zip(aggregates, ests, thetas, strict=True):
+            est = float(est_row[0])
             lo, hi, _ = stratified_t(est, theta, strata, settings.confidence, df)
             row = dict(zip(keys, key, strict=True))
             rows.append(
