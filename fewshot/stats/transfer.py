@@ -141,6 +141,7 @@ def paired_differences(
                         resamples=settings.resamples,
                         rng=rng,
                         is_mean=True,
+                        want_se=False,
                     )
                     method = settings.method
                 else:  # resample seed positions, then difference the two estimates
