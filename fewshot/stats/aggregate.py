@@ -18,6 +18,7 @@ from fewshot.errors import InvalidInput
 from fewshot.stats.curves import FEW_SEEDS, CurveSettings
 from fewshot.stats.estimators import AGGREGATES, nan_estimates
 from fewshot.stats.intervals import rescaled_strata, strata_df, stratified_t
+from fewshot.stats.progress import advance
 
 __all__ = ["AGGREGATE_COLUMNS", "METHOD", "aggregate_curves"]
 
@@ -85,7 +86,9 @@ def aggregate_curves(
     }
     keys = ["arm", "role", "size"] + (["group"] if by_group else [])
     rows = []
-    for key, cell in seed_level.groupby(keys, sort=True, dropna=False):
+    cells = seed_level.groupby(keys, sort=True, dropna=False)
+    advance("aggregates over tasks", 0, cells.ngroups)
+    for done, (key, cell) in enumerate(cells, start=1):
         parts, n_seeds, notes = [], [], []
         for t, g in cell.groupby("task"):
             full = np.full(n_by_task[t], np.nan)
@@ -126,4 +129,5 @@ def aggregate_curves(
                     ),
                 }
             )
+        advance("aggregates over tasks", done, cells.ngroups)
     return pd.DataFrame(rows, columns=AGGREGATE_COLUMNS)

@@ -93,7 +93,9 @@ def _nan_estimate(name: str, x: np.ndarray, s: np.ndarray | None = None) -> np.n
     """``s``: ``x`` sorted along the last axis (NaN last), when the caller has it."""
     if name == "mean":
         return _nanmean(x)
-    if name == "optimality_gap":  # Agarwal et al. (2021): mean shortfall below 1, missing runs left out
+    if (
+        name == "optimality_gap"
+    ):  # Agarwal et al. (2021): mean shortfall below 1, missing runs left out
         return _nanmean(np.maximum(0.0, 1.0 - x))
     if s is None:
         s = np.sort(x, axis=-1)  # NaN last

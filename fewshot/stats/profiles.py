@@ -14,6 +14,7 @@ import pandas as pd
 
 from fewshot.errors import InvalidInput
 from fewshot.stats.curves import CurveSettings
+from fewshot.stats.progress import advance
 from fewshot.stats.resample import CurveResampler, interval
 
 __all__ = ["performance_profile", "scaling_view"]
@@ -36,7 +37,8 @@ def performance_profile(
     rs = CurveResampler(scores, value, settings)
     arms = list(dict.fromkeys(scores["arm"]))
     rows = []
-    for arm in arms:
+    for k, arm in enumerate(arms):
+        advance("performance profiles", k, len(arms))
         tasks = [t for t in rs.seeds if rs.has(arm, t)]
         sizes = sorted(set().union(*[set(rs.sizes(arm, t)) for t in tasks])) if tasks else []
         for size in sizes:
@@ -76,6 +78,7 @@ def performance_profile(
                         "n_seeds": n,
                     }
                 )
+    advance("performance profiles", len(arms), len(arms))
     return pd.DataFrame(
         rows,
         columns=["arm", "size", "tau", "fraction", "low", "high", "over", "n_tasks", "n_seeds"],

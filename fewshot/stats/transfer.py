@@ -36,6 +36,7 @@ from fewshot.stats.intervals import (
     newcombe_mean_interval,
     stratified_mean_t,
 )
+from fewshot.stats.progress import advance
 from fewshot.stats.resample import CurveResampler, interval
 from fewshot.stats.transfer_sizes import (  # the sizes half, re-exported here
     curve_areas,
@@ -99,7 +100,10 @@ def paired_differences(
     rows = []
     rng_root = np.random.SeedSequence(settings.seed)
     level = scores.dropna(subset=[value]).groupby(["arm", "task", "size", "seed"])[value].mean()
-    for arm, child in zip(chosen, rng_root.spawn(len(chosen)), strict=True):
+    advance("paired differences", 0, len(chosen))
+    for k, (arm, child) in enumerate(zip(chosen, rng_root.spawn(len(chosen)), strict=True)):
+        if k:
+            advance("paired differences", k, len(chosen))
         rng = np.random.default_rng(child)
         for task, size, x, y, nx, ny in _paired_cells(level, arm, baseline):
             n = len(x)
@@ -175,6 +179,7 @@ def paired_differences(
                     "note": note,
                 }
             )
+    advance("paired differences", len(chosen), len(chosen))
     frame = pd.DataFrame(
         rows,
         columns=["arm", "task", "size", "difference", "low", "high", "n_seeds", "method", "note"],

@@ -103,7 +103,9 @@ def build(folder: Path, shape: tuple[int, int, int, int]) -> tuple[Path, int]:
     arm_gain = {a: 5.0 * k for k, a in enumerate(sorted(set(runs["arm"])))}
     task_gain = {t: 2.0 * (k % 7) for k, t in enumerate(sorted(set(runs["task"])))}
     batch = []
-    for key, arm, task, size in zip(runs["key"], runs["arm"], runs["task"], runs["size"], strict=True):
+    for key, arm, task, size in zip(
+        runs["key"], runs["arm"], runs["task"], runs["size"], strict=True
+    ):
         mean = 20.0 + arm_gain[arm] + task_gain[task] + 40.0 * (1 - np.exp(-int(size) / 16))
         batch.append(check_line(str(key), "return", float(mean + rng.normal(0.0, 6.0))))
         if len(batch) == 2000:
@@ -119,7 +121,9 @@ def timed(args: list[str], folder: Path) -> tuple[float, float, float]:
     """CPU seconds, wall seconds and peak resident MB of one CLI command."""
     t0 = time.perf_counter()
     with open(folder / "out.txt", "wb") as out, open(folder / "err.txt", "wb") as err:
-        proc = subprocess.Popen([sys.executable, "-m", "fewshot.cli", *args], stdout=out, stderr=err)
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "fewshot.cli", *args], stdout=out, stderr=err
+        )
         _, status, usage = os.wait4(proc.pid, 0)
     wall = time.perf_counter() - t0
     proc.returncode = os.waitstatus_to_exitcode(status)
@@ -137,8 +141,10 @@ def main() -> None:
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         base = Path(args.keep) if args.keep else Path(tmp)
-        print(f"{'scale':8} {'runs':>7} {'command':8} {'cpu s':>8} {'wall s':>8} {'us/run':>9} "
-              f"{'x export':>9} {'peak MB':>8}")
+        print(
+            f"{'scale':8} {'runs':>7} {'command':8} {'cpu s':>8} {'wall s':>8} {'us/run':>9} "
+            f"{'x export':>9} {'peak MB':>8}"
+        )
         for name in args.scales.split(","):
             folder = base / name
             ledger = folder / "ledger.sqlite"
@@ -161,8 +167,11 @@ def main() -> None:
                 if cmd == "export":
                     export_cpu = cpu
                 ratio = f"{cpu / export_cpu:9.2f}" if export_cpu else f"{'-':>9}"
-                print(f"{name:8} {n:7d} {cmd:8} {cpu:8.2f} {wall:8.2f} {1e6 * cpu / n:9.1f} "
-                      f"{ratio} {peak:8.0f}", flush=True)
+                print(
+                    f"{name:8} {n:7d} {cmd:8} {cpu:8.2f} {wall:8.2f} {1e6 * cpu / n:9.1f} "
+                    f"{ratio} {peak:8.0f}",
+                    flush=True,
+                )
                 if cmd == "report":
                     size = (folder / "report.html").stat().st_size / 1e6
                     print(f"# {name}: report.html is {size:.2f} MB")
