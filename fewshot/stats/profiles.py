@@ -37,6 +37,7 @@ def performance_profile(
     rs = CurveResampler(scores, value, settings)
     arms = list(dict.fromkeys(scores["arm"]))
     rows = []
+    draw_counts: dict[tuple[str, ...], np.ndarray] = {}
     for k, arm in enumerate(arms):
         advance("performance profiles", k, len(arms))
         tasks = [t for t in rs.seeds if rs.has(arm, t)]
@@ -57,12 +58,19 @@ def performance_profile(
                 pooled = np.concatenate(mats)
                 pooled = pooled[np.isfinite(pooled)]
                 frac = (pooled[None, :] > taus[:, None]).mean(axis=1)
-                boot = np.concatenate(
-                    [m[rs.index[t]] for m, t in zip(mats, present, strict=True)], axis=1
-                )
-                valid = np.isfinite(boot)
+                # a resample's count above τ is Σ (times seed j was drawn) × [x_j > τ]: a product
+                # of the draw counts (resamples × runs, once per set of tasks) and the runs' marks
+                key = tuple(present)
+                if key not in draw_counts:
+                    draw_counts[key] = np.concatenate([_drawn(rs.index[t]) for t in present], 1)
+                drawn = draw_counts[key]
+                finite = np.isfinite(np.concatenate(mats))
                 with np.errstate(invalid="ignore"):
-                    frac_b = _above(boot, valid, taus) / valid.sum(axis=1, keepdims=True)
+                    marks = (np.concatenate(mats)[:, None] > taus[None, :]) & finite[:, None]
+                counted = np.rint(drawn @ marks.astype(float)).astype(np.int64)
+                n_valid = np.rint(drawn @ finite.astype(float)).astype(np.int64)
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    frac_b = counted / n_valid[:, None]
             for j, tau in enumerate(taus):
                 lo, hi = interval(frac_b[:, j], settings.confidence, n)
                 rows.append(
@@ -85,25 +93,11 @@ def performance_profile(
     )
 
 
-def _above(boot: np.ndarray, valid: np.ndarray, taus: np.ndarray) -> np.ndarray:
-    """Resamples × taus: how many valid values of each row of ``boot`` exceed each τ.
-
-    Each value is binned once by the number of τs below it (a value exceeds τ_j exactly when
-    τ_j is among them), then the bins are summed from the top: the counts of
-    ``(boot[:, None, :] > taus[None, :, None]).sum(axis=2)`` without the resamples × taus × runs
-    array."""
-    order = np.argsort(taus, kind="stable")
-    below = np.searchsorted(taus[order], boot, side="left")  # how many τs each value exceeds
-    t = len(taus)
-    below = np.where(valid, below, t + 1)  # missing runs: a bin of their own, never counted
-    rows = boot.shape[0]
-    hist = np.bincount(
-        (np.arange(rows)[:, None] * (t + 2) + below).ravel(), minlength=rows * (t + 2)
-    ).reshape(rows, t + 2)[:, : t + 1]
-    above_sorted = np.cumsum(hist[:, ::-1], axis=1)[:, ::-1][:, 1:]  # > j-th smallest τ
-    out = np.empty((rows, t), dtype=np.int64)
-    out[:, order] = above_sorted
-    return out
+def _drawn(index: np.ndarray) -> np.ndarray:
+    """Resamples × seeds: how many times each seed is drawn by each row of a seed index matrix
+    (as floats, for an exact product with 0/1 marks: counts stay far below 2^53)."""
+    n = index.shape[1]
+    return np.stack([(index == j).sum(axis=1) for j in range(n)], axis=1).astype(float)
 
 
 def scaling_view(
