@@ -13,6 +13,7 @@ from scipy import stats
 
 from fewshot.stats import CurveSettings, aggregate_curves
 from fewshot.stats.bootstrap import bootstrap_cells
+from fewshot.stats.curves import _cells
 from fewshot.stats.estimators import _sorted_nanmedian, nan_estimates
 from fewshot.stats.intervals import rescaled_strata
 from fewshot.stats.profiles import performance_profile
@@ -150,3 +151,30 @@ def test_long_statistics_report_progress_to_the_callback_only():
     after = len(seen)
     aggregate_curves(pd.DataFrame(rows), CurveSettings(resamples=200))
     assert len(seen) == after  # outside the block nothing is reported
+
+
+def test_curve_cells_equal_pandas_groups():
+    # the cells curves() bootstraps, against pandas' own groups of the same (shuffled) table
+    rng = np.random.default_rng(9)
+    rows = [
+        {"arm": a, "role": "r" + a, "task": t, "group": t.upper(), "size": s, "seed": k,
+         "score": float(rng.normal(s, 1))}
+        for a in ("b", "a")
+        for t in ("t2", "t1")
+        for s in (4, 1)
+        for k in (3, 1, 0)
+        for _ in range(3 if (a, t, s, k) == ("a", "t1", 1, 1) else 2 if t == "t1" else 1)
+    ]  # fmt: skip
+    data = pd.DataFrame(rows).sample(frac=1, random_state=1)
+    got = _cells(data, "score")
+    want = list(data.groupby(["arm", "task", "size"], sort=False))
+    assert [(c["arm"], c["task"], c["size"]) for c in got] == [k for k, _ in want]
+    for cell, (_, frame) in zip(got, want, strict=True):
+        per_seed = frame.groupby("seed")["score"].apply(lambda s: s.to_numpy())
+        assert cell["seeds"] == tuple(per_seed.index)
+        assert (cell["role"], cell["group"]) == (frame.iloc[0]["role"], frame.iloc[0]["group"])
+        lengths = {len(v) for v in per_seed}
+        r = lengths.pop() if len(lengths) == 1 else 1
+        want_matrix = np.stack([v if len(v) == r else np.array([v.mean()]) for v in per_seed])
+        np.testing.assert_array_equal(cell["matrix"], want_matrix)
+        assert cell["uneven"] == (len({len(v) for v in per_seed}) > 1)
