@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -98,7 +99,7 @@ def variance_share(values: np.ndarray) -> np.ndarray:
         return np.where(total > 0, between / total, np.nan)
 
 
-def _cells(data: pd.DataFrame, value: str) -> list[dict[str, object]]:
+def _cells(data: pd.DataFrame, value: str) -> list[dict[str, Any]]:
     """Each (arm, task, size) in order of first appearance: its seeds (sorted) and the values of
     each seed's replicates in row order, as a seeds × replicates matrix (a seed with another
     number of replicates than the rest enters as its mean). One sort of the whole table, then
@@ -113,7 +114,7 @@ def _cells(data: pd.DataFrame, value: str) -> list[dict[str, object]]:
     ends = np.r_[starts[1:], len(code_o)]
     arms, tasks, sizes = (data[c].to_numpy() for c in ("arm", "task", "size"))
     roles, groups = data["role"].to_numpy(), data["group"].to_numpy()
-    cells: list[dict[str, object]] = []
+    cells: list[dict[str, Any]] = []
     for g, (a, b) in enumerate(zip(starts, ends, strict=True)):
         s = seeds_o[a:b]
         cut = np.flatnonzero(np.r_[True, s[1:] != s[:-1]])
