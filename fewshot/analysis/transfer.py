@@ -157,7 +157,9 @@ def compare_scores(
         headline = performance_profile(normed, settings, taus=np.array([threshold]), over="tasks")
         if arm_table is not None:
             try:
-                scaling = scaling_view(aggregate_curves(normed, settings), arm_table)
+                # the scaling view reads the IQM only: the other aggregates are not computed
+                iqm = aggregate_curves(normed, settings, aggregates=("iqm",))
+                scaling = scaling_view(iqm, arm_table, statistic="iqm")
             except InvalidInput:
                 scaling = pd.DataFrame()
     else:

@@ -205,6 +205,7 @@ def curves_cmd(
 ) -> None:
     """Data-efficiency curves: an estimate and a bootstrap interval per arm, task and size."""
     from fewshot.analysis import curve_report, curves_json, curves_table
+    from fewshot.cli.stats_progress import statistics_progress
     from fewshot.stats import CurveSettings
 
     with reporting(), as_flags():
@@ -213,15 +214,16 @@ def curves_cmd(
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
         led = open_ledger(ledger, study)
         try:
-            report = curve_report(
-                led,
-                settings,
-                metric=metric,
-                select=select,
-                normalised=normalised,
-                across_tasks=across_tasks,
-                by_group=by_group,
-            )
+            with statistics_progress():
+                report = curve_report(
+                    led,
+                    settings,
+                    metric=metric,
+                    select=select,
+                    normalised=normalised,
+                    across_tasks=across_tasks,
+                    by_group=by_group,
+                )
         finally:
             led.close()
     if fmt == "json":

@@ -16,8 +16,9 @@ import pandas as pd
 
 from fewshot.errors import InvalidInput
 from fewshot.stats.curves import FEW_SEEDS, CurveSettings
-from fewshot.stats.estimators import AGGREGATES, nan_estimate
+from fewshot.stats.estimators import AGGREGATES, nan_estimates
 from fewshot.stats.intervals import rescaled_strata, strata_df, stratified_t
+from fewshot.stats.progress import advance
 
 __all__ = ["AGGREGATE_COLUMNS", "METHOD", "aggregate_curves"]
 
@@ -85,7 +86,9 @@ def aggregate_curves(
     }
     keys = ["arm", "role", "size"] + (["group"] if by_group else [])
     rows = []
-    for key, cell in seed_level.groupby(keys, sort=True, dropna=False):
+    cells = seed_level.groupby(keys, sort=True, dropna=False)
+    advance("aggregates over tasks", 0, cells.ngroups)
+    for done, (key, cell) in enumerate(cells, start=1):
         parts, n_seeds, notes = [], [], []
         for t, g in cell.groupby("task"):
             full = np.full(n_by_task[t], np.nan)
@@ -100,9 +103,10 @@ def aggregate_curves(
         pooled_b = rescaled_strata(strata, [indices[t] for t, _ in parts])
         df = strata_df(strata)
         pooled = np.concatenate([full for _, full in parts])
-        for name in aggregates:
-            est = float(nan_estimate(name, pooled[None, :])[0])
-            theta = nan_estimate(name, pooled_b)
+        ests = nan_estimates(aggregates, pooled[None, :])
+        thetas = nan_estimates(aggregates, pooled_b)  # one sort of the resamples for all
+        for name, est_row, theta in zip(aggregates, ests, thetas, strict=True):
+            est = float(est_row[0])
             lo, hi, _ = stratified_t(est, theta, strata, settings.confidence, df)
             row = dict(zip(keys, key, strict=True))
             rows.append(
@@ -125,4 +129,5 @@ def aggregate_curves(
                     ),
                 }
             )
+        advance("aggregates over tasks", done, cells.ngroups)
     return pd.DataFrame(rows, columns=AGGREGATE_COLUMNS)

@@ -122,6 +122,7 @@ def bootstrap_cells(
     rng: np.random.Generator,
     is_mean: bool = False,
     keep_distribution: bool = False,
+    want_se: bool = True,
 ) -> CellIntervals:
     """Bootstrap intervals for every cell of ``values`` (cells × seeds, or cells × seeds × replicates).
 
@@ -130,6 +131,9 @@ def bootstrap_cells(
     of each seed's replicates. ``is_mean`` says the estimator is the mean (for the
     closed-form t and bootstrap-t intervals). Cells with values beyond 2^300 are scaled by a
     power of two first (so the estimator must be scale-equivariant, as mean, median and IQM are).
+    ``want_se=False``: a caller that reads only the interval lets the closed-form t interval of
+    the mean skip the resamples (``se`` is then NaN); the seed indices are still drawn from
+    ``rng``, so the cells after it get the same draws either way.
     """
     data = _iv(values, method, confidence, resamples, is_mean)
     scale = cell_scale(data)
@@ -143,6 +147,7 @@ def bootstrap_cells(
             rng=rng,
             is_mean=is_mean,
             keep_distribution=keep_distribution,
+            want_se=want_se,
         )
         return _unscaled(res, scale)
     cells, n, r = data.shape
@@ -154,10 +159,15 @@ def bootstrap_cells(
         return CellIntervals(
             estimate, nan, nan.copy(), nan.copy(), n, r, method, confidence, resamples, degenerate
         )
-    dist = _resample(
-        data, estimator, resamples, rng, want_sd=method == "bootstrap-t", is_mean=is_mean
-    )
-    se = dist.std()
+    if not want_se and method == "t" and is_mean and r == 1 and not keep_distribution:
+        rng.integers(0, n, size=(resamples, n))  # the draws _resample_seeds would take
+        dist = _Dist(np.full((cells, 0), np.nan), np.ones(0, dtype=np.int64))
+        se = nan.copy()
+    else:
+        dist = _resample(
+            data, estimator, resamples, rng, want_sd=method == "bootstrap-t", is_mean=is_mean
+        )
+        se = dist.std()
     alpha = 1 - confidence
     if method in ("percentile", "basic", "expanded"):
         a = alpha if method != "expanded" else 2 * expanded_half_alpha(alpha, n)  # x2: exact

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -99,6 +100,45 @@ def variance_share(values: np.ndarray) -> np.ndarray:
         return np.where(total > 0, between / total, np.nan)
 
 
+def _cells(data: pd.DataFrame, value: str) -> list[dict[str, Any]]:
+    """Each (arm, task, size) in order of first appearance: its seeds (sorted) and the values of
+    each seed's replicates in row order, as a seeds × replicates matrix (a seed with another
+    number of replicates than the rest enters as its mean). One sort of the whole table, then
+    slices: no pandas group per cell."""
+    code = data.groupby(["arm", "task", "size"], sort=False).ngroup().to_numpy()
+    seeds = data["seed"].to_numpy()
+    values = data[value].to_numpy()
+    order = np.lexsort((seeds, code))  # stable: replicates keep their row order
+    code_o, seeds_o, values_o = code[order], seeds[order], values[order]
+    _, first = np.unique(code, return_index=True)  # each cell's first row, in the table's order
+    starts = np.flatnonzero(np.r_[True, code_o[1:] != code_o[:-1]])
+    ends = np.r_[starts[1:], len(code_o)]
+    arms, tasks, sizes = (data[c].to_numpy() for c in ("arm", "task", "size"))
+    roles, groups = data["role"].to_numpy(), data["group"].to_numpy()
+    cells: list[dict[str, Any]] = []
+    for g, (a, b) in enumerate(zip(starts, ends, strict=True)):
+        s = seeds_o[a:b]
+        cut = np.flatnonzero(np.r_[True, s[1:] != s[:-1]])
+        per_seed = np.split(values_o[a:b], cut[1:])
+        lengths = {len(v) for v in per_seed}
+        r = next(iter(lengths)) if len(lengths) == 1 else 1
+        row = first[g]
+        cells.append(
+            {
+                "arm": arms[row],
+                "role": roles[row],
+                "task": tasks[row],
+                "group": groups[row],
+                "size": sizes[row],
+                "seeds": tuple(pd.Index(s[cut])),
+                "r": r,
+                "matrix": np.stack([v if len(v) == r else np.array([v.mean()]) for v in per_seed]),
+                "uneven": len(lengths) > 1,
+            }
+        )
+    return cells
+
+
 def curves(
     scores: pd.DataFrame, settings: CurveSettings | None = None, *, value: str = "score"
 ) -> pd.DataFrame:
@@ -124,26 +164,7 @@ def curves(
         return pd.DataFrame(columns=CURVE_COLUMNS)
     est = get_estimator(settings.estimator)
     is_mean = settings.estimator == "mean"
-    cells = []
-    for key, frame in data.groupby(["arm", "task", "size"], sort=False):
-        per_seed = frame.groupby("seed")[value].apply(lambda s: s.to_numpy())
-        reps = {len(v) for v in per_seed}
-        r = reps.pop() if len(reps) == 1 else 1
-        matrix = np.stack([v if len(v) == r else np.array([v.mean()]) for v in per_seed])
-        first = frame.iloc[0]
-        cells.append(
-            {
-                "arm": key[0],
-                "role": first["role"],
-                "task": key[1],
-                "group": first["group"],
-                "size": key[2],
-                "seeds": tuple(per_seed.index),
-                "r": r,
-                "matrix": matrix,
-                "uneven": len({len(v) for v in per_seed}) > 1,
-            }
-        )
+    cells = _cells(data, value)
     groups: dict[tuple[object, ...], list[int]] = {}
     for i, c in enumerate(cells):
         groups.setdefault((c["task"], c["seeds"], c["r"]), []).append(i)

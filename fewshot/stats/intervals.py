@@ -97,13 +97,19 @@ def rescaled_strata(strata: list[np.ndarray], indices: list[np.ndarray]) -> np.n
     """Resamples (rows) of the pooled runs: each stratum's draw rescaled by sqrt(n/(n-1)) about
     its mean. ``strata`` hold each task's seed-level values (NaN = missing run, kept out of the
     mean and left NaN); ``indices`` the task's resample × seeds index matrix."""
-    out = []
+    # each stratum's seeds are rescaled once, then gathered: the same numbers as rescaling every
+    # drawn value, with one gather of the whole resamples × runs matrix
+    rescaled, offset, shifted = [], 0, []
     for x, idx in zip(strata, indices, strict=True):
         n = int(np.isfinite(x).sum())
         centre = np.nanmean(x) if n else 0.0
         c = np.sqrt(n / (n - 1)) if n >= 2 else 1.0
-        out.append(centre + c * (x[idx] - centre))
-    return np.concatenate(out, axis=1)
+        rescaled.append(centre + c * (x - centre))
+        shifted.append(idx + offset)
+        offset += len(x)
+    if not rescaled:
+        return np.empty((0, 0))
+    return np.concatenate(rescaled)[np.concatenate(shifted, axis=1)]
 
 
 def strata_df(strata: list[np.ndarray]) -> float:

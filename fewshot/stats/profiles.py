@@ -14,6 +14,7 @@ import pandas as pd
 
 from fewshot.errors import InvalidInput
 from fewshot.stats.curves import CurveSettings
+from fewshot.stats.progress import advance
 from fewshot.stats.resample import CurveResampler, interval
 
 __all__ = ["performance_profile", "scaling_view"]
@@ -36,7 +37,9 @@ def performance_profile(
     rs = CurveResampler(scores, value, settings)
     arms = list(dict.fromkeys(scores["arm"]))
     rows = []
-    for arm in arms:
+    draw_counts: dict[tuple[str, ...], np.ndarray] = {}
+    for k, arm in enumerate(arms):
+        advance("performance profiles", k, len(arms))
         tasks = [t for t in rs.seeds if rs.has(arm, t)]
         sizes = sorted(set().union(*[set(rs.sizes(arm, t)) for t in tasks])) if tasks else []
         for size in sizes:
@@ -55,14 +58,19 @@ def performance_profile(
                 pooled = np.concatenate(mats)
                 pooled = pooled[np.isfinite(pooled)]
                 frac = (pooled[None, :] > taus[:, None]).mean(axis=1)
-                boot = np.concatenate(
-                    [m[rs.index[t]] for m, t in zip(mats, present, strict=True)], axis=1
-                )
-                valid = np.isfinite(boot)
+                # a resample's count above τ is Σ (times seed j was drawn) × [x_j > τ]: a product
+                # of the draw counts (resamples × runs, once per set of tasks) and the runs' marks
+                key = tuple(present)
+                if key not in draw_counts:
+                    draw_counts[key] = np.concatenate([_drawn(rs.index[t]) for t in present], 1)
+                drawn = draw_counts[key]
+                finite = np.isfinite(np.concatenate(mats))
                 with np.errstate(invalid="ignore"):
-                    frac_b = ((boot[:, None, :] > taus[None, :, None]) & valid[:, None, :]).sum(
-                        axis=2
-                    ) / valid.sum(axis=1, keepdims=True)
+                    marks = (np.concatenate(mats)[:, None] > taus[None, :]) & finite[:, None]
+                counted = np.rint(drawn @ marks.astype(float)).astype(np.int64)
+                n_valid = np.rint(drawn @ finite.astype(float)).astype(np.int64)
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    frac_b = counted / n_valid[:, None]
             for j, tau in enumerate(taus):
                 lo, hi = interval(frac_b[:, j], settings.confidence, n)
                 rows.append(
@@ -78,10 +86,18 @@ def performance_profile(
                         "n_seeds": n,
                     }
                 )
+    advance("performance profiles", len(arms), len(arms))
     return pd.DataFrame(
         rows,
         columns=["arm", "size", "tau", "fraction", "low", "high", "over", "n_tasks", "n_seeds"],
     )
+
+
+def _drawn(index: np.ndarray) -> np.ndarray:
+    """Resamples × seeds: how many times each seed is drawn by each row of a seed index matrix
+    (as floats, for an exact product with 0/1 marks: counts stay far below 2^53)."""
+    n = index.shape[1]
+    return np.stack([(index == j).sum(axis=1) for j in range(n)], axis=1).astype(float)
 
 
 def scaling_view(

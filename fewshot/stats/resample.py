@@ -76,10 +76,19 @@ class CurveResampler:
             t: np.array(sorted(g.index.get_level_values("seed").unique()))
             for t, g in seed_level.groupby(level="task")
         }
-        self.values: dict[tuple[str, str], pd.DataFrame] = {}
-        for (arm, task), g in seed_level.groupby(level=["arm", "task"]):
-            wide = g.droplevel(["arm", "task"]).unstack("seed").reindex(columns=self.seeds[task])
-            self.values[(arm, task)] = wide  # sizes × seeds, NaN where a run is missing
+        # one unstack for the whole study, then each (arm, task) block as arrays: sizes × seeds
+        wide = seed_level.unstack("seed")
+        col = {s: k for k, s in enumerate(wide.columns)}
+        table = wide.to_numpy(dtype=float)
+        all_sizes = wide.index.get_level_values("size").to_numpy()
+        blocks = wide.groupby(level=["arm", "task"], sort=True).indices
+        self.values: dict[tuple[str, str], tuple[np.ndarray, np.ndarray]] = {}
+        for arm, task in sorted(blocks):
+            rows = blocks[(arm, task)]
+            order = rows[np.argsort(all_sizes[rows], kind="stable")]
+            cols = [col[s] for s in self.seeds[task]]
+            # sizes, and sizes × seeds with NaN where a run is missing
+            self.values[(arm, task)] = (all_sizes[order], table[np.ix_(order, cols)])
         tasks = sorted(self.seeds)
         root = np.random.SeedSequence(settings.seed)
         self.index = {
@@ -93,10 +102,18 @@ class CurveResampler:
         return (arm, task) in self.values
 
     def sizes(self, arm: str, task: str) -> np.ndarray:
-        return self.values[(arm, task)].index.to_numpy()
+        return self.values[(arm, task)][0].copy()
 
     def matrix(self, arm: str, task: str, sizes: np.ndarray) -> np.ndarray:
-        return self.values[(arm, task)].reindex(sizes).to_numpy(dtype=float)
+        """Seed-level values at ``sizes`` (sizes × seeds), NaN rows for sizes never run."""
+        own, table = self.values[(arm, task)]
+        want = np.asarray(sizes)
+        out = np.full((len(want), table.shape[1]), np.nan)
+        if len(own) and len(want):
+            pos = np.minimum(np.searchsorted(own, want), len(own) - 1)
+            hit = own[pos] == want
+            out[hit] = table[pos[hit]]
+        return out
 
     def point(self, arm: str, task: str, sizes: np.ndarray) -> np.ndarray:
         """Estimates over seeds at ``sizes``."""

@@ -36,6 +36,7 @@ from fewshot.stats.intervals import (
     newcombe_mean_interval,
     stratified_mean_t,
 )
+from fewshot.stats.progress import advance
 from fewshot.stats.resample import CurveResampler, interval
 from fewshot.stats.transfer_sizes import (  # the sizes half, re-exported here
     curve_areas,
@@ -56,26 +57,24 @@ __all__ = [
 ]
 
 
-def _paired_cells(scores: pd.DataFrame, value: str, arm: str, baseline: str):  # type: ignore[no-untyped-def]
-    """Per (task, size): the seed-level values of arm and baseline on their common seeds."""
-    level = scores.dropna(subset=[value]).groupby(["arm", "task", "size", "seed"])[value].mean()
+def _paired_cells(level: pd.Series, arm: str, baseline: str):  # type: ignore[no-untyped-def]
+    """Per (task, size): the seed-level values of arm and baseline on their common seeds.
+
+    ``level``: seed-level values indexed by arm, task, size, seed (sorted), computed once for
+    every arm."""
     a, b = level.loc[arm], level.loc[baseline]
-    for task in a.index.get_level_values("task").unique():
-        if task not in b.index.get_level_values("task"):
+    theirs = {key: g.droplevel(["task", "size"]) for key, g in b.groupby(level=["task", "size"])}
+    for (task, size), g in a.groupby(level=["task", "size"]):
+        y = theirs.get((task, size))
+        if y is None:
             continue
-        for size in sorted(a.loc[task].index.get_level_values("size").unique()):
-            if size not in b.loc[task].index.get_level_values("size"):
-                continue
-            x, y = a.loc[(task, size)], b.loc[(task, size)]
+        x = g.droplevel(["task", "size"])
+        if x.index.equals(y.index):
+            xs, ys = x.to_numpy(), y.to_numpy()
+        else:
             common = x.index.intersection(y.index)
-            yield (
-                task,
-                int(size),
-                x.loc[common].to_numpy(),
-                y.loc[common].to_numpy(),
-                len(x),
-                len(y),
-            )
+            xs, ys = x.loc[common].to_numpy(), y.loc[common].to_numpy()
+        yield task, int(size), xs, ys, len(x), len(y)
 
 
 def paired_differences(
@@ -100,9 +99,13 @@ def paired_differences(
     est = get_estimator(est_name)
     rows = []
     rng_root = np.random.SeedSequence(settings.seed)
-    for arm, child in zip(chosen, rng_root.spawn(len(chosen)), strict=True):
+    level = scores.dropna(subset=[value]).groupby(["arm", "task", "size", "seed"])[value].mean()
+    advance("paired differences", 0, len(chosen))
+    for k, (arm, child) in enumerate(zip(chosen, rng_root.spawn(len(chosen)), strict=True)):
+        if k:
+            advance("paired differences", k, len(chosen))
         rng = np.random.default_rng(child)
-        for task, size, x, y, nx, ny in _paired_cells(scores, value, arm, baseline):
+        for task, size, x, y, nx, ny in _paired_cells(level, arm, baseline):
             n = len(x)
             note = (
                 ""
@@ -141,6 +144,7 @@ def paired_differences(
                         resamples=settings.resamples,
                         rng=rng,
                         is_mean=True,
+                        want_se=False,
                     )
                     method = settings.method
                 else:  # resample seed positions, then difference the two estimates
@@ -175,6 +179,7 @@ def paired_differences(
                     "note": note,
                 }
             )
+    advance("paired differences", len(chosen), len(chosen))
     frame = pd.DataFrame(
         rows,
         columns=["arm", "task", "size", "difference", "low", "high", "n_seeds", "method", "note"],
