@@ -106,13 +106,13 @@ def curve_scores(
         if value == "score":
             table = to_metric_units(table, higher_is_better=sc.higher_is_better)
         kind = "per-task"
-    table = _in_study_order(table, arms or list(dict.fromkeys(sc.scores["arm"])))
+    table = in_study_order(table, arms or list(dict.fromkeys(sc.scores["arm"])))
     report = CurveReport(table, kind, value, settings, sc)
     report.notes.extend(caveats(report))
     return report
 
 
-def _in_study_order(table: pd.DataFrame, arms: list[str]) -> pd.DataFrame:
+def in_study_order(table: pd.DataFrame, arms: list[str]) -> pd.DataFrame:
     """Rows in the study file's order of arms (then as they were), as every figure draws them."""
     if table.empty:
         return table

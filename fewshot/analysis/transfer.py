@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from fewshot.analysis.curves import in_study_order
 from fewshot.analysis.data import StudyData, StudyScores, as_study_data, study_scores
 from fewshot.errors import InvalidInput
 from fewshot.stats import CurveSettings, aggregate_curves, to_metric_units
@@ -219,6 +220,16 @@ def compare_scores(
         notes.append(
             f"some arms are clearly below {threshold:g} (normalised) at the largest size: shown as '> largest'"
         )
+    # every table in the study file's order of arms (as curves and figures are), then as computed
+    order = (
+        list(arm_table["arm"])
+        if arm_table is not None and "arm" in arm_table
+        else list(dict.fromkeys(sc.scores["arm"]))
+    )
+    table, thresholds, areas, headline, scaling = (
+        in_study_order(t, order) if "arm" in t else t
+        for t in (table, thresholds, areas, headline, scaling)
+    )
     return CompareReport(
         table,
         thresholds,
