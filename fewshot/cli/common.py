@@ -201,6 +201,24 @@ LEDGER_HELP = "Ledger: a path or SQLAlchemy URL (default: $FEWSHOT_LEDGER, else 
 STUDY_HELP = "The study to use when the ledger holds more than one."
 LedgerOpt = Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)]
 StudyOpt = Annotated[str | None, typer.Option("--study", help=STUDY_HELP)]
+PagerOpt = Annotated[
+    bool,
+    typer.Option(
+        "--pager", help="Show the tables in a pager ($PAGER, else the system's); only when asked."
+    ),
+]
+
+
+@contextmanager
+def paged(enabled: bool) -> Iterator[None]:
+    """Send what the block prints to ``out`` through a pager when ``enabled`` (never by default:
+    long tables print straight to the terminal unless the user asks)."""
+    if not enabled:
+        yield
+        return
+    with out.pager(styles=out.is_terminal):
+        yield
+
 
 _UNITS = {"s": 1, "m": 60, "h": 3600, "d": 86400}
 MAX_DURATION = 30 * 86400.0

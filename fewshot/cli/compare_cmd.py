@@ -11,11 +11,13 @@ from rich.text import Text
 
 from fewshot.cli.common import (
     LedgerOpt,
+    PagerOpt,
     StudyOpt,
     TableJsonCsv,
     err,
     open_ledger,
     out,
+    paged,
     print_json,
     reporting,
 )
@@ -79,6 +81,7 @@ def compare(
     fmt: Annotated[
         CompareFormat, typer.Option("--format", help="table, csv, json or latex.")
     ] = CompareFormat.table,
+    pager: PagerOpt = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -117,8 +120,9 @@ def compare(
     if rep.value == "normalised" and len(rep.over_tasks) > 1:
         with reporting(), as_flags():
             aggregate = curve_scores(rep.scores, settings, across_tasks=True, arms=data.arm_order)
-    print_findings(findings(rep, aggregate, arm_order=data.arm_order))
-    print_transfer(rep)
+    with paged(pager):
+        print_findings(findings(rep, aggregate, arm_order=data.arm_order))
+        print_transfer(rep)
 
 
 def print_findings(found) -> None:  # type: ignore[no-untyped-def]

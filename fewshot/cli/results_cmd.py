@@ -14,12 +14,14 @@ from rich.text import Text
 from fewshot.cli.common import (
     AttemptOpt,
     LedgerOpt,
+    PagerOpt,
     StudyOpt,
     TableJsonCsv,
     attempt_for,
     err,
     open_ledger,
     out,
+    paged,
     print_frame,
     print_json,
     progress,
@@ -175,6 +177,7 @@ def status(
     fmt: Annotated[
         TableJsonCsv, typer.Option("--format", help="table, json or csv.")
     ] = TableJsonCsv.table,
+    pager: PagerOpt = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -199,6 +202,12 @@ def status(
             }
         )
         return
+    with paged(pager):
+        _print_status(rep)
+
+
+def _print_status(rep) -> None:  # type: ignore[no-untyped-def]
+    """The status tables and lists on the terminal."""
     sizes = sorted(set(rep.cells["size"]))
     title = f"{rep.study}: runs done / total (running, failed, has results but not marked done)"
 

@@ -12,10 +12,12 @@ from rich.text import Text
 
 from fewshot.cli.common import (
     LedgerOpt,
+    PagerOpt,
     StudyOpt,
     err,
     open_ledger,
     out,
+    paged,
     print_json,
     reporting,
     styled,
@@ -200,6 +202,7 @@ def curves_cmd(
     fmt: Annotated[
         CurvesFormat, typer.Option("--format", help="Output format.")
     ] = CurvesFormat.table,
+    pager: PagerOpt = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
@@ -254,7 +257,8 @@ def curves_cmd(
             nl=False,
         )
     else:
-        print_curve_table(report)
+        with paged(pager):
+            print_curve_table(report)
 
 
 def plot(
