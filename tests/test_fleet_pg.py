@@ -167,7 +167,7 @@ def test_record_against_ingest_of_the_same_result(planned: str, tmp_path: Path):
 
 def test_nul_characters_in_a_failure_message_are_dropped(planned: str):
     with Ledger.open(planned) as led:
-        led.fail("wide/reach/n1/s0", "CUDA\x00 error\x00\n")
+        led.fail("wide/reach/n1/s0", "CUDA\x00 error\x00\n", unclaimed=True)
         assert led.runs().set_index("key").loc["wide/reach/n1/s0", "message"] == "CUDA error\n"
         with pytest.raises(FewshotError, match="NUL"):
             led.done("wide/reach/n1/s0\x00")

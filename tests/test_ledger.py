@@ -8,6 +8,7 @@ from pathlib import Path
 
 import pytest
 
+from fewshot.errors import InvalidInput
 from fewshot.ledger import (
     Ledger,
     LedgerError,
@@ -105,6 +106,16 @@ def test_claims_are_unique_and_leases_expire(planned, wait_until):
     st = led.status()
     assert st.totals["done"] == 1 and st.totals["failed"] == 1
     assert len(st.failed.iloc[0]["message"]) <= 4000
+
+
+def test_fail_refuses_a_run_no_worker_claimed(planned):
+    led, _ = planned
+    key = led.runs().iloc[0]["key"]
+    with pytest.raises(InvalidInput, match="never claimed"):
+        led.fail(key, "nothing ran")
+    assert led.runs().set_index("key").loc[key, "status"] == "planned"
+    led.fail(key, "ran outside the claims", unclaimed=True)  # e.g. a pinned scheduler job
+    assert led.runs().set_index("key").loc[key, "status"] == "failed"
 
 
 def test_claim_until_empty(planned):
