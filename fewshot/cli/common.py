@@ -145,34 +145,6 @@ def int_list(text: str, *, option: str) -> tuple[int, ...]:
     return tuple(values)
 
 
-def records(frame: Any) -> list[dict[str, Any]]:
-    """A DataFrame's rows as JSON-ready dicts: infinity is the string ``"inf"`` (or ``"-inf"``),
-    never ``null``, which means missing (pandas' own ``to_json`` writes both as ``null``)."""
-    return [{str(k): _plain(v) for k, v in row.items()} for row in frame.to_dict(orient="records")]
-
-
-def _plain(v: Any) -> Any:
-    if hasattr(v, "item") and not isinstance(v, str | bytes):
-        v = v.item()  # numpy scalars to Python numbers
-    if isinstance(v, float):
-        if v != v:
-            return None
-        if v in (float("inf"), float("-inf")):
-            return "inf" if v > 0 else "-inf"
-    if v is None or (not isinstance(v, str | int | float | bool | list | dict) and _missing(v)):
-        return None
-    return v
-
-
-def _missing(v: Any) -> bool:
-    import pandas as pd
-
-    try:
-        return bool(pd.isna(v))
-    except (TypeError, ValueError):
-        return False
-
-
 def print_json(data: Any) -> None:
     """Write ``data`` as indented JSON to stdout, with no markup or wrapping."""
     sys.stdout.write(json.dumps(data, indent=2) + "\n")
