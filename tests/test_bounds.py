@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from fewshot.cli.common import records
+from fewshot.analysis.shapes import json_records as records
 from fewshot.stats import CurveSettings, bootstrap_cells
 from fewshot.stats.intervals import stratified_mean_t
 from fewshot.stats.inversion import level_crossing_set, seed_t_interval
