@@ -58,6 +58,9 @@ def _spec_json(study: Study) -> str:
             "seeds": list(study.seeds),
             "replicates": study.replicates,
             "file": str(study.path),
+            "metrics": list(study.metrics),
+            "bounds": None if study.bounds is None else list(study.bounds),
+            "caution": study.caution,
         },
         sort_keys=True,
     )

@@ -208,12 +208,18 @@ class LedgerReads(LedgerConnection):
         def go(c: Connection) -> dict[str, Any]:
             sid, _ = self._sid(c)
             r = c.execute(select(StudyRow).where(StudyRow.id == sid)).one()
+            spec = json.loads(r.spec_json)
+            bounds = spec.get("bounds")
             return {
                 "name": r.name,
                 "metric": r.metric,
                 "higher_is_better": r.higher_is_better,
                 "replicates": r.replicates,
                 "baseline": r.baseline,
+                # kept in the stored spec; ledgers planned before these keys existed lack them
+                "metrics": tuple(spec.get("metrics") or (r.metric,)),
+                "bounds": None if bounds is None else (float(bounds[0]), float(bounds[1])),
+                "caution": spec.get("caution"),
             }
 
         return self._tx(go)

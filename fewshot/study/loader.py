@@ -37,6 +37,9 @@ _TOP = {
     "tasks",
     "draws_dir",
     "description",
+    "metrics",
+    "bounds",
+    "caution",
 }
 _ARM = {f.name for f in fields(Arm)}
 _TASK = {f.name for f in fields(Task)}  # the task's own keys and its draw settings
@@ -120,6 +123,9 @@ def _get(doc, key, kind, where, table=None, i=0, *, required=False, default=None
         "num": isinstance(value, int | float) and not isinstance(value, bool),
         "intlist": isinstance(value, list)
         and all(isinstance(v, int) and not isinstance(v, bool) for v in value),
+        "numlist": isinstance(value, list)
+        and all(isinstance(v, int | float) and not isinstance(v, bool) for v in value),
+        "strlist": isinstance(value, list) and all(isinstance(v, str) for v in value),
         "table": isinstance(value, dict),
         "tables": isinstance(value, list) and all(isinstance(v, dict) for v in value),
     }[kind]
@@ -130,6 +136,8 @@ def _get(doc, key, kind, where, table=None, i=0, *, required=False, default=None
             "int": "a whole number",
             "num": "a number",
             "intlist": "a list of whole numbers",
+            "numlist": "a list of numbers",
+            "strlist": "a list of strings",
             "table": "a table",
             "tables": "an array of tables",
         }
@@ -203,6 +211,16 @@ def _build(doc: dict[str, Any], base: Path, path: Path, where: _Where) -> Study:
             f"{baseline!r} is not one of the arms ({', '.join(a.name for a in arms)}).{hint}",
             "baseline",
         )
+    metrics = _get(doc, "metrics", "strlist", where, default=[])
+    for m in metrics:
+        if not m.strip():
+            raise where.error("metric names must not be empty.", "metrics")
+    if len(set(metrics)) != len(metrics):
+        raise where.error(f"names a metric twice. Got {metrics}.", "metrics")
+    bounds = _bounds(_get(doc, "bounds", "numlist", where, default=None), where)
+    caution = _get(doc, "caution", "str", where, default=None)
+    if caution is not None and not caution.strip():
+        raise where.error("must not be empty (leave it out for the default caution).", "caution")
     draws = _get(doc, "draws_dir", "str", where, default=None)
     draws_dir = (base / draws) if draws else (base / "draws" / name)
     return Study(
@@ -217,7 +235,22 @@ def _build(doc: dict[str, Any], base: Path, path: Path, where: _Where) -> Study:
         tasks=tasks,
         path=path,
         draws_dir=draws_dir,
+        metrics=(metric, *metrics),
+        bounds=bounds,
+        caution=caution,
     )
+
+
+def _bounds(value: list[float] | None, where: _Where) -> tuple[float, float] | None:
+    if value is None:
+        return None
+    if len(value) != 2 or any(math.isnan(v) for v in value) or not value[0] < value[1]:
+        raise where.error(
+            "must be two numbers, lowest first, e.g. [0, 1] for an accuracy "
+            f"(inf and -inf leave a side open). Got {value!r}.",
+            "bounds",
+        )
+    return (float(value[0]), float(value[1]))
 
 
 def _arm(doc: dict[str, Any], i: int, where: _Where) -> Arm:
@@ -235,16 +268,21 @@ def _arm(doc: dict[str, Any], i: int, where: _Where) -> Arm:
         raise where.error(f"must be 'pretrained' or 'baseline'. Got {role!r}.", "role", "arms", i)
     attrs = _get(doc, "attributes", "table", where, "arms", i, default={})
     for k, v in attrs.items():
+        if isinstance(v, str):
+            continue
         if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
             raise where.error(
-                f"attribute {k!r} must be a finite number. Got {v!r}.", "attributes", "arms", i
+                f"attribute {k!r} must be a finite number or a string. Got {v!r}.",
+                "attributes",
+                "arms",
+                i,
             )
     return Arm(
         name=name,
         role=role,
         checkpoint=_get(doc, "checkpoint", "str", where, "arms", i),
         zero_shot=_get(doc, "zero_shot", "bool", where, "arms", i, default=role == "pretrained"),
-        attributes={k: float(v) for k, v in sorted(attrs.items())},
+        attributes={k: v if isinstance(v, str) else float(v) for k, v in sorted(attrs.items())},
     )
 
 

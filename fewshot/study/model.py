@@ -31,15 +31,16 @@ class Arm:
         Where the arm's starting weights are (free text for the trainer).
     zero_shot : bool
         Whether size 0 (no fine-tuning) is planned for this arm.
-    attributes : mapping of str to float
-        Free numbers, e.g. a parameter count for a scaling view.
+    attributes : mapping of str to float or str
+        Free numbers (e.g. a parameter count for a scaling view) or text (e.g. a recipe name);
+        the trainer receives them as JSON.
     """
 
     name: str
     role: str
     checkpoint: str | None = None
     zero_shot: bool = False
-    attributes: Mapping[str, float] = field(default_factory=dict)
+    attributes: Mapping[str, float | str] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -131,6 +132,15 @@ class Study:
         The study file.
     draws_dir : pathlib.Path
         Where subset id files are written (``draws/<study>`` beside the file by default).
+    metrics : tuple of str
+        Every metric a result may carry: the primary ``metric`` first, then the file's
+        ``metrics`` list in its order (results for any other metric are refused unless the
+        writer asks for a new one).
+    bounds : tuple of two floats or None
+        The range the primary metric can take (e.g. ``(0.0, 1.0)`` for an accuracy); intervals
+        are clipped to it. ``None``: unbounded.
+    caution : str or None
+        The study's own caution for the report, replacing the default one.
     """
 
     name: str
@@ -144,6 +154,13 @@ class Study:
     tasks: tuple[Task, ...]
     path: Path
     draws_dir: Path
+    metrics: tuple[str, ...] = ()
+    bounds: tuple[float, float] | None = None
+    caution: str | None = None
+
+    def __post_init__(self) -> None:
+        rest = tuple(m for m in self.metrics if m != self.metric)
+        object.__setattr__(self, "metrics", (self.metric, *rest))
 
     def arm(self, name: str) -> Arm:
         """The arm called ``name``."""
