@@ -1,13 +1,11 @@
-"""Shared fixtures: pool files, study files with named edits, ledgers (empty and filled), a CLI
-runner and a condition wait.
+"""Shared fixtures: pool and CSV files, study files with named edits, ledgers (empty and filled),
+a scratch PostgreSQL database, a CLI runner, snapshots and a condition wait.
 
-Test modules use the fixtures. The module-level helpers below (``STUDY_TOML``, ``write_study``,
-``write_csv``, ``tree_snapshot``, ``ledger_dump``) are still imported by some test modules; new
-tests take the fixtures (``study_file``, ``filled_ledger``, ``cli``, ``snapshot``, ``dump``)."""
+Test modules take fixtures only; the plain helpers behind them live in :mod:`tests.support`, which
+only the benchmark scripts (not test modules) import."""
 
 from __future__ import annotations
 
-import csv
 import os
 import time
 from collections.abc import Callable
@@ -15,114 +13,118 @@ from pathlib import Path
 
 import pytest
 
-STUDIES = Path(__file__).resolve().parent.parent / "studies"
+from tests import support
 
 # Tests use leases of a fraction of a second; the tool's floor is 30 s otherwise (DEVELOPERS.md).
 os.environ.setdefault("FEWSHOT_TESTING_MIN_LEASE", "0.1")
 
+NO_PG = "no PostgreSQL server: set FEWSHOT_TEST_PG to a scratch database URL to run this"
 
 WaitUntil = Callable[..., None]
 
 
-@pytest.fixture
+@pytest.fixture(scope="session")
 def wait_until() -> WaitUntil:
-    """``wait_until(condition, what, timeout=60)``: poll ``condition()`` until it is true, and fail
-    the test naming ``what`` when it never comes. Tests synchronise on conditions this way, never
-    on a fixed sleep, so they pass on a loaded machine."""
+    """``wait_until(condition, what, timeout=60, every=0.02)``: poll ``condition()`` until it is
+    true, and fail the test naming ``what`` when it never comes. Tests synchronise on conditions
+    this way, never on a fixed sleep, so they pass on a loaded machine."""
 
-    def wait(condition: Callable[[], object], what: str, timeout: float = 60.0) -> None:
+    def wait(
+        condition: Callable[[], object], what: str, timeout: float = 60.0, every: float = 0.02
+    ) -> None:
         deadline = time.monotonic() + timeout
         while time.monotonic() < deadline:
             if condition():
                 return
-            time.sleep(0.02)
+            time.sleep(every)
         pytest.fail(f"timed out after {timeout:.0f} s waiting for {what}")
 
     return wait
 
 
-def write_csv(path: Path, header: list[str], rows: list[list[object]]) -> Path:
-    with open(path, "w", newline="", encoding="utf-8") as f:
-        w = csv.writer(f)
-        w.writerow(header)
-        w.writerows(rows)
-    return path
+# --------------------------------------------------------------------------- files
+
+
+@pytest.fixture(scope="session")
+def csv_file() -> Callable[[Path, list[str], list[list[object]]], Path]:
+    """``csv_file(path, header, rows)``: write a CSV file with a header row; returns ``path``."""
+    return support.write_csv
 
 
 @pytest.fixture
 def pool_csv(tmp_path: Path) -> Path:
     """120 episodes with a return and a site column (three sites of 60/40/20)."""
-    rows = []
+    rows: list[list[object]] = []
     for k in range(120):
         site = "north" if k % 6 < 3 else ("south" if k % 6 < 5 else "ramp")
         rows.append([f"ep{k:03d}", f"{(k * 37) % 101}.5", site])
-    return write_csv(tmp_path / "pool.csv", ["episode", "return", "site"], rows)
+    return support.write_csv(tmp_path / "pool.csv", ["episode", "return", "site"], rows)
 
 
 @pytest.fixture
 def demo_pool() -> Path:
-    return STUDIES / "pools" / "dock-east.csv"
+    return support.STUDIES / "pools" / "dock-east.csv"
 
 
-def tree_snapshot(root: Path) -> dict[str, bytes]:
-    """Every file below ``root`` with its bytes, to compare before and after a command."""
-    if not root.exists():
-        return {}
-    return {
-        str(p.relative_to(root)): p.read_bytes() for p in sorted(root.rglob("*")) if p.is_file()
-    }
+@pytest.fixture(scope="session")
+def studies_dir() -> Path:
+    """The project's shipped example studies."""
+    return support.STUDIES
 
 
-STUDY_TOML = """
-name = "mini"
-metric = "return"
-higher_is_better = true
-sizes = [0, 1, 3, 10]
-seeds = [0, 1, 2]
-baseline = "scratch"
-
-[[arms]]
-name = "wide"
-role = "pretrained"
-checkpoint = "ckpt/wide.pt"
-attributes = { params = 1e6 }
-
-[[arms]]
-name = "scratch"
-role = "baseline"
-
-[[tasks]]
-name = "reach"
-pool = "pool.csv"
-id_column = "episode"
-keep_top = 100
-rank_by = "return"
-floor = 0.0
-expert = 100.0
-group = "arm"
-"""
+@pytest.fixture(scope="session")
+def study_text() -> Callable[..., str]:
+    """:func:`tests.support.study_toml`: the small study's text with named edits (``arms``,
+    ``drop_arms``, ``extra_arms``, ``task``, ``extra_tasks``, ``second_task``, top-level keys); an edit that
+    does not apply fails."""
+    return support.study_toml
 
 
-def write_study(folder: Path, text: str = STUDY_TOML, pool_rows: int = 120) -> Path:
-    """A small study file with its pool in ``folder``."""
-    write_csv(
-        folder / "pool.csv",
-        ["episode", "return", "site"],
-        [[f"ep{k:03d}", f"{(k * 37) % 101}.5", "n" if k % 3 else "s"] for k in range(pool_rows)],
-    )
-    path = folder / "study.toml"
-    path.write_text(text, encoding="utf-8")
-    return path
+def _write_study(
+    folder: Path,
+    *,
+    filename: str = "study.toml",
+    pool_rows: int = 120,
+    text: str | None = None,
+    **edits: object,
+) -> Path:
+    if text is not None and edits:
+        raise TypeError("give either the raw text or named edits, not both")
+    body = text if text is not None else support.study_toml(**edits)  # type: ignore[arg-type]
+    return support.write_study(folder, body, pool_rows=pool_rows, name=filename)
 
 
-def _reset_pg(url: str) -> None:
-    from sqlalchemy import create_engine, text
+@pytest.fixture(scope="session")
+def study_in() -> Callable[..., Path]:
+    """``study_in(folder, *, filename="study.toml", pool_rows=120, text=None, **edits)``: the
+    study file factory of :func:`study_file` for any folder, usable by module-scoped fixtures."""
+    return _write_study
 
-    engine = create_engine(url.replace("postgresql://", "postgresql+psycopg://", 1))
-    with engine.begin() as conn:
-        conn.execute(text("DROP SCHEMA public CASCADE"))
-        conn.execute(text("CREATE SCHEMA public"))
-    engine.dispose()
+
+@pytest.fixture
+def study_file(tmp_path: Path) -> Callable[..., Path]:
+    """``study_file(folder=None, *, filename="study.toml", pool_rows=120, text=None, **edits)``:
+    write the small study (with the named edits of :func:`tests.support.study_toml`, or the raw
+    ``text`` given explicitly) and its pool into ``folder`` (default: ``tmp_path``)."""
+
+    def make(folder: Path | None = None, **kwargs: object) -> Path:
+        return _write_study(folder or tmp_path, **kwargs)  # type: ignore[arg-type]
+
+    return make
+
+
+# --------------------------------------------------------------------------- ledgers and the CLI
+
+
+@pytest.fixture
+def pg_scratch() -> str:
+    """The scratch PostgreSQL database named by FEWSHOT_TEST_PG, its public schema dropped and
+    recreated; the test is skipped (saying why) when FEWSHOT_TEST_PG is not set."""
+    url = os.environ.get("FEWSHOT_TEST_PG")
+    if not url:
+        pytest.skip(NO_PG)
+    support.reset_pg(url)
+    return url
 
 
 @pytest.fixture(params=["sqlite", "postgresql"])
@@ -133,121 +135,7 @@ def ledger_url(request, tmp_path: Path) -> str:
     """
     if request.param == "sqlite":
         return str(tmp_path / "ledger.sqlite")
-    url = os.environ.get("FEWSHOT_TEST_PG")
-    if not url:
-        pytest.skip(
-            "no PostgreSQL server: set FEWSHOT_TEST_PG to a scratch database URL to run these"
-        )
-    _reset_pg(url)
-    return url
-
-
-def ledger_dump(url: str) -> dict[str, list[tuple]]:
-    """Every row of every table, sorted, to compare a ledger before and after a refused call."""
-    from sqlalchemy import MetaData, create_engine, select
-
-    from fewshot.ledger.engine import resolve_url
-
-    engine = create_engine(resolve_url(url))
-    meta = MetaData()
-    meta.reflect(engine)
-    out = {}
-    with engine.connect() as conn:
-        for name, table in sorted(meta.tables.items()):
-            out[name] = sorted(conn.execute(select(table)).all(), key=repr)
-    engine.dispose()
-    return out
-
-
-# --------------------------------------------------------------------------- study files
-
-
-STUDY = {
-    "name": "mini",
-    "metric": "return",
-    "higher_is_better": True,
-    "sizes": [0, 1, 3, 10],
-    "seeds": [0, 1, 2],
-    "baseline": "scratch",
-    "arms": [
-        {
-            "name": "wide",
-            "role": "pretrained",
-            "checkpoint": "ckpt/wide.pt",
-            "attributes": {"params": 1e6},
-        },
-        {"name": "scratch", "role": "baseline"},
-    ],
-    "tasks": [
-        {
-            "name": "reach",
-            "pool": "pool.csv",
-            "id_column": "episode",
-            "keep_top": 100,
-            "rank_by": "return",
-            "floor": 0.0,
-            "expert": 100.0,
-            "group": "arm",
-        }
-    ],
-}
-
-
-def _toml_value(v: object) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, int | float):
-        return repr(v)
-    if isinstance(v, str):
-        return '"' + v.replace("\\", "\\\\").replace('"', '\\"') + '"'
-    if isinstance(v, list | tuple | range):
-        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
-    if isinstance(v, dict):
-        return "{ " + ", ".join(f"{k} = {_toml_value(x)}" for k, x in v.items()) + " }"
-    raise TypeError(f"no TOML form for {v!r}")
-
-
-def study_toml(
-    *,
-    arms: dict[str, dict[str, object]] | None = None,
-    drop_arms: tuple[str, ...] = (),
-    task: dict[str, object] | None = None,
-    **top: object,
-) -> str:
-    """The text of the small study (:data:`STUDY`) with named edits: ``top`` keys set (None
-    removes one), ``arms`` edits per arm name, ``drop_arms`` removed, ``task`` edits of its one
-    task. An edit of an arm that does not exist fails, so no edit is silently lost."""
-    doc = {k: v for k, v in STUDY.items() if k not in ("arms", "tasks")}
-    doc.update(top)
-    arm_list = [dict(a) for a in STUDY["arms"] if a["name"] not in drop_arms]  # type: ignore[attr-defined,index]
-    for name, edits in (arms or {}).items():
-        (arm,) = [a for a in arm_list if a["name"] == name] or [None]
-        if arm is None:
-            raise KeyError(f"no arm {name!r} to edit")
-        arm.update(edits)
-    t = dict(STUDY["tasks"][0])  # type: ignore[index]
-    t.update(task or {})
-    lines = [f"{k} = {_toml_value(v)}" for k, v in doc.items() if v is not None]
-    for a in arm_list:
-        lines += ["", "[[arms]]"] + [
-            f"{k} = {_toml_value(v)}" for k, v in a.items() if v is not None
-        ]
-    lines += ["", "[[tasks]]"] + [f"{k} = {_toml_value(v)}" for k, v in t.items() if v is not None]
-    return "\n".join(lines) + "\n"
-
-
-@pytest.fixture
-def study_file(tmp_path: Path) -> Callable[..., Path]:
-    """``study_file(folder=None, *, pool_rows=120, **edits)``: write the small study (with the
-    named edits of :func:`study_toml`) and its pool into ``folder`` (default: ``tmp_path``)."""
-
-    def make(folder: Path | None = None, *, pool_rows: int = 120, **edits: object) -> Path:
-        return write_study(folder or tmp_path, study_toml(**edits), pool_rows=pool_rows)  # type: ignore[arg-type]
-
-    return make
-
-
-# --------------------------------------------------------------------------- ledgers and the CLI
+    return request.getfixturevalue("pg_scratch")
 
 
 @pytest.fixture
@@ -293,13 +181,13 @@ def cli():
     return invoke
 
 
-@pytest.fixture
+@pytest.fixture(scope="session")
 def snapshot() -> Callable[[Path], dict[str, bytes]]:
-    """:func:`tree_snapshot`: every file below a folder with its bytes."""
-    return tree_snapshot
+    """:func:`tests.support.tree_snapshot`: every file below a folder with its bytes."""
+    return support.tree_snapshot
 
 
-@pytest.fixture
+@pytest.fixture(scope="session")
 def dump() -> Callable[[str], dict[str, list[tuple]]]:
-    """:func:`ledger_dump`: every row of every table of a ledger."""
-    return ledger_dump
+    """:func:`tests.support.ledger_dump`: every row of every table of a ledger."""
+    return support.ledger_dump

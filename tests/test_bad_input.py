@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import sqlite3
 from pathlib import Path
 
@@ -11,21 +12,18 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, ledger_dump, tree_snapshot, write_study
 
 runner = CliRunner()
 GOOD_LINE = '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1.5}\n'
 
 
 @pytest.fixture
-def world(tmp_path: Path):
+def world(tmp_path: Path, study_file):
     """A planned study (and a second study in the same ledger) with its draws on disk."""
-    study = write_study(tmp_path)
+    study = study_file(tmp_path)
     other_dir = tmp_path / "other"
     other_dir.mkdir()
-    other = write_study(
-        other_dir, STUDY_TOML.replace('name = "mini"', 'name = "other"').replace('"wide"', '"deep"')
-    )
+    other = study_file(other_dir, name="other", arms={"wide": {"name": "deep"}})
     ledger = str(tmp_path / "l.sqlite")
     led = Ledger.open(ledger)
     led.plan(load_study(study))
@@ -34,91 +32,87 @@ def world(tmp_path: Path):
     return tmp_path, study, ledger
 
 
-def _study(text: str):  # type: ignore[no-untyped-def]
-    return lambda d: (d / "bad.toml").write_text(text, encoding="utf-8")
+def _study(text: str | None = None, **edits: object):  # type: ignore[no-untyped-def]
+    """Write bad.toml: the small study with named edits, or the raw ``text``."""
+    return lambda d, study_file: study_file(d, filename="bad.toml", text=text, **edits)
 
 
 def _bytes(name: str, data: bytes):  # type: ignore[no-untyped-def]
-    return lambda d: (d / name).write_bytes(data)
-
-
-def _edit(old: str, new: str) -> str:
-    assert old in STUDY_TOML
-    return STUDY_TOML.replace(old, new, 1)
+    return lambda d, _: (d / name).write_bytes(data)
 
 
 # (id, how to make the input file, command arguments ({d} = the folder), fragment of the message)
 CASES = [
-    ("toml-malformed", _study("name = \n"), ["check", "{d}/bad.toml"], "not valid TOML"),
+    ("toml-malformed", _study(text="name = \n"), ["check", "{d}/bad.toml"], "not valid TOML"),
     (
         "toml-unknown-key",
-        _study(_edit("metric =", "metrc =")),
+        _study(metric=None, metrc="return"),
         ["check", "{d}/bad.toml"],
         "Did you mean 'metric'",
     ),
     (
         "toml-unknown-arm-key",
-        _study(_edit('role = "baseline"', 'role = "baseline"\nchekpoint = "x"')),
+        _study(arms={"scratch": {"chekpoint": "x"}}),
         ["check", "{d}/bad.toml"],
         "arms[1].chekpoint",
     ),
     (
         "toml-wrong-type",
-        _study(_edit("sizes = [0, 1, 3, 10]", 'sizes = "all"')),
+        _study(sizes="all"),
         ["check", "{d}/bad.toml"],
         "sizes: must be a list of whole numbers",
     ),
     (
         "toml-wrong-type-bool",
-        _study(_edit("higher_is_better = true", "higher_is_better = 1")),
+        _study(higher_is_better=1),
         ["check", "{d}/bad.toml"],
         "must be true or false",
     ),
     (
         "toml-duplicate-arm",
-        _study(_edit('name = "scratch"', 'name = "wide"')),
+        _study(arms={"scratch": {"name": "wide"}}),
         ["check", "{d}/bad.toml"],
         "'wide' is named twice",
     ),
     (
         "toml-duplicate-task",
-        _study(STUDY_TOML + '\n[[tasks]]\nname = "reach"\npool = "pool.csv"\n'),
+        _study(extra_tasks=({"name": "reach", "pool": "pool.csv"},)),
         ["check", "{d}/bad.toml"],
         "'reach' is named twice",
     ),
     (
         "toml-name-slash",
-        _study(_edit('name = "reach"', 'name = "a/b"')),
+        _study(task={"name": "a/b"}),
         ["check", "{d}/bad.toml"],
         "task name 'a/b' is not valid",
     ),
     (
         "toml-name-space",
-        _study(_edit('name = "wide"', 'name = "wide one"')),
+        _study(arms={"wide": {"name": "wide one"}}),
         ["check", "{d}/bad.toml"],
         "arm name 'wide one' is not valid",
     ),
     (
         "toml-name-markup",
-        _study(_edit('name = "mini"', 'name = "<i>x</i>"')),
+        _study(name="<i>x</i>"),
         ["check", "{d}/bad.toml"],
         "study name '<i>x</i>' is not valid",
     ),
     (
         "toml-size-beyond-pool",
-        _study(_edit("sizes = [0, 1, 3, 10]", "sizes = [0, 1, 500]")),
+        _study(sizes=[0, 1, 500]),
         ["check", "{d}/bad.toml"],
         "size 500 is larger than the eligible pool",
     ),
     (
         "toml-missing-pool",
-        _study(_edit('pool = "pool.csv"', 'pool = "gone.csv"')),
+        _study(task={"pool": "gone.csv"}),
         ["check", "{d}/bad.toml"],
         "gone.csv: pool file not found",
     ),
     (
         "toml-nan",
-        _study(_edit("expert = 100.0", "expert = nan")),
+        _study(task={"expert": math.nan}),
         ["check", "{d}/bad.toml"],
         "must be a finite number",
     ),
@@ -131,7 +125,7 @@ CASES = [
     ("toml-empty", _bytes("bad.toml", b""), ["check", "{d}/bad.toml"], "needs a 'name' key"),
     (
         "init-change-filter",
-        _study(_edit("keep_top = 100", "keep_top = 99")),
+        _study(task={"keep_top": 99}),
         ["init", "{d}/bad.toml", "--ledger", "{ledger}"],
         "filter changed",
     ),
@@ -311,7 +305,7 @@ CASES = [
 
 
 def _half_of(src: str, dst: str):  # type: ignore[no-untyped-def]
-    def make(d: Path) -> None:
+    def make(d: Path, _: object) -> None:
         data = (d / src).read_bytes()
         (d / dst).write_bytes(data[: len(data) // 2])
 
@@ -319,7 +313,7 @@ def _half_of(src: str, dst: str):  # type: ignore[no-untyped-def]
 
 
 def _foreign_sqlite(name: str):  # type: ignore[no-untyped-def]
-    def make(d: Path) -> None:
+    def make(d: Path, _: object) -> None:
         conn = sqlite3.connect(d / name)
         conn.execute("CREATE TABLE notes (body TEXT)")
         conn.commit()
@@ -336,25 +330,25 @@ LEDGER = ["--ledger", "{ledger}", "--study", "mini"]
 CASES += [
     (
         "toml-seed-beyond-64-bits",
-        _study(_edit("seeds = [0, 1, 2]", f"seeds = [0, {BIG}]")),
+        _study(seeds=[0, 2**63]),
         ["check", "{d}/bad.toml"],
-        "line 6: seeds: must be distinct whole numbers from 0 to 2**63-1",
+        "line 5: seeds: must be distinct whole numbers from 0 to 2**63-1",
     ),
     (
         "init-seed-beyond-64-bits",
-        _study(_edit("seeds = [0, 1, 2]", f"seeds = [{BIG}]")),
+        _study(seeds=[2**63]),
         ["init", "{d}/bad.toml", "--ledger", "{ledger}"],
         "from 0 to 2**63-1",
     ),
     (
         "toml-size-beyond-64-bits",
-        _study(_edit("sizes = [0, 1, 3, 10]", f"sizes = [1, {BIG}]")),
+        _study(sizes=[1, 2**63]),
         ["check", "{d}/bad.toml"],
         "from 0 (zero-shot) to 2**63-1",
     ),
     (
         "toml-replicates-absurd",
-        _study(_edit('baseline = "scratch"', 'baseline = "scratch"\nreplicates = 1000000')),
+        _study(replicates=1000000),
         ["check", "{d}/bad.toml"],
         "must be from 1 to 10000",
     ),
@@ -495,19 +489,21 @@ CASES += [
 @pytest.mark.parametrize(
     ("make", "args", "fragment"), [c[1:] for c in CASES], ids=[c[0] for c in CASES]
 )
-def test_bad_input_exits_2_names_the_place_and_changes_nothing(world, make, args, fragment):
+def test_bad_input_exits_2_names_the_place_and_changes_nothing(
+    world, make, args, fragment, dump, snapshot, study_file
+):
     folder, _, ledger = world
     if make is not None:
-        make(folder)
-    ledger_before = ledger_dump(ledger)
-    draws_before = tree_snapshot(folder / "draws")
+        make(folder, study_file)
+    ledger_before = dump(ledger)
+    draws_before = snapshot(folder / "draws")
     argv = [a.replace("{d}", str(folder)).replace("{ledger}", ledger) for a in args]
     result = runner.invoke(app, argv)
     assert result.exit_code == 2, result.output
     assert fragment in result.output, result.output
     assert "Traceback" not in result.output and "topsecret" not in result.output
-    assert ledger_dump(ledger) == ledger_before
-    assert tree_snapshot(folder / "draws") == draws_before
+    assert dump(ledger) == ledger_before
+    assert snapshot(folder / "draws") == draws_before
 
 
 def test_there_are_at_least_sixty_cases():
@@ -535,13 +531,13 @@ def test_there_are_at_least_sixty_cases():
         ],
     ],
 )
-def test_outputs_under_a_file_or_bad_options_write_nothing(world, args):
+def test_outputs_under_a_file_or_bad_options_write_nothing(world, args, snapshot):
     folder, _, ledger = world
     (folder / "afile").write_text("not a folder")
-    before = tree_snapshot(folder)
+    before = snapshot(folder)
     result = runner.invoke(
         app, [a.replace("{d}", str(folder)).replace("{ledger}", ledger) for a in args]
     )
     assert result.exit_code == 2, result.output
     assert "Traceback" not in result.output
-    assert tree_snapshot(folder) == before
+    assert snapshot(folder) == before

@@ -11,20 +11,15 @@ from typer.testing import CliRunner
 from fewshot.cli.commands import app
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 runner = CliRunner()
 
 
-def _gappy(folder: Path) -> str:
+def _gappy(folder: Path, study_file) -> str:
     """Two tasks; on the second, one arm has no runs done at size 1 (missing runs)."""
-    text = (
-        STUDY_TOML
-        + '\n[[tasks]]\nname = "push"\npool = "pool.csv"\nid_column = "episode"\nfloor = 0.0\nexpert = 80.0\n'
-    )
     path = str(folder / "l.sqlite")
     led = Ledger.open(path)
-    led.plan(load_study(write_study(folder, text)))
+    led.plan(load_study(study_file(folder, second_task=True)))
     rng = np.random.default_rng(1)
     for r in led.runs().itertuples():
         if r.task == "push" and r.arm == "wide" and r.size == 1:
@@ -38,8 +33,8 @@ def _gappy(folder: Path) -> str:
     return path
 
 
-def test_no_raw_numpy_warning_reaches_the_user(tmp_path: Path, monkeypatch):
-    ledger = _gappy(tmp_path)
+def test_no_raw_numpy_warning_reaches_the_user(tmp_path: Path, monkeypatch, study_file):
+    ledger = _gappy(tmp_path, study_file)
     import fewshot.analysis as analysis
 
     original = analysis.curve_report
@@ -70,8 +65,8 @@ def test_no_raw_numpy_warning_reaches_the_user(tmp_path: Path, monkeypatch):
     assert raw == [] and "Mean of empty slice" not in res.output
 
 
-def test_a_note_is_said_once(tmp_path: Path):
-    ledger = _gappy(tmp_path)
+def test_a_note_is_said_once(tmp_path: Path, study_file):
+    ledger = _gappy(tmp_path, study_file)
     res = runner.invoke(app, ["curves", "--ledger", ledger, "--resamples", "200"])
     assert res.exit_code == 0, res.output
     assert "seeds per interval" in res.output

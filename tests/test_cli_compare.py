@@ -12,7 +12,6 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 runner = CliRunner()
 
@@ -21,10 +20,10 @@ def run(*args: object):
     return runner.invoke(app, [str(a) for a in args])
 
 
-def _filled(tmp_path: Path, text: str) -> str:
+def _filled(tmp_path: Path, study_file, **edits: object) -> str:
     ledger = str(tmp_path / "l.sqlite")
     led = Ledger.open(ledger)
-    led.plan(load_study(write_study(tmp_path, text)))
+    led.plan(load_study(study_file(tmp_path, **edits)))
     rng = np.random.default_rng(0)
     for r in led.runs().itertuples():
         k = 6.0 if r.arm == "wide" else 1.0
@@ -38,11 +37,8 @@ def _filled(tmp_path: Path, text: str) -> str:
 
 
 @pytest.fixture
-def filled(tmp_path: Path) -> str:
-    text = STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3, 4]").replace(
-        "sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 30, 100]"
-    )
-    return _filled(tmp_path, text)
+def filled(tmp_path: Path, study_file) -> str:
+    return _filled(tmp_path, study_file, seeds=[0, 1, 2, 3, 4], sizes=[0, 1, 3, 10, 30, 100])
 
 
 def test_transfer_table(filled):
@@ -77,11 +73,8 @@ def test_json_rows(filled):
     assert {r["size"] for r in data["rows"]} == {1, 3, 10, 30, 100}
 
 
-def test_latex_escapes_names(tmp_path: Path):
-    text = STUDY_TOML.replace('name = "wide"', 'name = "wide_base"').replace(
-        "seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]"
-    )
-    ledger = _filled(tmp_path, text)
+def test_latex_escapes_names(tmp_path: Path, study_file):
+    ledger = _filled(tmp_path, study_file, arms={"wide": {"name": "wide_base"}}, seeds=[0, 1, 2, 3])
     tex = run("compare", "--ledger", ledger, "--resamples", "300", "--format", "latex").stdout
     assert tex.startswith("\\begin{table}") and "\\toprule" in tex and "wide\\_base" in tex
     assert "wide_base" not in tex.replace("wide\\_base", "")
@@ -106,11 +99,9 @@ def test_bad_compare_options(filled, args, fragment):
     assert fragment in result.output and "Traceback" not in result.output
 
 
-def test_without_references_thresholds_are_skipped_with_a_note(tmp_path: Path):
-    text = STUDY_TOML.replace("floor = 0.0\nexpert = 100.0\n", "").replace(
-        "seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]"
-    )
-    ledger = _filled(tmp_path, text)
+def test_without_references_thresholds_are_skipped_with_a_note(tmp_path: Path, study_file):
+    no_refs = {"floor": None, "expert": None}
+    ledger = _filled(tmp_path, study_file, task=no_refs, seeds=[0, 1, 2, 3])
     data = json.loads(
         run("compare", "--ledger", ledger, "--resamples", "300", "--format", "json").stdout
     )
@@ -128,11 +119,10 @@ def test_seeds_needed(filled):
     assert bad.exit_code == 2 and "--power must lie between 0 and 1" in bad.output
 
 
-def test_baseline_missing_a_size_is_named(tmp_path: Path):
+def test_baseline_missing_a_size_is_named(tmp_path: Path, study_file):
     ledger = str(tmp_path / "l.sqlite")
-    text = STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]")
     led = Ledger.open(ledger)
-    led.plan(load_study(write_study(tmp_path, text)))
+    led.plan(load_study(study_file(tmp_path, seeds=[0, 1, 2, 3])))
     for r in led.runs().itertuples():
         if r.arm == "scratch" and r.size == 3:
             continue  # the baseline never ran at size 3
@@ -149,8 +139,7 @@ def test_baseline_missing_a_size_is_named(tmp_path: Path):
     assert 3 not in {r["size"] for r in data["rows"]}
 
 
-def test_normalised_curves_need_references(tmp_path: Path):
-    text = STUDY_TOML.replace("floor = 0.0\nexpert = 100.0\n", "")
-    ledger = _filled(tmp_path, text)
+def test_normalised_curves_need_references(tmp_path: Path, study_file):
+    ledger = _filled(tmp_path, study_file, task={"floor": None, "expert": None})
     result = run("curves", "--ledger", ledger, "--normalised", "--resamples", "200")
     assert result.exit_code == 2 and "no task has both floor and expert" in result.output

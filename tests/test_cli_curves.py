@@ -12,7 +12,6 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 runner = CliRunner()
 
@@ -22,16 +21,10 @@ def run(*args: object):
 
 
 @pytest.fixture
-def filled(tmp_path: Path) -> str:
+def filled(tmp_path: Path, study_file) -> str:
     ledger = str(tmp_path / "l.sqlite")
     led = Ledger.open(ledger)
-    led.plan(
-        load_study(
-            write_study(
-                tmp_path, STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3, 4]")
-            )
-        )
-    )
+    led.plan(load_study(study_file(tmp_path, seeds=[0, 1, 2, 3, 4])))
     rng = np.random.default_rng(0)
     for r in led.runs().itertuples():
         gain = 20 if r.arm == "wide" else 0
@@ -111,9 +104,9 @@ def test_bad_options_exit_2(filled, args, fragment):
     assert fragment in result.output and "Traceback" not in result.output
 
 
-def test_no_results_yet(tmp_path: Path):
+def test_no_results_yet(tmp_path: Path, study_file):
     ledger = str(tmp_path / "l.sqlite")
-    Ledger.open(ledger).plan(load_study(write_study(tmp_path)))
+    Ledger.open(ledger).plan(load_study(study_file(tmp_path)))
     result = run("curves", "--ledger", ledger)
     assert result.exit_code == 2 and "has no results yet" in result.output
 

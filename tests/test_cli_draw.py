@@ -11,7 +11,6 @@ from typer.testing import CliRunner
 
 from fewshot import __version__
 from fewshot.cli import app
-from tests.conftest import tree_snapshot, write_csv
 
 runner = CliRunner()
 
@@ -130,8 +129,8 @@ def test_verify_reports_a_changed_pool(tmp_path: Path, pool_csv: Path):
     assert result.exit_code == 1 and "pool changed" in result.output
 
 
-def _pool(tmp_path: Path, rows: int = 20) -> Path:
-    return write_csv(
+def _pool(tmp_path: Path, csv_file, rows: int = 20) -> Path:
+    return csv_file(
         tmp_path / "p.csv",
         ["id", "score", "grp"],
         [[f"i{k}", k, "g" + str(k % 2)] for k in range(rows)],
@@ -161,8 +160,10 @@ BAD_DRAWS = [
 
 
 @pytest.mark.parametrize(("extra", "fragment"), BAD_DRAWS)
-def test_bad_draws_exit_2_with_a_message_and_write_nothing(tmp_path: Path, extra, fragment):
-    pool = _pool(tmp_path)
+def test_bad_draws_exit_2_with_a_message_and_write_nothing(
+    tmp_path: Path, extra, fragment, snapshot, csv_file
+):
+    pool = _pool(tmp_path, csv_file)
     out = tmp_path / "out"
     args = ["draw", pool, "--task", "t", "--sizes", "1,3", "--seeds", "0", "--out", out]
     # later options win, so the table's options override the defaults above
@@ -170,7 +171,7 @@ def test_bad_draws_exit_2_with_a_message_and_write_nothing(tmp_path: Path, extra
     assert result.exit_code == 2, result.output
     assert fragment in result.output
     assert "Traceback" not in result.output
-    assert tree_snapshot(out) == {}
+    assert snapshot(out) == {}
 
 
 @pytest.mark.parametrize(
@@ -183,28 +184,28 @@ def test_bad_draws_exit_2_with_a_message_and_write_nothing(tmp_path: Path, extra
         (b"id,score\ni\xe91,1\n", "line 2: not valid UTF-8"),
     ],
 )
-def test_bad_pool_files_exit_2(tmp_path: Path, content, fragment):
+def test_bad_pool_files_exit_2(tmp_path: Path, content, fragment, snapshot):
     pool = tmp_path / "p.csv"
     pool.write_bytes(content)
     out = tmp_path / "out"
     result = run("draw", pool, "--task", "t", "--sizes", "1", "--seeds", "0", "--out", out)
     assert result.exit_code == 2 and fragment in result.output and str(pool) in result.output
-    assert tree_snapshot(out) == {}
+    assert snapshot(out) == {}
 
 
-def test_redraw_with_other_reserve_is_refused_without_replace(tmp_path: Path):
-    pool = _pool(tmp_path)
+def test_redraw_with_other_reserve_is_refused_without_replace(tmp_path: Path, snapshot, csv_file):
+    pool = _pool(tmp_path, csv_file)
     base = ["draw", pool, "--task", "t", "--sizes", "1,3", "--seeds", "0", "--out", tmp_path / "o"]
     assert run(*base).exit_code == 0
-    before = tree_snapshot(tmp_path / "o")
+    before = snapshot(tmp_path / "o")
     refused = run(*base, "--reserve", "2")
     assert refused.exit_code == 2 and "different reserve" in refused.output
-    assert tree_snapshot(tmp_path / "o") == before
+    assert snapshot(tmp_path / "o") == before
     assert run(*base, "--reserve", "2", "--replace").exit_code == 0
 
 
-def test_debug_shows_the_traceback(tmp_path: Path):
-    pool = _pool(tmp_path)
+def test_debug_shows_the_traceback(tmp_path: Path, csv_file):
+    pool = _pool(tmp_path, csv_file)
     result = run(
         "--debug",
         "draw",
@@ -229,8 +230,8 @@ def test_debug_shows_the_traceback(tmp_path: Path):
         (["--seed", "0", "--size", "7"], "size 7 was not drawn"),
     ],
 )
-def test_verify_bad_requests_exit_2(tmp_path: Path, args, fragment):
-    pool = _pool(tmp_path)
+def test_verify_bad_requests_exit_2(tmp_path: Path, args, fragment, csv_file):
+    pool = _pool(tmp_path, csv_file)
     run("draw", pool, "--task", "t", "--sizes", "1,3", "--seeds", "0", "--out", tmp_path)
     result = run("verify", tmp_path / "t.manifest.json", tmp_path / "t/s0/n1.txt", *args)
     assert result.exit_code == 2 and fragment in result.output

@@ -10,7 +10,6 @@ import pytest
 from typer.testing import CliRunner
 
 from fewshot.cli import app
-from tests.conftest import STUDY_TOML, ledger_dump, write_study
 
 runner = CliRunner()
 STUDIES = Path(__file__).resolve().parent.parent / "studies"
@@ -21,16 +20,16 @@ def run(*args: object, env: dict[str, str] | None = None):
 
 
 @pytest.fixture
-def ready(tmp_path: Path) -> tuple[Path, str]:
-    study = write_study(tmp_path)
+def ready(tmp_path: Path, study_file) -> tuple[Path, str]:
+    study = study_file(tmp_path)
     ledger = str(tmp_path / "l.sqlite")
     result = run("init", study, "--ledger", ledger)
     assert result.exit_code == 0, result.output
     return study, ledger
 
 
-def test_check_prints_the_plan_without_a_ledger(tmp_path: Path):
-    study = write_study(tmp_path)
+def test_check_prints_the_plan_without_a_ledger(tmp_path: Path, study_file):
+    study = study_file(tmp_path)
     result = run("check", study)
     assert result.exit_code == 0, result.output
     assert "21 runs: 2 arms x 1 tasks x 4 sizes x 3 seeds" in result.output
@@ -39,11 +38,11 @@ def test_check_prints_the_plan_without_a_ledger(tmp_path: Path):
     assert data["runs"] == 21 and data["keys"][0] == "wide/reach/n0/s0"
 
 
-def test_init_then_again_then_additions(tmp_path: Path, ready):
+def test_init_then_again_then_additions(tmp_path: Path, ready, study_file):
     study, ledger = ready
     again = run("init", study, "--ledger", ledger)
     assert "0 new runs planned, 21 in all" in again.output
-    study.write_text(STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 5]"))
+    study_file(study.parent, seeds=[0, 1, 2, 5])
     more = run("init", study, "--ledger", ledger)
     assert (
         more.exit_code == 0
@@ -52,8 +51,8 @@ def test_init_then_again_then_additions(tmp_path: Path, ready):
     )
 
 
-def test_ledger_from_the_environment(tmp_path: Path):
-    study = write_study(tmp_path)
+def test_ledger_from_the_environment(tmp_path: Path, study_file):
+    study = study_file(tmp_path)
     ledger = str(tmp_path / "env.sqlite")
     assert run("init", study, env={"FEWSHOT_LEDGER": ledger}).exit_code == 0
     result = run("status", "--format", "json", env={"FEWSHOT_LEDGER": ledger})
@@ -102,13 +101,8 @@ def test_next_record_done_fail_status_export(ready, tmp_path: Path):
     assert out.read_text().startswith("study,run,arm,role,task,group,size,seed")
 
 
-def test_next_when_nothing_is_left(tmp_path: Path):
-    study = write_study(
-        tmp_path,
-        STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1]").replace(
-            "seeds = [0, 1, 2]", "seeds = [0]"
-        ),
-    )
+def test_next_when_nothing_is_left(tmp_path: Path, study_file):
+    study = study_file(tmp_path, sizes=[1], seeds=[0])
     ledger = str(tmp_path / "l.sqlite")
     run("init", study, "--ledger", ledger)
     assert run("next", "--worker", "a", "--ledger", ledger).exit_code == 0
@@ -140,14 +134,10 @@ def test_exec_runs_a_trainer_and_ingests_its_results(ready, tmp_path: Path):
     trainer = STUDIES / "example_trainer.py"
     # the example trainer reads the demo pool; point it at this test's pool through a copy
     local = tmp_path / "trainer.py"
-    local.write_text(
-        trainer.read_text()
-        .replace(
-            'POOL = Path(__file__).resolve().parent / "pools" / "dock-east.csv"',
-            f"POOL = Path({str(tmp_path / 'pool.csv')!r})",
-        )
-        .replace('row["episode"]', 'row["episode"]')
-    )
+    pool_line = 'POOL = Path(__file__).resolve().parent / "pools" / "dock-east.csv"'
+    text = trainer.read_text()
+    assert pool_line in text, "the example trainer no longer names its pool this way"
+    local.write_text(text.replace(pool_line, f"POOL = Path({str(tmp_path / 'pool.csv')!r})"))
     result = run(
         "exec",
         "--worker",
@@ -259,9 +249,9 @@ BAD_COMMANDS = [
 
 
 @pytest.mark.parametrize(("args", "fragment"), BAD_COMMANDS)
-def test_bad_commands_exit_2_and_change_nothing(ready, args, fragment):
+def test_bad_commands_exit_2_and_change_nothing(ready, args, fragment, dump):
     _, ledger = ready
-    before = ledger_dump(ledger)
+    before = dump(ledger)
     result = (
         run(*args, "--ledger", ledger)
         if args[0] != "exec"
@@ -270,49 +260,41 @@ def test_bad_commands_exit_2_and_change_nothing(ready, args, fragment):
     assert result.exit_code == 2, result.output
     assert fragment in result.output
     assert "Traceback" not in result.output
-    assert ledger_dump(ledger) == before
+    assert dump(ledger) == before
 
 
 @pytest.mark.parametrize(
-    ("edit", "fragment"),
+    ("edits", "fragment"),
     [
+        ({"task": {"keep_top": 50}}, "filter changed since its subsets were drawn"),
         (
-            lambda t: t.replace("keep_top = 100", "keep_top = 50"),
-            "filter changed since its subsets were drawn",
-        ),
-        (
-            lambda t: t.replace('name = "scratch"', 'name = "scratch2"').replace(
-                'baseline = "scratch"', 'baseline = "scratch2"'
-            ),
+            {"arms": {"scratch": {"name": "scratch2"}}, "baseline": "scratch2"},
             "arm(s) scratch were planned before",
         ),
-        (lambda t: t + '\n[[tasks]]\nname = "push"\npool = "missing.csv"\n', "pool file not found"),
-        (
-            lambda t: t.replace("sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 500]"),
-            "size 500 is larger than the eligible pool",
-        ),
+        ({"extra_tasks": ({"name": "push", "pool": "missing.csv"},)}, "pool file not found"),
+        ({"sizes": [0, 1, 3, 10, 500]}, "size 500 is larger than the eligible pool"),
     ],
 )
-def test_refused_init_changes_nothing(ready, edit, fragment):
+def test_refused_init_changes_nothing(ready, edits, fragment, dump, study_file):
     study, ledger = ready
-    before = ledger_dump(ledger)
+    before = dump(ledger)
     draws = {p: p.read_bytes() for p in (study.parent / "draws").rglob("*") if p.is_file()}
-    study.write_text(edit(STUDY_TOML))
+    study_file(study.parent, **edits)
     result = run("init", study, "--ledger", ledger)
     assert result.exit_code == 2, result.output
     assert fragment in result.output
-    assert ledger_dump(ledger) == before
+    assert dump(ledger) == before
     assert {p: p.read_bytes() for p in (study.parent / "draws").rglob("*") if p.is_file()} == draws
 
 
-def test_ingest_bad_file_exits_2_naming_the_line(ready, tmp_path: Path):
+def test_ingest_bad_file_exits_2_naming_the_line(ready, tmp_path: Path, dump):
     _, ledger = ready
     bad = tmp_path / "r.jsonl"
     bad.write_text('{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n{"run": "wide/re')
-    before = ledger_dump(ledger)
+    before = dump(ledger)
     result = run("ingest", bad, "--ledger", ledger)
     assert result.exit_code == 2 and f"{bad}, line 2: not valid JSON" in result.output
-    assert ledger_dump(ledger) == before
+    assert dump(ledger) == before
 
 
 def test_password_is_never_printed(tmp_path: Path):
@@ -322,20 +304,9 @@ def test_password_is_never_printed(tmp_path: Path):
     assert "s3cret" not in result.output and "***" in result.output
 
 
-def _one_run_study(tmp_path: Path) -> tuple[Path, str]:
-    study = write_study(
-        tmp_path,
-        STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1]")
-        .replace("seeds = [0, 1, 2]", "seeds = [0]")
-        .replace('role = "baseline"', 'role = "baseline"\nzero_shot = false'),
-    )
-    text = study.read_text()
-    # keep only the pretrained arm: one run in all
-    study.write_text(
-        text.replace(
-            '[[arms]]\nname = "scratch"\nrole = "baseline"\nzero_shot = false\n', ""
-        ).replace('baseline = "scratch"', 'baseline = "wide"')
-    )
+def _one_run_study(tmp_path: Path, study_file) -> tuple[Path, str]:
+    # only the pretrained arm, one size, one seed: one run in all
+    study = study_file(tmp_path, sizes=[1], seeds=[0], drop_arms=("scratch",), baseline="wide")
     ledger = str(tmp_path / "l.sqlite")
     assert run("init", study, "--ledger", ledger).exit_code == 0
     return study, ledger
@@ -357,7 +328,9 @@ _GATED_TRAINER = """
 import pathlib, sys, time
 pathlib.Path(sys.argv[1]).write_text("started")
 deadline = time.monotonic() + 120
-while not pathlib.Path(sys.argv[2]).exists() and time.monotonic() < deadline:
+while not pathlib.Path(sys.argv[2]).exists():
+    if time.monotonic() > deadline:
+        sys.exit("the gated trainer was never released (waited 120 s for the release file)")
     time.sleep(0.02)
 """
 
@@ -368,12 +341,12 @@ def _gated(tmp_path: Path) -> tuple[str, Path, Path]:
     return trainer, started, release
 
 
-def test_exec_keeps_the_lease_alive_while_the_trainer_runs(tmp_path: Path, wait_until):
+def test_exec_keeps_the_lease_alive_while_the_trainer_runs(tmp_path: Path, wait_until, study_file):
     import time
 
     from fewshot.ledger import Ledger
 
-    _, ledger = _one_run_study(tmp_path)
+    _, ledger = _one_run_study(tmp_path, study_file)
     trainer, started, release = _gated(tmp_path)
     proc = _exec(ledger, "slow", trainer, "--lease", "0.6s")
     led = Ledger.open(ledger)
@@ -391,12 +364,12 @@ def test_exec_keeps_the_lease_alive_while_the_trainer_runs(tmp_path: Path, wait_
     led.close()
 
 
-def test_an_interrupted_exec_hands_the_run_back(tmp_path: Path, wait_until):
+def test_an_interrupted_exec_hands_the_run_back(tmp_path: Path, wait_until, study_file):
     import signal
 
     from fewshot.ledger import Ledger
 
-    _, ledger = _one_run_study(tmp_path)
+    _, ledger = _one_run_study(tmp_path, study_file)
     trainer, started, release = _gated(tmp_path)
     proc = _exec(ledger, "w", trainer)
     led = Ledger.open(ledger)

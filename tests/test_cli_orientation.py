@@ -13,57 +13,34 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 runner = CliRunner()
-
-TWO_TASKS = """
-name = "mini"
-metric = "{metric}"
-higher_is_better = {hib}
-sizes = [1, 3, 10, 30]
-seeds = [{seeds}]
-baseline = "scratch"
-
-[[arms]]
-name = "wide"
-role = "pretrained"
-
-[[arms]]
-name = "scratch"
-role = "baseline"
-
-[[tasks]]
-name = "reach"
-pool = "pool.csv"
-id_column = "episode"
-{refs}
-
-[[tasks]]
-name = "push"
-pool = "pool.csv"
-id_column = "episode"
-{refs}
-"""
 
 
 def run(*args: object):
     return runner.invoke(app, [str(a) for a in args])
 
 
-def ledger_of(tmp_path: Path, *, loss=False, refs=True, seeds=4, skip=lambda r: False) -> str:
+def ledger_of(
+    tmp_path: Path, study_file, *, loss=False, refs=True, seeds=4, skip=lambda r: False
+) -> str:
     """Two tasks; the arm does better than the baseline everywhere (a lower loss, or a higher
     return); ``skip`` leaves runs unreported."""
-    ref = ("floor = 100.0\nexpert = 0.0" if loss else "floor = 0.0\nexpert = 100.0") if refs else ""
-    text = TWO_TASKS.format(
+    ref = ((100.0, 0.0) if loss else (0.0, 100.0)) if refs else (None, None)
+    plain = {"id_column": "episode", "floor": ref[0], "expert": ref[1]}
+    study = study_file(
+        tmp_path,
         metric="loss" if loss else "return",
-        hib="false" if loss else "true",
-        seeds=", ".join(map(str, range(seeds))),
-        refs=ref,
+        higher_is_better=not loss,
+        sizes=[1, 3, 10, 30],
+        seeds=list(range(seeds)),
+        arms={"wide": {"checkpoint": None, "attributes": None}},
+        task={**plain, "keep_top": None, "rank_by": None, "group": None},
+        extra_tasks=({"name": "push", "pool": "pool.csv", **plain},),
     )
     path = str(tmp_path / "l.sqlite")
     led = Ledger.open(path, create=True)
-    led.plan(load_study(write_study(tmp_path, text)))
+    led.plan(load_study(study))
     rng = np.random.default_rng(0)
     for r in led.runs().itertuples():
         if skip(r):
@@ -75,8 +52,8 @@ def ledger_of(tmp_path: Path, *, loss=False, refs=True, seeds=4, skip=lambda r: 
     return path
 
 
-def test_lower_loss_everywhere_reads_as_an_improvement(tmp_path: Path):
-    ledger = ledger_of(tmp_path, loss=True, refs=False)
+def test_lower_loss_everywhere_reads_as_an_improvement(tmp_path: Path, study_file):
+    ledger = ledger_of(tmp_path, study_file, loss=True, refs=False)
     data = json.loads(
         run("compare", "--ledger", ledger, "--resamples", "300", "--format", "json").stdout
     )
@@ -90,9 +67,9 @@ def test_lower_loss_everywhere_reads_as_an_improvement(tmp_path: Path):
     assert text.exit_code == 0 and "lower loss is better" in text.output
 
 
-def test_one_baseline_size_on_one_task_keeps_the_other_comparisons(tmp_path: Path):
+def test_one_baseline_size_on_one_task_keeps_the_other_comparisons(tmp_path: Path, study_file):
     ledger = ledger_of(
-        tmp_path, skip=lambda r: r.arm == "scratch" and r.task == "push" and r.size > 1
+        tmp_path, study_file, skip=lambda r: r.arm == "scratch" and r.task == "push" and r.size > 1
     )
     result = run("compare", "--ledger", ledger, "--resamples", "300")
     assert result.exit_code == 0, result.output
@@ -104,9 +81,10 @@ def test_one_baseline_size_on_one_task_keeps_the_other_comparisons(tmp_path: Pat
     assert len(reach) == 4 and all(r["effective"] is not None for r in reach)
 
 
-def test_missing_baseline_runs_print_no_runtime_warning(tmp_path: Path):
+def test_missing_baseline_runs_print_no_runtime_warning(tmp_path: Path, study_file):
     ledger = ledger_of(
         tmp_path,
+        study_file,
         skip=lambda r: r.arm == "scratch" and r.task == "push" and r.size == 3 and r.seed < 3,
     )
     with warnings.catch_warnings():
@@ -117,8 +95,8 @@ def test_missing_baseline_runs_print_no_runtime_warning(tmp_path: Path):
             assert "RuntimeWarning" not in result.output
 
 
-def test_json_infinity_is_a_string(tmp_path: Path):
-    ledger = ledger_of(tmp_path)
+def test_json_infinity_is_a_string(tmp_path: Path, study_file):
+    ledger = ledger_of(tmp_path, study_file)
     data = json.loads(
         run("compare", "--ledger", ledger, "--resamples", "300", "--format", "json").stdout
     )
@@ -127,8 +105,8 @@ def test_json_infinity_is_a_string(tmp_path: Path):
     assert all(r["effective_high"] is not None for r in data["rows"] if r["task"] != "all")
 
 
-def test_across_tasks_title_names_the_aggregates(tmp_path: Path):
-    ledger = ledger_of(tmp_path)
+def test_across_tasks_title_names_the_aggregates(tmp_path: Path, study_file):
+    ledger = ledger_of(tmp_path, study_file)
     result = run("curves", "--ledger", ledger, "--resamples", "300", "--across-tasks")
     assert result.exit_code == 0, result.output
     first = result.output.splitlines()[0]
@@ -136,8 +114,8 @@ def test_across_tasks_title_names_the_aggregates(tmp_path: Path):
     assert "over seeds" not in first
 
 
-def test_compare_flags_cells_under_three_seeds(tmp_path: Path):
-    ledger = ledger_of(tmp_path, seeds=2)
+def test_compare_flags_cells_under_three_seeds(tmp_path: Path, study_file):
+    ledger = ledger_of(tmp_path, study_file, seeds=2)
     result = run("compare", "--ledger", ledger, "--resamples", "300")
     assert result.exit_code == 0, result.output
     assert "! = fewer than 3 seeds" in result.output
@@ -145,12 +123,12 @@ def test_compare_flags_cells_under_three_seeds(tmp_path: Path):
     assert data_rows and all("!" in ln for ln in data_rows)
 
 
-def test_summary_figure_labels_areas_with_their_range(tmp_path: Path):
+def test_summary_figure_labels_areas_with_their_range(tmp_path: Path, study_file):
     from fewshot.analysis import make_figure
     from fewshot.stats import CurveSettings
 
     ledger = ledger_of(
-        tmp_path, skip=lambda r: r.arm == "wide" and r.task == "push" and r.size == 30
+        tmp_path, study_file, skip=lambda r: r.arm == "wide" and r.task == "push" and r.size == 30
     )
     led = Ledger.open(ledger)
     try:
@@ -161,14 +139,14 @@ def test_summary_figure_labels_areas_with_their_range(tmp_path: Path):
     assert "push (1-10)" in labels and "push (1-30)" in labels and "reach (1-30)" in labels
 
 
-def _planned(url: str, tmp_path: Path) -> Ledger:
+def _planned(url: str, study_file) -> Ledger:
     led = Ledger.open(url, create=True)
-    led.plan(load_study(write_study(tmp_path, STUDY_TOML)))
+    led.plan(load_study(study_file()))
     return led
 
 
-def test_status_says_has_results_not_marked_done(ledger_url, tmp_path: Path):
-    led = _planned(ledger_url, tmp_path)
+def test_status_says_has_results_not_marked_done(ledger_url, tmp_path: Path, study_file):
+    led = _planned(ledger_url, study_file)
     try:
         keys = list(led.runs()["key"])
         led.record(keys[0], "return", 50.0)  # final result, not marked done
@@ -197,9 +175,9 @@ def test_status_says_has_results_not_marked_done(ledger_url, tmp_path: Path):
         ("wide/reach/n1/s0", "return=nan", "finite"),
     ],
 )
-def test_record_done_refuses_whole_and_marks_nothing(tmp_path: Path, key, pair, says):
+def test_record_done_refuses_whole_and_marks_nothing(tmp_path: Path, key, pair, says, study_file):
     path = str(tmp_path / "l.sqlite")
-    led = _planned(path, tmp_path)
+    led = _planned(path, study_file)
     led.close()
     result = run("record", key, pair, "--done", "--ledger", path)
     assert result.exit_code == 2 and says in result.output
@@ -210,8 +188,8 @@ def test_record_done_refuses_whole_and_marks_nothing(tmp_path: Path, key, pair, 
         led.close()
 
 
-def test_report_methods_say_how_a_loss_was_turned(tmp_path: Path):
-    ledger = ledger_of(tmp_path, loss=True, refs=False)
+def test_report_methods_say_how_a_loss_was_turned(tmp_path: Path, study_file):
+    ledger = ledger_of(tmp_path, study_file, loss=True, refs=False)
     out = tmp_path / "r.html"
     result = run("report", "--ledger", ledger, "--resamples", "300", "--out", out)
     assert result.exit_code == 0, result.output
@@ -220,8 +198,8 @@ def test_report_methods_say_how_a_loss_was_turned(tmp_path: Path):
     assert "left out of every mean over tasks" in html
 
 
-def test_report_flags_transfer_cells_under_three_seeds(tmp_path: Path):
-    ledger = ledger_of(tmp_path, seeds=2)
+def test_report_flags_transfer_cells_under_three_seeds(tmp_path: Path, study_file):
+    ledger = ledger_of(tmp_path, study_file, seeds=2)
     out = tmp_path / "r.html"
     assert run("report", "--ledger", ledger, "--resamples", "300", "--out", out).exit_code == 0
     html = out.read_text(encoding="utf-8")
@@ -229,8 +207,8 @@ def test_report_flags_transfer_cells_under_three_seeds(tmp_path: Path):
     assert html.count(" !</td>") >= 8 * 3  # difference, P(improvement), effective data per row
 
 
-def test_json_names_the_tasks_behind_the_mean_rows(tmp_path: Path):
-    ledger = ledger_of(tmp_path)
+def test_json_names_the_tasks_behind_the_mean_rows(tmp_path: Path, study_file):
+    ledger = ledger_of(tmp_path, study_file)
     data = json.loads(
         run("compare", "--ledger", ledger, "--resamples", "300", "--format", "json").stdout
     )

@@ -13,7 +13,6 @@ from pathlib import Path
 
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 WORKER = r"""
 import sys
@@ -32,18 +31,15 @@ led.close()
 """
 
 
-def _big_study(folder: Path) -> Path:
-    text = (
-        STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1, 2, 3, 4, 5]")
-        .replace("seeds = [0, 1, 2]", "seeds = [" + ", ".join(map(str, range(100))) + "]")
-        .replace('role = "pretrained"', 'role = "pretrained"\nzero_shot = false')
+def _big_study(study_file) -> Path:
+    return study_file(
+        sizes=[1, 2, 3, 4, 5], seeds=list(range(100)), arms={"wide": {"zero_shot": False}}
     )
-    return write_study(folder, text)
 
 
-def test_four_processes_claim_each_run_once(tmp_path: Path, ledger_url: str):
+def test_four_processes_claim_each_run_once(tmp_path: Path, ledger_url: str, study_file):
     led = Ledger.open(ledger_url)
-    report = led.plan(load_study(_big_study(tmp_path)))
+    report = led.plan(load_study(_big_study(study_file)))
     assert report.total_runs == 1000
     env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
     procs = [
@@ -71,9 +67,11 @@ def test_four_processes_claim_each_run_once(tmp_path: Path, ledger_url: str):
     led.close()
 
 
-def test_killed_ingest_then_rerun_stores_each_result_once(tmp_path: Path, ledger_url: str):
+def test_killed_ingest_then_rerun_stores_each_result_once(
+    tmp_path: Path, ledger_url: str, study_file
+):
     led = Ledger.open(ledger_url)
-    led.plan(load_study(_big_study(tmp_path)))
+    led.plan(load_study(_big_study(study_file)))
     keys = list(led.runs()["key"])
     led.close()
     results = tmp_path / "results"

@@ -6,7 +6,6 @@ from __future__ import annotations
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import pytest
@@ -14,7 +13,6 @@ from typer.testing import CliRunner
 
 from fewshot.cli import app
 from fewshot.ledger import Ledger
-from tests.conftest import write_study
 
 runner = CliRunner()
 
@@ -31,15 +29,6 @@ while True:
 """
 
 
-def _wait_for(condition, what: str, timeout: float = 60.0) -> None:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        if condition():
-            return
-        time.sleep(0.05)
-    pytest.fail(f"timed out after {timeout:.0f} s waiting for {what}")
-
-
 def _gone(pid: int) -> bool:
     try:
         with open(f"/proc/{pid}/stat") as f:
@@ -49,8 +38,8 @@ def _gone(pid: int) -> bool:
 
 
 @pytest.fixture
-def ledger(tmp_path: Path) -> str:
-    study = write_study(tmp_path)
+def ledger(tmp_path: Path, study_file) -> str:
+    study = study_file(tmp_path)
     path = str(tmp_path / "l.sqlite")
     assert runner.invoke(app, ["init", str(study), "--ledger", path]).exit_code == 0
     return path
@@ -59,7 +48,7 @@ def ledger(tmp_path: Path) -> str:
 @pytest.mark.skipif(not Path("/proc").is_dir(), reason="reads process states from /proc")
 @pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGHUP, signal.SIGINT])
 def test_a_stopped_worker_stops_its_trainer_and_hands_the_run_back(
-    tmp_path: Path, ledger: str, sig: signal.Signals
+    tmp_path: Path, ledger: str, sig: signal.Signals, wait_until
 ):
     pids = tmp_path / "pids"
     worker = subprocess.Popen(
@@ -83,7 +72,7 @@ def test_a_stopped_worker_stops_its_trainer_and_hands_the_run_back(
         text=True,
     )
     try:
-        _wait_for(lambda: pids.exists() or worker.poll() is not None, "the trainer to start")
+        wait_until(lambda: pids.exists() or worker.poll() is not None, "the trainer to start")
         assert worker.poll() is None, worker.communicate()
         trainer, child = (int(x) for x in pids.read_text().split())
         worker.send_signal(sig)
@@ -96,7 +85,7 @@ def test_a_stopped_worker_stops_its_trainer_and_hands_the_run_back(
             worker.kill()
     assert worker.returncode == 128 + sig, stderr
     assert f"stopped by {sig.name}" in stderr
-    _wait_for(lambda: _gone(trainer) and _gone(child), "the trainer and its child to end")
+    wait_until(lambda: _gone(trainer) and _gone(child), "the trainer and its child to end")
     with Ledger.open(ledger, create=False) as led:
         assert led.counts() == {"planned": 21, "running": 0, "done": 0, "failed": 0}
         assert led.runs()["worker"].isna().all()

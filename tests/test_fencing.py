@@ -7,7 +7,6 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
-import time
 import zlib
 from pathlib import Path
 
@@ -20,40 +19,29 @@ from fewshot.ledger import Ledger
 from fewshot.ledger.runs import StaleAttempt
 from fewshot.study import load_study
 from fewshot.worker.loop import attempt_of_file, results_file_for
-from tests.conftest import STUDY_TOML, write_study
 
 ROOT = Path(__file__).resolve().parent.parent
 runner = CliRunner()
 
 
-def _planned(folder: Path, url: str, seeds: int = 3) -> Ledger:
-    text = STUDY_TOML.replace(
-        "seeds = [0, 1, 2]", "seeds = [" + ", ".join(map(str, range(seeds))) + "]"
-    )
+def _planned(study_file, folder: Path, url: str, seeds: int = 3) -> Ledger:
     led = Ledger.open(url)
-    led.plan(load_study(write_study(folder, text)))
+    led.plan(load_study(study_file(folder, seeds=list(range(seeds)))))
     return led
 
 
-def _two_attempts(led: Ledger) -> tuple[str, int, int]:
+def _two_attempts(led: Ledger, wait_until) -> tuple[str, int, int]:
     """Claim a run, let its (short) lease lapse, claim it again: (key, old attempt, new attempt)."""
     first = led.claim("slow", lease=0.2)
     assert first is not None
-    deadline = time.monotonic() + 30
-    while time.monotonic() < deadline:
-        again = led.claim("fast", lease=60)
-        if again is not None and again.key == first.key:
-            return first.key, first.attempt, again.attempt
-        if again is not None:
-            led.release(again.key, "fast")
-    pytest.fail("the expired lease never made the run claimable again")
+    return _two_attempts_after(led, first.key, wait_until)
 
 
 def test_a_stale_attempt_cannot_mark_the_run_and_its_results_count_only_if_they_agree(
-    tmp_path: Path, ledger_url: str
+    tmp_path: Path, ledger_url: str, study_file, wait_until
 ):
-    led = _planned(tmp_path, ledger_url)
-    key, old, new = _two_attempts(led)
+    led = _planned(study_file, tmp_path, ledger_url)
+    key, old, new = _two_attempts(led, wait_until)
     assert (old, new) == (1, 2)
     led.record(key, "return", 5.0, attempt=new)
     for call in (lambda: led.done(key, attempt=old), lambda: led.fail(key, "late", attempt=old)):
@@ -73,12 +61,14 @@ def test_a_stale_attempt_cannot_mark_the_run_and_its_results_count_only_if_they_
     led.close()
 
 
-def test_the_current_attempt_replaces_what_an_older_attempt_stored(tmp_path: Path, ledger_url: str):
-    led = _planned(tmp_path, ledger_url)
+def test_the_current_attempt_replaces_what_an_older_attempt_stored(
+    tmp_path: Path, ledger_url: str, study_file, wait_until
+):
+    led = _planned(study_file, tmp_path, ledger_url)
     first = led.claim("slow", lease=0.2)
     assert first is not None
     led.record(first.key, "return", 1.0, step=100, attempt=first.attempt)  # while still current
-    key, _, new = _two_attempts_after(led, first.key)
+    key, _, new = _two_attempts_after(led, first.key, wait_until)
     rep = led.record(key, "return", 2.0, step=100, attempt=new)
     assert rep.replaced == 1
     with pytest.raises(FewshotError, match="refusing 3.0"):  # by hand: the usual rule
@@ -87,23 +77,28 @@ def test_the_current_attempt_replaces_what_an_older_attempt_stored(tmp_path: Pat
     led.close()
 
 
-def _two_attempts_after(led: Ledger, key: str) -> tuple[str, int, int]:
-    deadline = time.monotonic() + 30
-    while time.monotonic() < deadline:
+def _two_attempts_after(led: Ledger, key: str, wait_until) -> tuple[str, int, int]:
+    """Claim ``key`` again once its lease has lapsed: (key, old attempt, new attempt)."""
+    got: list[int] = []
+
+    def reclaimed() -> bool:
         again = led.claim("fast", lease=60)
         if again is not None and again.key == key:
-            return key, again.attempt - 1, again.attempt
-        if again is not None:
+            got.append(again.attempt)
+        elif again is not None:
             led.release(again.key, "fast")
-    pytest.fail("the expired lease never made the run claimable again")
+        return bool(got)
+
+    wait_until(reclaimed, f"the expired lease to make {key} claimable again", timeout=30)
+    return key, got[0] - 1, got[0]
 
 
 def test_done_from_a_worker_carries_its_attempt_from_the_environment(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, study_file, wait_until
 ):
     ledger = str(tmp_path / "l.sqlite")
-    led = _planned(tmp_path, ledger)
-    key, old, new = _two_attempts(led)
+    led = _planned(study_file, tmp_path, ledger)
+    key, old, new = _two_attempts(led, wait_until)
     monkeypatch.setenv("FEWSHOT_RUN", key)
     monkeypatch.setenv("FEWSHOT_ATTEMPT", str(old))
     late = runner.invoke(app, ["done", key, "--ledger", ledger])
@@ -119,10 +114,12 @@ def test_done_from_a_worker_carries_its_attempt_from_the_environment(
 
 def test_results_files_are_per_attempt_and_ingest_reads_the_attempt_from_the_name(
     tmp_path: Path,
+    study_file,
+    wait_until,
 ):
     ledger = str(tmp_path / "l.sqlite")
-    led = _planned(tmp_path, ledger)
-    key, old, new = _two_attempts(led)
+    led = _planned(study_file, tmp_path, ledger)
+    key, old, new = _two_attempts(led, wait_until)
     a, b = results_file_for(tmp_path, key, old), results_file_for(tmp_path, key, new)
     assert a != b and (attempt_of_file(a), attempt_of_file(b)) == (old, new)
     b.write_text(f'{{"run": "{key}", "metric": "return", "value": 2.0}}\n', encoding="utf-8")
@@ -134,10 +131,12 @@ def test_results_files_are_per_attempt_and_ingest_reads_the_attempt_from_the_nam
     led.close()
 
 
-def test_a_stale_file_left_out_does_not_make_the_same_content_count_as_ingested(tmp_path: Path):
+def test_a_stale_file_left_out_does_not_make_the_same_content_count_as_ingested(
+    tmp_path: Path, study_file, wait_until
+):
     ledger = str(tmp_path / "l.sqlite")
-    led = _planned(tmp_path, ledger)
-    key, old, new = _two_attempts(led)
+    led = _planned(study_file, tmp_path, ledger)
+    key, old, new = _two_attempts(led, wait_until)
     line = f'{{"run": "{key}", "metric": "return", "value": 2.0}}\n'
     a, b = results_file_for(tmp_path, key, old), results_file_for(tmp_path, key, new)
     a.write_text(line, encoding="utf-8")
@@ -149,9 +148,11 @@ def test_a_stale_file_left_out_does_not_make_the_same_content_count_as_ingested(
     led.close()
 
 
-def test_the_lease_has_a_floor_of_thirty_seconds(tmp_path: Path, monkeypatch: pytest.MonkeyPatch):
+def test_the_lease_has_a_floor_of_thirty_seconds(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, study_file
+):
     ledger = str(tmp_path / "l.sqlite")
-    _planned(tmp_path, ledger).close()
+    _planned(study_file, tmp_path, ledger).close()
     monkeypatch.delenv("FEWSHOT_TESTING_MIN_LEASE")
     got = runner.invoke(app, ["next", "--worker", "w", "--lease", "10s", "--ledger", ledger])
     assert got.exit_code == 2 and "--lease must be at least 30s" in got.output, got.output
@@ -206,8 +207,10 @@ with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
 """
 
 
-def test_sixteen_work_loops_with_a_trainer_that_outlives_its_lease(tmp_path: Path, ledger_url: str):
-    led = _planned(tmp_path, ledger_url, seeds=5)  # 35 runs
+def test_sixteen_work_loops_with_a_trainer_that_outlives_its_lease(
+    tmp_path: Path, ledger_url: str, study_file
+):
+    led = _planned(study_file, tmp_path, ledger_url, seeds=5)  # 35 runs
     total = len(led.runs())
     trainer = tmp_path / "trainer.py"
     trainer.write_text(TRAINER, encoding="utf-8")

@@ -16,7 +16,6 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 runner = CliRunner()
 MARKUP = '<script>alert("x")</script>'
@@ -27,21 +26,19 @@ def run(*args: object):
 
 
 @pytest.fixture(scope="module")
-def ledger(tmp_path_factory) -> str:
+def ledger(tmp_path_factory, study_in) -> str:
     folder = tmp_path_factory.mktemp("study")
-    text = (
-        STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]")
-        .replace('checkpoint = "ckpt/wide.pt"', f"checkpoint = '{MARKUP}'")
-        .replace(
-            '[[arms]]\nname = "scratch"',
-            '[[arms]]\nname = "narrow"\nrole = "pretrained"\n'
-            'attributes = { params = 1e5 }\n\n[[arms]]\nname = "scratch"',
-        )
-        + '\n[[tasks]]\nname = "push"\npool = "pool.csv"\nid_column = "episode"\nfloor = 0.0\nexpert = 80.0\n'
-    )
+    narrow = {"name": "narrow", "role": "pretrained", "attributes": {"params": 1e5}}
     path = str(folder / "l.sqlite")
     led = Ledger.open(path)
-    led.plan(load_study(write_study(folder, text)))
+    study = study_in(
+        folder,
+        seeds=[0, 1, 2, 3],
+        arms={"wide": {"checkpoint": MARKUP}},
+        extra_arms=(narrow,),
+        second_task=True,
+    )
+    led.plan(load_study(study))
     rng = np.random.default_rng(0)
     gain = {"wide": 8.0, "narrow": 3.0, "scratch": 1.0}
     for r in led.runs().itertuples():

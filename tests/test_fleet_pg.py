@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import json
 import multiprocessing
-import os
 import traceback
 from pathlib import Path
 from typing import Any
@@ -14,21 +13,9 @@ import pytest
 
 from fewshot.errors import FewshotError
 from fewshot.ledger import Ledger
-from tests.conftest import _reset_pg, write_study
 
 N = 4
 CTX = multiprocessing.get_context("spawn")  # fresh interpreters: no engine shared across a fork
-
-
-@pytest.fixture
-def pg() -> str:
-    url = os.environ.get("FEWSHOT_TEST_PG")
-    if not url:
-        pytest.skip(
-            "no PostgreSQL server: set FEWSHOT_TEST_PG to a scratch database URL to run these"
-        )
-    _reset_pg(url)
-    return url
 
 
 def _child(job: str, url: str, arg: str, barrier: Any, out: Any) -> None:
@@ -83,14 +70,14 @@ def _together(jobs: list[tuple[str, str, str]]) -> list[tuple[str, object]]:
     return answers
 
 
-def test_four_processes_create_a_new_ledger_at_once(pg: str):
-    answers = _together([("open", pg, "")] * N)
+def test_four_processes_create_a_new_ledger_at_once(pg_scratch: str):
+    answers = _together([("open", pg_scratch, "")] * N)
     assert answers == [("ok", "opened")] * N
     from sqlalchemy import create_engine, text
 
     from fewshot.ledger.engine import head_revision, resolve_url
 
-    engine = create_engine(resolve_url(pg))
+    engine = create_engine(resolve_url(pg_scratch))
     with engine.connect() as conn:
         assert conn.execute(text("SELECT version_num FROM alembic_version")).scalars().all() == [
             head_revision()
@@ -98,16 +85,16 @@ def test_four_processes_create_a_new_ledger_at_once(pg: str):
     engine.dispose()
 
 
-def test_four_processes_upgrade_an_older_ledger_at_once(pg: str):
+def test_four_processes_upgrade_an_older_ledger_at_once(pg_scratch: str):
     from sqlalchemy import create_engine, text
 
     from fewshot.ledger.engine import head_revision, resolve_url, upgrade_schema
 
-    engine = create_engine(resolve_url(pg))
+    engine = create_engine(resolve_url(pg_scratch))
     upgrade_schema(engine, revision="0001")
     with engine.connect() as conn:
         assert conn.execute(text("SELECT version_num FROM alembic_version")).scalar() == "0001"
-    answers = _together([("open", pg, "")] * N)
+    answers = _together([("open", pg_scratch, "")] * N)
     assert answers == [("ok", "opened")] * N
     with engine.connect() as conn:
         assert conn.execute(text("SELECT version_num FROM alembic_version")).scalars().all() == [
@@ -116,23 +103,23 @@ def test_four_processes_upgrade_an_older_ledger_at_once(pg: str):
     engine.dispose()
 
 
-def test_four_inits_of_one_study_at_once(pg: str, tmp_path: Path):
-    study = write_study(tmp_path)
-    answers = _together([("init", pg, str(study))] * N)
+def test_four_inits_of_one_study_at_once(pg_scratch: str, tmp_path: Path, study_file):
+    study = study_file(tmp_path)
+    answers = _together([("init", pg_scratch, str(study))] * N)
     kinds = sorted(a[1] for a in answers)
     # one process plans the 21 runs; the others find the study planned, as a second init does
     assert kinds == [("created", 21)] + [("updated", 0)] * (N - 1), answers
-    with Ledger.open(pg) as led:
+    with Ledger.open(pg_scratch) as led:
         assert led.counts()["planned"] == 21
 
 
 @pytest.fixture
-def planned(pg: str, tmp_path: Path) -> str:
-    with Ledger.open(pg) as led:
+def planned(pg_scratch: str, tmp_path: Path, study_file) -> str:
+    with Ledger.open(pg_scratch) as led:
         from fewshot.study import load_study
 
-        led.plan(load_study(write_study(tmp_path)))
-    return pg
+        led.plan(load_study(study_file(tmp_path)))
+    return pg_scratch
 
 
 def test_one_file_ingested_by_four_processes_at_once(planned: str, tmp_path: Path):

@@ -13,7 +13,6 @@ from fewshot.errors import FewshotError
 from fewshot.ledger import Ledger
 from fewshot.results_format import parse_result_file
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 JSON_VALUES = st.recursive(
     st.none()
@@ -58,11 +57,11 @@ def test_result_files_parse_or_refuse(tmp_path: Path, lines, garbage):
 _LEDGER: dict[str, object] = {}
 
 
-def _ledger(tmp_path_factory) -> Ledger:  # type: ignore[no-untyped-def]
+def _ledger(tmp_path_factory, study_in) -> Ledger:  # type: ignore[no-untyped-def]
     if "led" not in _LEDGER:
         folder = tmp_path_factory.mktemp("fuzz")
         led = Ledger.open(folder / "l.sqlite")
-        led.plan(load_study(write_study(folder)))
+        led.plan(load_study(study_in(folder)))
         _LEDGER["led"] = led
     return _LEDGER["led"]  # type: ignore[return-value]
 
@@ -71,8 +70,8 @@ def _ledger(tmp_path_factory) -> Ledger:  # type: ignore[no-untyped-def]
     max_examples=120, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
 )
 @given(lines=st.lists(LINE_OBJECTS, min_size=1, max_size=3))
-def test_result_lines_store_or_refuse(tmp_path_factory, lines):
-    led = _ledger(tmp_path_factory)
+def test_result_lines_store_or_refuse(tmp_path_factory, lines, study_in):
+    led = _ledger(tmp_path_factory, study_in)
     path = Path(str(tmp_path_factory.getbasetemp())) / "fuzz-lines.jsonl"
     path.write_text("\n".join(json.dumps(obj, allow_nan=True) for obj in lines) + "\n")
     try:
@@ -139,10 +138,10 @@ TOML_VALUES = st.sampled_from(
 @given(
     edits=st.lists(st.tuples(st.sampled_from(KEYS), TOML_VALUES), max_size=4),
     noise=st.text(alphabet=string.printable, max_size=20),
-    cut=st.integers(0, len(STUDY_TOML)),
+    cut=st.floats(0, 1),  # where the noise goes, as a share of the text
 )
-def test_study_files_load_or_refuse(tmp_path: Path, edits, noise, cut):
-    text = STUDY_TOML
+def test_study_files_load_or_refuse(tmp_path: Path, edits, noise, cut, study_file, study_text):
+    text = study_text()
     for key, value in edits:
         if f"\n{key} = " in text:
             start = text.index(f"\n{key} = ") + 1
@@ -151,8 +150,9 @@ def test_study_files_load_or_refuse(tmp_path: Path, edits, noise, cut):
         else:
             text = f"{key} = {value}\n" + text
     if noise:
-        text = text[:cut] + noise + text[cut:]
-    path = write_study(tmp_path, text)
+        at = int(cut * len(text))
+        text = text[:at] + noise + text[at:]
+    path = study_file(tmp_path, text=text)
     try:
         study = load_study(path)
         list(study.runs())

@@ -20,25 +20,24 @@ from fewshot.ledger import (
 from fewshot.sampling import subset_digest
 from fewshot.sampling.manifest import load_manifest, verify_subset
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, ledger_dump, write_study
 
 
 @pytest.fixture
-def planned(tmp_path: Path, ledger_url: str) -> tuple[Ledger, Path]:
-    study_file = write_study(tmp_path)
+def planned(tmp_path: Path, ledger_url: str, study_file) -> tuple[Ledger, Path]:
+    path = study_file(tmp_path)
     led = Ledger.open(ledger_url)
-    led.plan(load_study(study_file))
-    yield led, study_file
+    led.plan(load_study(path))
+    yield led, path
     led.close()
 
 
 def test_plan_draws_subsets_and_plans_every_run(planned):
-    led, study_file = planned
+    led, path = planned
     runs = led.runs()
     assert len(runs) == 21 and set(runs["status"]) == {"planned"}
     assert led.study == "mini"
     # the id files exist and match their digests and the manifest
-    manifest = load_manifest(study_file.parent / "draws" / "mini" / "reach.manifest.json")
+    manifest = load_manifest(path.parent / "draws" / "mini" / "reach.manifest.json")
     for r in runs.itertuples():
         ids = Path(r.subset_file).read_text().split()
         assert len(ids) == r.size
@@ -49,45 +48,37 @@ def test_plan_draws_subsets_and_plans_every_run(planned):
     assert (same == 1).all()
 
 
-def test_replan_adds_and_refuses(planned, tmp_path: Path):
-    led, study_file = planned
-    again = led.plan(load_study(study_file))
+def test_replan_adds_and_refuses(planned, tmp_path: Path, dump, study_file):
+    led, path = planned
+    again = led.plan(load_study(path))
     assert again.new_runs == 0 and again.total_runs == 21
-    study_file.write_text(
-        STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]").replace(
-            "sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 30]"
-        )
-    )
-    more = led.plan(load_study(study_file))
+    grown = {"seeds": [0, 1, 2, 3], "sizes": [0, 1, 3, 10, 30]}
+    study_file(path.parent, **grown)
+    more = led.plan(load_study(path))
     assert more.new_seeds == (3,) and more.new_sizes == (30,)
     assert more.total_runs == 5 * 4 + 4 * 4  # wide: 5 sizes x 4 seeds; scratch: 4 x 4 (no size 0)
     assert more.new_runs == more.total_runs - 21
-    before = ledger_dump(led._url)
-    for old, new, fragment in [
-        ("keep_top = 100", "keep_top = 90", "filter changed"),
-        ('metric = "return"', 'metric = "success"', "metric changed"),
-        ('checkpoint = "ckpt/wide.pt"', 'checkpoint = "ckpt/other.pt"', "checkpoint changed"),
-        ("seeds = [0, 1, 2, 3]", "seeds = [0, 1, 2]", r"seed\(s\) 3 were planned before"),
+    before = dump(led._url)
+    for edits, fragment in [
+        ({"task": {"keep_top": 90}}, "filter changed"),
+        ({"metric": "success"}, "metric changed"),
+        ({"arms": {"wide": {"checkpoint": "ckpt/other.pt"}}}, "checkpoint changed"),
+        ({"seeds": [0, 1, 2]}, r"seed\(s\) 3 were planned before"),
     ]:
-        text = (
-            STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]")
-            .replace("sizes = [0, 1, 3, 10]", "sizes = [0, 1, 3, 10, 30]")
-            .replace(old, new)
-        )
-        study_file.write_text(text)
+        study_file(path.parent, **{**grown, **edits})
         with pytest.raises(StudyChangeRefused, match=fragment):
-            led.plan(load_study(study_file))
-        assert ledger_dump(led._url) == before
+            led.plan(load_study(path))
+        assert dump(led._url) == before
 
 
-def test_changed_pool_is_refused(planned):
-    led, study_file = planned
-    pool = study_file.parent / "pool.csv"
-    before = ledger_dump(led._url)
+def test_changed_pool_is_refused(planned, dump):
+    led, path = planned
+    pool = path.parent / "pool.csv"
+    before = dump(led._url)
     pool.write_text(pool.read_text().replace("ep005,", "ep005x,"))
     with pytest.raises(StudyChangeRefused, match="pool changed since its subsets were drawn"):
-        led.plan(load_study(study_file))
-    assert ledger_dump(led._url) == before
+        led.plan(load_study(path))
+    assert dump(led._url) == before
 
 
 def test_claims_are_unique_and_leases_expire(planned, wait_until):
@@ -127,14 +118,14 @@ def test_claim_until_empty(planned):
     assert led.claim("w") is None
 
 
-def test_result_rules(planned):
+def test_result_rules(planned, dump):
     led, _ = planned
     run = led.runs().iloc[3]
     key, digest = run["key"], run["subset_digest"]
     assert led.record(key, "return", 50.0, values=[49.0, 51.0], subset_digest=digest).stored == 1
     assert led.record(key, "return", 50.0, values=[49.0, 51.0]).unchanged == 1
     assert led.record(key, "return", 10.0, step=100).stored == 1  # another step is another result
-    before = ledger_dump(led._url)
+    before = dump(led._url)
     refusals = [
         (dict(metric="return", value=51.0), ResultRefused, "already has 'return' = 50.0"),
         (dict(metric="return", value=50.0, values=[1.0]), ResultRefused, "already has"),
@@ -153,7 +144,7 @@ def test_result_rules(planned):
     for kwargs, error, fragment in refusals:
         with pytest.raises(error, match=fragment):
             led.record(key, **kwargs)
-        assert ledger_dump(led._url) == before
+        assert dump(led._url) == before
     with pytest.raises(
         UnknownRun, match="no run 'wide/rech/n10/s1'. Did you mean 'wide/reach/n10/s1'"
     ):
@@ -254,18 +245,18 @@ def test_ingest_jsonl_and_csv_idempotent(planned, tmp_path: Path):
         ),
     ],
 )
-def test_a_bad_file_writes_nothing(planned, tmp_path: Path, content, fragment):
+def test_a_bad_file_writes_nothing(planned, tmp_path: Path, content, fragment, dump):
     led, _ = planned
     good = tmp_path / "good.jsonl"
     good.write_text(_lines(["wide/reach/n3/s0"]))
     led.ingest_file(good)
-    before = ledger_dump(led._url)
+    before = dump(led._url)
     bad = tmp_path / "bad.jsonl"
     bad.write_text(content)
     with pytest.raises((ResultFileError, ResultRefused, UnknownRun)) as info:
         led.ingest_file(bad)
     assert fragment in str(info.value) and str(bad) in str(info.value)
-    assert ledger_dump(led._url) == before
+    assert dump(led._url) == before
 
 
 def test_non_utf8_and_empty_results_files(planned, tmp_path: Path):
@@ -279,17 +270,14 @@ def test_non_utf8_and_empty_results_files(planned, tmp_path: Path):
     assert led.ingest_file(empty).stored == 0
 
 
-def test_several_studies_need_a_choice(tmp_path: Path, ledger_url: str):
+def test_several_studies_need_a_choice(tmp_path: Path, ledger_url: str, dump, study_file):
     a = tmp_path / "a"
     b = tmp_path / "b"
     a.mkdir()
     b.mkdir()
     led = Ledger.open(ledger_url)
-    led.plan(load_study(write_study(a)))
-    other_text = STUDY_TOML.replace('name = "mini"', 'name = "other"').replace(
-        'name = "wide"', 'name = "deep"'
-    )
-    led.plan(load_study(write_study(b, other_text)))
+    led.plan(load_study(study_file(a)))
+    led.plan(load_study(study_file(b, name="other", arms={"wide": {"name": "deep"}})))
     led.close()
     with pytest.raises(
         LedgerError, match=r"several studies \(mini, other\); pick one with `study`"
@@ -298,10 +286,10 @@ def test_several_studies_need_a_choice(tmp_path: Path, ledger_url: str):
     other = Ledger.open(ledger_url, study="other")
     assert other.claim("w").key == "deep/reach/n0/s0"
     mini = Ledger.open(ledger_url, study="mini")
-    before = ledger_dump(ledger_url)
+    before = dump(ledger_url)
     with pytest.raises(UnknownRun, match="belongs to another study in this ledger, not to 'mini'"):
         mini.record("deep/reach/n1/s0", "return", 1.0)
-    assert ledger_dump(ledger_url) == before
+    assert dump(ledger_url) == before
     with pytest.raises(LedgerError, match="no study 'third'"):
         Ledger.open(ledger_url, study="third").claim("w")
     other.close()

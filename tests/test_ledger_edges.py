@@ -19,7 +19,6 @@ from fewshot.cli import app
 from fewshot.errors import FewshotError
 from fewshot.ledger import Ledger
 from fewshot.sampling.pools import read_pool
-from tests.conftest import STUDY_TOML, ledger_dump, write_csv, write_study
 
 runner = CliRunner()
 
@@ -29,8 +28,8 @@ def run(*args: object):
 
 
 @pytest.fixture
-def ready(tmp_path: Path) -> tuple[Path, str]:
-    study = write_study(tmp_path)
+def ready(tmp_path: Path, study_file) -> tuple[Path, str]:
+    study = study_file(tmp_path)
     ledger = str(tmp_path / "l.sqlite")
     made = run("init", study, "--ledger", ledger)
     assert made.exit_code == 0, made.output
@@ -48,8 +47,8 @@ def test_status_leaves_an_empty_file_alone(tmp_path: Path):
 @pytest.mark.parametrize(
     "url", ["sqlite://", "sqlite:///:memory:", "sqlite:///file::memory:?cache=shared"]
 )
-def test_in_memory_ledgers_are_refused(tmp_path: Path, url: str):
-    study = write_study(tmp_path)
+def test_in_memory_ledgers_are_refused(tmp_path: Path, url: str, study_file):
+    study = study_file(tmp_path)
     for args in (("init", study), ("status",)):
         result = run(*args, "--ledger", url)
         assert result.exit_code == 2 and "in-memory SQLite database" in result.output
@@ -57,12 +56,12 @@ def test_in_memory_ledgers_are_refused(tmp_path: Path, url: str):
 
 
 @pytest.mark.skipif(not hasattr(os, "geteuid"), reason="needs POSIX users")
-def test_a_read_only_ledger_can_be_read(tmp_path: Path):
+def test_a_read_only_ledger_can_be_read(tmp_path: Path, study_file):
     # A folder and ledger the reader may not write. Root may write anything, so as root the
     # reader is the unprivileged user 65534 (nobody), started with util-linux `setpriv`.
     folder = Path(tempfile.mkdtemp(prefix="fewshot-ro-"))
     try:
-        study = write_study(folder)
+        study = study_file(folder)
         ledger = folder / "l.sqlite"
         assert run("init", study, "--ledger", ledger).exit_code == 0
         for p in [folder, *folder.rglob("*")]:
@@ -108,9 +107,9 @@ def test_duplicate_keys_in_a_result_line_are_refused(ready, tmp_path: Path):
     assert "line 1: the field 'value' is given more than once" in result.output
 
 
-def test_duplicate_columns_in_a_results_csv_are_refused(ready, tmp_path: Path):
+def test_duplicate_columns_in_a_results_csv_are_refused(ready, tmp_path: Path, csv_file):
     _, ledger = ready
-    path = write_csv(
+    path = csv_file(
         tmp_path / "r.csv",
         ["run", "metric", "value", "value"],
         [["wide/reach/n1/s0", "return", 1, 2]],
@@ -119,8 +118,8 @@ def test_duplicate_columns_in_a_results_csv_are_refused(ready, tmp_path: Path):
     assert result.exit_code == 2 and "column(s) 'value' appear more than once" in result.output
 
 
-def test_duplicate_columns_in_a_pool_are_refused(tmp_path: Path):
-    path = write_csv(tmp_path / "p.csv", ["episode", "return", "return"], [["e1", 1, 2]])
+def test_duplicate_columns_in_a_pool_are_refused(tmp_path: Path, csv_file):
+    path = csv_file(tmp_path / "p.csv", ["episode", "return", "return"], [["e1", 1, 2]])
     with pytest.raises(FewshotError, match="'return' appear more than once"):
         read_pool(path, "episode")
     lines = tmp_path / "p.jsonl"
@@ -129,8 +128,8 @@ def test_duplicate_columns_in_a_pool_are_refused(tmp_path: Path):
         read_pool(lines, "episode")
 
 
-def test_a_study_file_with_a_byte_order_mark_is_read(tmp_path: Path):
-    study = write_study(tmp_path)
+def test_a_study_file_with_a_byte_order_mark_is_read(tmp_path: Path, study_file):
+    study = study_file(tmp_path)
     study.write_bytes(b"\xef\xbb\xbf" + study.read_bytes())  # UTF-8 BOM, as some editors save
     result = run("check", study)
     assert result.exit_code == 0, result.output
@@ -153,7 +152,7 @@ def test_the_library_refuses_endless_leases(ready, lease: float):
         led.claim("w", lease)
 
 
-def test_init_cleans_the_staging_folder_of_a_killed_init(ready):
+def test_init_cleans_the_staging_folder_of_a_killed_init(ready, study_file):
     study, ledger = ready
     from fewshot.sampling.draw_folder import STAGING, STAGING_MARK, host_name
 
@@ -169,13 +168,13 @@ def test_init_cleans_the_staging_folder_of_a_killed_init(ready):
     stale.mkdir()
     (stale / STAGING_MARK).write_text("")
     (stale / "half-written.txt").write_text("x")
-    study.write_text(STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]"))
+    study_file(study.parent, seeds=[0, 1, 2, 3])
     result = run("init", study, "--ledger", ledger)
     assert result.exit_code == 0, result.output
     assert not stale.exists()
 
 
-def test_a_known_file_is_skipped_before_it_is_parsed(ready, tmp_path: Path, monkeypatch):
+def test_a_known_file_is_skipped_before_it_is_parsed(ready, tmp_path: Path, monkeypatch, dump):
     _, ledger = ready
     path = tmp_path / "r.jsonl"
     path.write_text(
@@ -183,7 +182,7 @@ def test_a_known_file_is_skipped_before_it_is_parsed(ready, tmp_path: Path, monk
     )
     with Ledger.open(ledger) as led:
         assert led.ingest_file(path).stored == 1
-        before = ledger_dump(ledger)
+        before = dump(ledger)
 
         def no_parsing(*_a: object, **_k: object):
             raise AssertionError("a file ingested before was parsed again")
@@ -191,4 +190,4 @@ def test_a_known_file_is_skipped_before_it_is_parsed(ready, tmp_path: Path, monk
         monkeypatch.setattr(write_side, "parse_result_file", no_parsing)
         again = led.ingest_file(path)
     assert again.skipped and again.lines == 1 and again.stored == 0
-    assert ledger_dump(ledger) == before
+    assert dump(ledger) == before

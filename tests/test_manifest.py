@@ -13,7 +13,6 @@ import pytest
 
 from fewshot import DrawSpec, ManifestError, draw_task, load_manifest, verify_subset, write_draw
 from fewshot.sampling.manifest import pool_matches, subset_path
-from tests.conftest import tree_snapshot, write_csv
 
 
 def spec_for(pool: Path, **kw) -> DrawSpec:
@@ -77,10 +76,10 @@ def test_digests_equal_coreutils_sort_and_sha256sum(tmp_path: Path, pool_csv: Pa
 
 
 @pytest.mark.skipif(shutil.which("sha256sum") is None, reason="coreutils sha256sum not installed")
-def test_unicode_ids_sort_like_the_c_locale(tmp_path: Path):
+def test_unicode_ids_sort_like_the_c_locale(tmp_path: Path, csv_file):
     # Byte order (C locale) vs code point order agree for UTF-8: checked with coreutils.
     ids = ["b", "B", "é", "z", "Ω", "a-1", "a_1", "😀", "ä"]
-    pool = write_csv(tmp_path / "u.csv", ["id"], [[i] for i in ids])
+    pool = csv_file(tmp_path / "u.csv", ["id"], [[i] for i in ids])
     result = draw_task(DrawSpec("u", pool, (len(ids),), (7,)))
     write_draw(tmp_path, result)
     path = subset_path(tmp_path, "u", 7, len(ids))
@@ -113,13 +112,15 @@ def test_shuffled_pool_rows_and_changed_columns_give_the_same_subsets(tmp_path: 
     assert a.lineage.pool_digest != b.lineage.pool_digest
 
 
-def test_redraw_with_other_lineage_is_refused_and_nothing_changes(tmp_path: Path, pool_csv):
+def test_redraw_with_other_lineage_is_refused_and_nothing_changes(
+    tmp_path: Path, pool_csv, snapshot
+):
     out = tmp_path / "out"
     write_draw(out, draw_task(spec_for(pool_csv)))
-    before = tree_snapshot(out)
+    before = snapshot(out)
     with pytest.raises(ManifestError, match="different reserve"):
         write_draw(out, draw_task(spec_for(pool_csv, reserve=3)))
-    assert tree_snapshot(out) == before
+    assert snapshot(out) == before
     write_draw(out, draw_task(spec_for(pool_csv, reserve=3)), replace=True)
     assert load_manifest(out / "t1.manifest.json").data["reserve"] == 3
 
@@ -142,10 +143,10 @@ def test_a_failed_write_leaves_nothing_behind(tmp_path: Path, pool_csv, monkeypa
     assert list(out.iterdir()) == []
 
 
-def test_a_failed_rewrite_keeps_the_old_draw(tmp_path: Path, pool_csv, monkeypatch):
+def test_a_failed_rewrite_keeps_the_old_draw(tmp_path: Path, pool_csv, monkeypatch, snapshot):
     out = tmp_path / "out"
     write_draw(out, draw_task(spec_for(pool_csv)))
-    before = tree_snapshot(out)
+    before = snapshot(out)
     import fewshot.sampling.draw_folder as m
 
     def broken(src, dst):
@@ -155,7 +156,7 @@ def test_a_failed_rewrite_keeps_the_old_draw(tmp_path: Path, pool_csv, monkeypat
     with pytest.raises(OSError):
         write_draw(out, draw_task(spec_for(pool_csv, seeds=(0, 1, 2, 3))))
     monkeypatch.undo()
-    assert tree_snapshot(out) == before
+    assert snapshot(out) == before
 
 
 def test_verify_any_order_and_differences(tmp_path: Path, pool_csv):

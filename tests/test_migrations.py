@@ -17,7 +17,6 @@ from fewshot.ledger.engine import (
     upgrade_schema,
 )
 from fewshot.study import load_study
-from tests.conftest import ledger_dump, write_study
 
 REVISIONS = [r.revision for r in ScriptDirectory.from_config(_alembic_config()).walk_revisions()][
     ::-1
@@ -46,16 +45,16 @@ def test_revisions_form_one_line():
 
 
 @pytest.mark.parametrize("revision", REVISIONS[:-1])
-def test_upgrade_from_each_earlier_revision_keeps_the_data(ledger_url: str, revision: str):
+def test_upgrade_from_each_earlier_revision_keeps_the_data(ledger_url: str, revision: str, dump):
     engine = make_engine(resolve_url(ledger_url))
     upgrade_schema(engine, revision=revision)
     with engine.begin() as conn:
         for sql in SEED_ROWS:
             conn.execute(text(sql))
-    before = ledger_dump(ledger_url)
+    before = dump(ledger_url)
     engine.dispose()
     led = Ledger.open(ledger_url)  # upgrades to head
-    after = ledger_dump(ledger_url)
+    after = dump(ledger_url)
     for table, rows in before.items():
         if table == "alembic_version":
             continue
@@ -67,15 +66,15 @@ def test_upgrade_from_each_earlier_revision_keeps_the_data(ledger_url: str, revi
     led.close()
 
 
-def test_a_newer_ledger_is_refused_untouched(tmp_path: Path, ledger_url: str):
+def test_a_newer_ledger_is_refused_untouched(tmp_path: Path, ledger_url: str, dump, study_file):
     led = Ledger.open(ledger_url)
-    led.plan(load_study(write_study(tmp_path)))
+    led.plan(load_study(study_file(tmp_path)))
     led.close()
     engine = make_engine(resolve_url(ledger_url))
     with engine.begin() as conn:
         conn.execute(text("UPDATE alembic_version SET version_num = '9999'"))
     engine.dispose()
-    before = ledger_dump(ledger_url)
+    before = dump(ledger_url)
     with pytest.raises(LedgerError, match="written by a newer fewshot"):
         Ledger.open(ledger_url)
-    assert ledger_dump(ledger_url) == before
+    assert dump(ledger_url) == before

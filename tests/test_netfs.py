@@ -15,7 +15,6 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.cluster import netfs
 from fewshot.errors import InvalidInput
-from tests.conftest import ledger_dump, write_study
 
 runner = CliRunner()
 
@@ -84,12 +83,14 @@ def test_the_deepest_mount_decides_and_postgresql_is_never_refused(tmp_path: Pat
     assert netfs.check_ledger_filesystem("postgresql+psycopg://u@h/db", mounts=mounts) is None
 
 
-def test_work_and_slurm_refuse_a_ledger_on_nfs_and_change_nothing(tmp_path: Path, monkeypatch):
-    study = write_study(tmp_path)
+def test_work_and_slurm_refuse_a_ledger_on_nfs_and_change_nothing(
+    tmp_path: Path, monkeypatch, dump, study_file
+):
+    study = study_file(tmp_path)
     ledger = str(tmp_path / "l.sqlite")
     assert runner.invoke(app, ["init", str(study), "--ledger", ledger]).exit_code == 0
     monkeypatch.setattr(netfs, "MOUNTS_FILE", _table(tmp_path, tmp_path, "srv:/x", "nfs4"))
-    before = ledger_dump(ledger)
+    before = dump(ledger)
     for args in (
         ["work", "--worker", "w", "--ledger", ledger, "--", "true"],
         ["work", "--worker", "w", "--parallel", "2", "--ledger", ledger, "--", "true"],
@@ -101,7 +102,7 @@ def test_work_and_slurm_refuse_a_ledger_on_nfs_and_change_nothing(tmp_path: Path
         assert "network filesystem (nfs4" in res.output
         assert "PostgreSQL" in res.output and "--pinned" in res.output
         assert "Traceback" not in res.output
-    assert ledger_dump(ledger) == before
+    assert dump(ledger) == before
     assert not (tmp_path / "slurm").exists()
     # pinned mode never lets nodes open the ledger: allowed
     res = runner.invoke(
@@ -128,8 +129,8 @@ def test_work_and_slurm_refuse_a_ledger_on_nfs_and_change_nothing(tmp_path: Path
     assert "warning:" in res.output and "1 runs: 1 done" in res.output
 
 
-def test_single_process_commands_only_warn(tmp_path: Path, monkeypatch):
-    study = write_study(tmp_path)
+def test_single_process_commands_only_warn(tmp_path: Path, monkeypatch, study_file):
+    study = study_file(tmp_path)
     ledger = str(tmp_path / "l.sqlite")
     assert runner.invoke(app, ["init", str(study), "--ledger", ledger]).exit_code == 0
     monkeypatch.setattr(netfs, "MOUNTS_FILE", _table(tmp_path, tmp_path, "srv:/x", "lustre"))

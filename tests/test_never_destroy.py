@@ -19,7 +19,6 @@ from typer.testing import CliRunner
 from fewshot import DrawSpec, ManifestError, draw_task, load_manifest, write_draw
 from fewshot.cli import app
 from fewshot.sampling.draw_folder import DRAWS_MARKER
-from tests.conftest import STUDIES, tree_snapshot, write_study
 
 runner = CliRunner()
 
@@ -36,13 +35,13 @@ def spec(
     )
 
 
-def test_draw_refuses_a_user_folder_named_like_the_task(tmp_path: Path):
+def test_draw_refuses_a_user_folder_named_like_the_task(tmp_path: Path, snapshot, studies_dir):
     # The reported repro: the user's pool and an eval list live in data/dock-east/.
     data = tmp_path / "data"
     (data / "dock-east").mkdir(parents=True)
-    shutil.copy(STUDIES / "pools" / "dock-east.csv", data / "dock-east" / "pool.csv")
+    shutil.copy(studies_dir / "pools" / "dock-east.csv", data / "dock-east" / "pool.csv")
     (data / "dock-east" / "eval-ids.txt").write_text("x\n")
-    before = tree_snapshot(data)
+    before = snapshot(data)
     result = run(
         "draw",
         data / "dock-east" / "pool.csv",
@@ -59,18 +58,20 @@ def test_draw_refuses_a_user_folder_named_like_the_task(tmp_path: Path):
     )
     assert result.exit_code == 2, result.output
     assert "did not write" in result.output and "eval-ids.txt" in result.output
-    assert tree_snapshot(data) == before
+    assert snapshot(data) == before
     assert sorted(p.name for p in data.iterdir()) == ["dock-east"]
 
 
-def test_replace_does_not_delete_a_user_file_put_into_a_draws_folder(tmp_path: Path, pool_csv):
+def test_replace_does_not_delete_a_user_file_put_into_a_draws_folder(
+    tmp_path: Path, pool_csv, snapshot
+):
     out = tmp_path / "out"
     write_draw(out, draw_task(spec(pool_csv)))
     (out / "t1" / "notes.md").write_text("my notes\n")
-    before = tree_snapshot(out)
+    before = snapshot(out)
     with pytest.raises(ManifestError, match="notes.md"):
         write_draw(out, draw_task(spec(pool_csv, reserve=3)), replace=True)
-    assert tree_snapshot(out) == before
+    assert snapshot(out) == before
 
 
 def test_a_file_at_the_manifest_path_that_is_not_a_manifest_is_kept(tmp_path: Path, pool_csv):
@@ -95,30 +96,28 @@ def test_a_symlinked_task_folder_is_refused(tmp_path: Path, pool_csv):
     assert (elsewhere / "keep.txt").read_text() == "k"
 
 
-def test_study_with_draws_dir_dot_keeps_its_own_pool(tmp_path: Path):
+def test_study_with_draws_dir_dot_keeps_its_own_pool(tmp_path: Path, snapshot, study_file):
     # draws_dir = "." and the pool in a folder named like the task: init must refuse, not delete it.
-    study = write_study(tmp_path)
+    study = study_file(tmp_path, draws_dir=".", task={"pool": "reach/pool.csv"})
     (tmp_path / "reach").mkdir()
     (tmp_path / "pool.csv").rename(tmp_path / "reach" / "pool.csv")
-    text = study.read_text().replace('pool = "pool.csv"', 'pool = "reach/pool.csv"')
-    study.write_text('draws_dir = "."\n' + text)
-    before = tree_snapshot(tmp_path)
+    before = snapshot(tmp_path)
     ledger = tmp_path / "ledger.sqlite"
     result = run("init", study, "--ledger", ledger)
     assert result.exit_code == 2, result.output
     assert "reach" in result.output and "did not write" in result.output
     assert (tmp_path / "reach" / "pool.csv").read_bytes() == before["reach/pool.csv"]
-    assert tree_snapshot(tmp_path) == before  # the refusal comes before the ledger is created
+    assert snapshot(tmp_path) == before  # the refusal comes before the ledger is created
 
 
-def test_demo_refuses_a_folder_with_user_files(tmp_path: Path):
+def test_demo_refuses_a_folder_with_user_files(tmp_path: Path, snapshot):
     (tmp_path / "study.toml").write_text("mine\n")
     (tmp_path / "report.html").write_text("<p>mine</p>\n")
-    before = tree_snapshot(tmp_path)
+    before = snapshot(tmp_path)
     result = run("demo", "--out", tmp_path, "--quick")
     assert result.exit_code == 2, result.output
     assert "not a fewshot demo" in result.output
-    assert tree_snapshot(tmp_path) == before
+    assert snapshot(tmp_path) == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["report.html", "study.toml"]
 
 

@@ -11,7 +11,6 @@ import pytest
 from typer.testing import CliRunner
 
 from fewshot.cli import app
-from tests.conftest import write_study
 
 runner = CliRunner()
 NAMES = ["with space", "[red]mark[/red]", "ünï cødé 研究", "x[b]y {run} $(echo)"]
@@ -26,10 +25,10 @@ def _run(*args: object) -> tuple[int, str]:
 
 
 @pytest.mark.parametrize("name", NAMES)
-def test_odd_paths_work_or_give_a_message(tmp_path: Path, name: str):
+def test_odd_paths_work_or_give_a_message(tmp_path: Path, name: str, study_file):
     base = tmp_path / name
     base.mkdir(parents=True)  # "[/red]" makes a folder inside a folder: markup across folders
-    study = write_study(base)
+    study = study_file(base)
     ledger = base / "led ger.sqlite"
     assert _run("check", study)[0] == 0
     code, out = _run("init", study, "--ledger", ledger)
@@ -86,14 +85,12 @@ def test_odd_paths_work_or_give_a_message(tmp_path: Path, name: str):
         assert base.name in out.replace("\n", ""), (args, out)
 
 
-def test_a_pool_path_in_the_study_with_odd_characters(tmp_path: Path):
+def test_a_pool_path_in_the_study_with_odd_characters(tmp_path: Path, study_file):
     base = tmp_path / "[bold]pools ü"
     base.mkdir()
-    study = write_study(base)
-    text = study.read_text(encoding="utf-8").replace('pool = "pool.csv"', 'pool = "p [1] ü.csv"')
+    study = study_file(base, task={"pool": "p [1] ü.csv"})
     (base / "pool.csv").rename(base / "p [1] ü.csv")
-    study.write_text(text, encoding="utf-8")
     assert _run("check", study)[0] == 0
-    study.write_text(text.replace("p [1] ü.csv", "gone [x]/p.csv"), encoding="utf-8")
+    study_file(base, task={"pool": "gone [x]/p.csv"})
     code, out = _run("check", study)
     assert code == 2 and "gone [x]/p.csv" in out, out

@@ -12,7 +12,6 @@ import socket
 import subprocess
 import sys
 import tempfile
-import time
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -20,7 +19,6 @@ import pytest
 
 from fewshot.ledger import Ledger, LedgerError
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -91,10 +89,11 @@ with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
 """
 
 
-def test_a_server_restart_under_four_work_loops(tmp_path: Path, server: Server):
-    text = STUDY_TOML.replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3]")  # 28 runs
+def test_a_server_restart_under_four_work_loops(
+    tmp_path: Path, server: Server, study_file, wait_until
+):
     led = Ledger.open(server.url)
-    total = led.plan(load_study(write_study(tmp_path, text))).total_runs
+    total = led.plan(load_study(study_file(tmp_path, seeds=[0, 1, 2, 3]))).total_runs  # 28 runs
     trainer = tmp_path / "trainer.py"
     trainer.write_text(TRAINER, encoding="utf-8")
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
@@ -112,13 +111,7 @@ def test_a_server_restart_under_four_work_loops(tmp_path: Path, server: Server):
         )
         for k in range(4)
     ]
-    deadline = time.monotonic() + 120
-    while time.monotonic() < deadline:
-        if led.counts()["done"] >= 4:
-            break
-        time.sleep(0.05)
-    else:
-        pytest.fail("the workers never finished 4 runs")
+    wait_until(lambda: led.counts()["done"] >= 4, "the workers to finish 4 runs", timeout=120)
     led.close()
     server.ctl("-m", "fast", "restart")  # every connection is cut; the server comes back
     outs = [p.communicate(timeout=300) for p in procs]
@@ -135,9 +128,11 @@ def test_a_server_restart_under_four_work_loops(tmp_path: Path, server: Server):
         assert len(res) == total and not res.duplicated(["run", "metric", "step"]).any()
 
 
-def test_a_server_that_stays_away_gives_a_message_not_a_traceback(tmp_path: Path, server: Server):
+def test_a_server_that_stays_away_gives_a_message_not_a_traceback(
+    tmp_path: Path, server: Server, study_file
+):
     led = Ledger.open(server.url)
-    led.plan(load_study(write_study(tmp_path)))
+    led.plan(load_study(study_file(tmp_path)))
     led.reconnect_seconds = 1.0
     server.ctl("-m", "fast", "stop")
     try:

@@ -15,18 +15,16 @@ from typer.testing import CliRunner
 from fewshot.cli.commands import app
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import STUDY_TOML, write_study
 
 runner = CliRunner()
-SIZES = "[0, 1, 2, 3, 5, 8, 13, 21, 34, 55, 89]"
+SIZES = [0, 1, 2, 3, 5, 8, 13, 21, 34, 55, 89]
 
 
 @pytest.fixture()
-def ledger(tmp_path: Path) -> str:
-    text = STUDY_TOML.replace("sizes = [0, 1, 3, 10]", f"sizes = {SIZES}")
+def ledger(tmp_path: Path, study_file) -> str:
     path = str(tmp_path / "l.sqlite")
     led = Ledger.open(path)
-    led.plan(load_study(write_study(tmp_path, text)))
+    led.plan(load_study(study_file(tmp_path, sizes=SIZES)))
     keys = list(led.runs()["key"])
     for k in keys[:12]:
         led.record(k, "return", 40.0, budget={"episodes": 3, "gpu_hours": 0.5})

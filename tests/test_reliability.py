@@ -156,20 +156,12 @@ def test_exec_never_goes_through_a_shell(tmp_path: Path, study_file):
     assert not (Path.cwd() / "pwned").exists() and not (tmp_path / "pwned").exists()
 
 
-def test_a_password_in_the_ledger_url_is_never_printed(study_file):
-    import pytest
+def test_a_password_in_the_ledger_url_is_never_printed(study_file, pg_scratch: str):
     from typer.testing import CliRunner
 
     from fewshot.cli import app
 
-    base = os.environ.get("FEWSHOT_TEST_PG")
-    if not base:
-        pytest.skip(
-            "no PostgreSQL server: set FEWSHOT_TEST_PG to a scratch database URL to run this"
-        )
-    from tests.conftest import _reset_pg
-
-    _reset_pg(base)
+    base = pg_scratch
     scheme, rest = base.split("://", 1)
     user_host = rest.split("@", 1)
     user = user_host[0].split(":", 1)[0]

@@ -5,7 +5,6 @@ password, so any password connects)."""
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 from urllib.parse import quote, urlsplit
 
@@ -16,7 +15,6 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.ledger import Ledger
 from fewshot.ledger.engine import mask_url, resolve_url
-from tests.conftest import write_study
 
 runner = CliRunner()
 
@@ -60,24 +58,13 @@ def test_the_mask_agrees_with_sqlalchemys_url_parser(password: str):
     assert masked.password == "***" and not _leaks(mask_url(url), password)
 
 
-@pytest.fixture
-def pg_base() -> str:
-    base = os.environ.get("FEWSHOT_TEST_PG")
-    if not base:
-        pytest.skip(
-            "no PostgreSQL server: set FEWSHOT_TEST_PG to a scratch database URL to run this"
-        )
-    from tests.conftest import _reset_pg
-
-    _reset_pg(base)
-    return base
-
-
 @pytest.mark.parametrize("password", PASSWORDS)
-def test_no_command_shows_the_password(tmp_path: Path, pg_base: str, password: str):
-    url = _url(pg_base, password)
-    study = write_study(tmp_path)
-    dead = _url(pg_base.replace(str(urlsplit(pg_base).port), "1"), password)  # nothing listens
+def test_no_command_shows_the_password(tmp_path: Path, pg_scratch: str, password: str, study_file):
+    url = _url(pg_scratch, password)
+    study = study_file(tmp_path)
+    dead = _url(
+        pg_scratch.replace(str(urlsplit(pg_scratch).port), "1"), password
+    )  # nothing listens
     runs = [
         (["init", str(study), "--ledger", url], 0),
         (["status", "--ledger", url], 0),
@@ -96,10 +83,10 @@ def test_no_command_shows_the_password(tmp_path: Path, pg_base: str, password: s
     assert not _leaks(str(debug.exception) + debug.output, password)
 
 
-def test_the_report_shows_the_masked_url(tmp_path: Path, pg_base: str):
+def test_the_report_shows_the_masked_url(tmp_path: Path, pg_scratch: str, study_file):
     password = "Zürich@:/%x"
-    url = _url(pg_base, password)
-    study = write_study(tmp_path)
+    url = _url(pg_scratch, password)
+    study = study_file(tmp_path)
     assert runner.invoke(app, ["init", str(study), "--ledger", url]).exit_code == 0
     with Ledger.open(url) as led:
         for k, key in enumerate(led.runs()["key"]):

@@ -3,7 +3,6 @@ where they stand, and never run as commands."""
 
 from __future__ import annotations
 
-import os
 import shutil
 import subprocess
 from pathlib import Path
@@ -17,7 +16,6 @@ from fewshot.errors import InvalidInput
 from fewshot.jobtemplate import parse_template
 from fewshot.ledger.engine import mask_url, resolve_url
 from fewshot.masking import mask_secrets
-from tests.conftest import STUDY_TOML, write_study
 
 runner = CliRunner()
 
@@ -61,18 +59,13 @@ def test_a_password_with_at_signs_is_kept_whole():
     )
 
 
-def test_password_parameters_are_masked_in_status_and_refused_in_jobs(tmp_path: Path):
-    base = os.environ.get("FEWSHOT_TEST_PG")
-    if not base:
-        pytest.skip(
-            "no PostgreSQL server: set FEWSHOT_TEST_PG to a scratch database URL to run this"
-        )
-    from tests.conftest import _reset_pg
-
-    _reset_pg(base)
+def test_password_parameters_are_masked_in_status_and_refused_in_jobs(
+    tmp_path: Path, study_file, pg_scratch: str
+):
+    base = pg_scratch
     joiner = "&" if "?" in base else "?"
     url = f"{base}{joiner}password=hunter2secret"  # trust authentication ignores the password
-    study = write_study(tmp_path)
+    study = study_file(tmp_path)
     outs = [
         runner.invoke(app, ["init", str(study), "--ledger", url]),
         runner.invoke(app, ["status", "--ledger", url]),
@@ -105,18 +98,12 @@ NASTY = "d$(touch PWNED)`touch PWNED2`\"'x\\y ${HOME}"
         "printf '%s\\n' x{subset}y",
     ],
 )
-def test_placeholders_are_quoted_for_their_context(tmp_path: Path, template: str):
+def test_placeholders_are_quoted_for_their_context(tmp_path: Path, template: str, study_file):
     # The reference is the POSIX shell itself: each printed line, run by `sh -c`, must print the
     # value exactly and run nothing.
     folder = tmp_path / "s"
     folder.mkdir()
-    study = write_study(
-        folder,
-        STUDY_TOML.replace(
-            'name = "mini"',
-            f'name = "mini"\ndraws_dir = "{NASTY.replace(chr(92), chr(92) * 2).replace(chr(34), chr(92) + chr(34))}"',
-        ),
-    )
+    study = study_file(folder, draws_dir=NASTY)  # written as a TOML basic string, escaped
     ledger = tmp_path / "l.sqlite"
     made = runner.invoke(app, ["init", str(study), "--ledger", str(ledger)])
     assert made.exit_code == 0, made.output
@@ -150,8 +137,8 @@ def test_templates_with_formats_or_broken_quotes_are_refused(template: str, word
         parse_template(template, ["run", "subset"])
 
 
-def test_refused_template_through_the_cli(tmp_path: Path):
-    study = write_study(tmp_path)
+def test_refused_template_through_the_cli(tmp_path: Path, study_file):
+    study = study_file(tmp_path)
     ledger = str(tmp_path / "l.sqlite")
     assert runner.invoke(app, ["init", str(study), "--ledger", ledger]).exit_code == 0
     bad = runner.invoke(app, ["jobs", "--template", "{run:>2000000000}", "--ledger", ledger])

@@ -12,7 +12,6 @@ import os
 import shutil
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import pytest
@@ -20,7 +19,6 @@ from typer.testing import CliRunner
 
 from fewshot.cli import app
 from fewshot.ledger import Ledger
-from tests.conftest import write_study
 
 runner = CliRunner()
 
@@ -50,9 +48,11 @@ with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
 """
 
 
-def _setup(tmp_path: Path, ledger: str, monkeypatch, gate: bool) -> tuple[Path, list[str]]:
+def _setup(
+    tmp_path: Path, ledger: str, monkeypatch, gate: bool, study_file
+) -> tuple[Path, list[str]]:
     monkeypatch.chdir(tmp_path)  # a PostgreSQL ledger's slurm/ folder goes in the current folder
-    study = write_study(tmp_path)
+    study = study_file(tmp_path)
     assert runner.invoke(app, ["init", str(study), "--ledger", ledger]).exit_code == 0
     trainer = tmp_path / "trainer.py"
     trainer.write_text(TRAINER)
@@ -70,34 +70,34 @@ def _submit(args: list[str]) -> str:
     return res.output.split("submitted job ", 1)[1].split(":", 1)[0]
 
 
-def _wait_gone(job: str, timeout: float = 240) -> None:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
+def _wait_gone(job: str, wait_until) -> None:
+    def gone() -> bool:
         q = subprocess.run(["squeue", "-h", "-j", job], capture_output=True, text=True)
-        if not q.stdout.strip():
-            return
-        time.sleep(0.2)
-    subprocess.run(["scancel", job])
-    pytest.fail(f"SLURM job {job} did not end within {timeout:.0f} s")
+        return not q.stdout.strip()
+
+    try:
+        wait_until(gone, f"SLURM job {job} to end", timeout=240, every=0.2)
+    except BaseException:
+        subprocess.run(["scancel", job])
+        raise
 
 
-def _wait_file(path: Path, timeout: float = 240) -> str:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        if path.exists() and path.read_text():
-            return path.read_text()
-        time.sleep(0.1)
-    pytest.fail(f"{path} never appeared: the gated run was not started")
+def _wait_file(path: Path, wait_until) -> str:
+    wait_until(
+        lambda: path.exists() and path.read_text(),
+        f"{path} to appear (the gated run to start)",
+        timeout=240,
+        every=0.1,
+    )
+    return path.read_text()
 
 
-def _wait_done(ledger: str, n: int, timeout: float = 240) -> None:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
+def _wait_done(ledger: str, n: int, wait_until) -> None:
+    def done() -> bool:
         with Ledger.open(ledger) as led:
-            if (led.runs()["status"] == "done").sum() >= n:
-                return
-        time.sleep(0.2)
-    pytest.fail(f"{n} runs were never done")
+            return bool((led.runs()["status"] == "done").sum() >= n)
+
+    wait_until(done, f"{n} runs to be done", timeout=240, every=0.2)
 
 
 def _check_all_done_once(ledger: str, keys: list[str]) -> None:
@@ -108,8 +108,10 @@ def _check_all_done_once(ledger: str, keys: list[str]) -> None:
     assert sorted(results["run"]) == sorted(keys)  # one result per run, none twice
 
 
-def test_pull_mode_with_three_workers_runs_the_study(tmp_path: Path, ledger_url: str, monkeypatch):
-    trainer, keys = _setup(tmp_path, ledger_url, monkeypatch, gate=False)
+def test_pull_mode_with_three_workers_runs_the_study(
+    tmp_path: Path, ledger_url: str, monkeypatch, study_file, wait_until
+):
+    trainer, keys = _setup(tmp_path, ledger_url, monkeypatch, gate=False, study_file=study_file)
     job = _submit(
         [
             "--workers",
@@ -123,7 +125,7 @@ def test_pull_mode_with_three_workers_runs_the_study(tmp_path: Path, ledger_url:
             str(trainer),
         ]
     )
-    _wait_gone(job)
+    _wait_gone(job, wait_until)
     _check_all_done_once(ledger_url, keys)
     with Ledger.open(ledger_url) as led:
         runs = led.runs()
@@ -131,9 +133,9 @@ def test_pull_mode_with_three_workers_runs_the_study(tmp_path: Path, ledger_url:
     assert runs["worker"].str.startswith(f"slurm-{job}_").all()
 
 
-def test_pinned_mode_runs_the_study(tmp_path: Path, monkeypatch):
+def test_pinned_mode_runs_the_study(tmp_path: Path, monkeypatch, study_file, wait_until):
     ledger = str(tmp_path / "l.sqlite")
-    trainer, keys = _setup(tmp_path, ledger, monkeypatch, gate=False)
+    trainer, keys = _setup(tmp_path, ledger, monkeypatch, gate=False, study_file=study_file)
     results = tmp_path / "res"
     job = _submit(
         [
@@ -149,15 +151,17 @@ def test_pinned_mode_runs_the_study(tmp_path: Path, monkeypatch):
             str(trainer),
         ]
     )
-    _wait_gone(job)
+    _wait_gone(job, wait_until)
     res = runner.invoke(app, ["ingest", str(results), "--ledger", ledger])
     assert res.exit_code == 0 and f"{len(keys)} runs done, 0 failed" in res.output, res.output
     _check_all_done_once(ledger, keys)
 
 
-def test_a_cancelled_pull_task_leaves_its_run_claimable(tmp_path: Path, monkeypatch):
+def test_a_cancelled_pull_task_leaves_its_run_claimable(
+    tmp_path: Path, monkeypatch, study_file, wait_until
+):
     ledger = str(tmp_path / "l.sqlite")
-    trainer, keys = _setup(tmp_path, ledger, monkeypatch, gate=True)
+    trainer, keys = _setup(tmp_path, ledger, monkeypatch, gate=True, study_file=study_file)
     cmd = [
         "--results",
         str(tmp_path / "res"),
@@ -168,32 +172,36 @@ def test_a_cancelled_pull_task_leaves_its_run_claimable(tmp_path: Path, monkeypa
         str(trainer),
     ]
     job = _submit(["--workers", "2", *cmd])
-    task = _wait_file(tmp_path / "mark")
-    _wait_done(ledger, len(keys) - 1)  # so that the other task has ended, having no run left
+    task = _wait_file(tmp_path / "mark", wait_until)
+    _wait_done(
+        ledger, len(keys) - 1, wait_until
+    )  # so that the other task has ended, having no run left
     subprocess.run(["scancel", f"{job}_{task}"], check=True)
-    _wait_gone(job)
+    _wait_gone(job, wait_until)
     gate = os.environ["GATE_RUN"]
     with Ledger.open(ledger) as led:
         runs = led.runs().set_index("key")
     assert runs.loc[gate, "status"] == "planned"  # handed back, claimable at once
     assert (runs.drop(index=gate)["status"] == "done").all()
     job2 = _submit(["--workers", "2", *cmd])
-    _wait_gone(job2)
+    _wait_gone(job2, wait_until)
     _check_all_done_once(ledger, keys)
     with Ledger.open(ledger) as led:
         runs = led.runs().set_index("key")
     assert runs.loc[gate, "worker"].startswith(f"slurm-{job2}_")  # the second job ran it
 
 
-def test_a_cancelled_pinned_task_leaves_its_run_not_done(tmp_path: Path, monkeypatch):
+def test_a_cancelled_pinned_task_leaves_its_run_not_done(
+    tmp_path: Path, monkeypatch, study_file, wait_until
+):
     ledger = str(tmp_path / "l.sqlite")
-    trainer, keys = _setup(tmp_path, ledger, monkeypatch, gate=True)
+    trainer, keys = _setup(tmp_path, ledger, monkeypatch, gate=True, study_file=study_file)
     results = tmp_path / "res"
     cmd = ["--results", str(results), "--ledger", ledger, "--", sys.executable, str(trainer)]
     job = _submit(["--pinned", "--max-array", "3", *cmd])
-    task = _wait_file(tmp_path / "mark")
+    task = _wait_file(tmp_path / "mark", wait_until)
     subprocess.run(["scancel", f"{job}_{task}"], check=True)
-    _wait_gone(job)
+    _wait_gone(job, wait_until)
     gate = os.environ["GATE_RUN"]
     assert runner.invoke(app, ["ingest", str(results), "--ledger", ledger]).exit_code == 0
     with Ledger.open(ledger) as led:
@@ -206,14 +214,14 @@ def test_a_cancelled_pinned_task_leaves_its_run_not_done(tmp_path: Path, monkeyp
     lists = sorted((tmp_path / "slurm").glob("*.runs.jsonl"))
     second = [json.loads(x)["key"] for x in lists[-1].read_text().splitlines()]
     assert sorted(second) == sorted(set(keys) - done)  # only what is not done
-    _wait_gone(job2)
+    _wait_gone(job2, wait_until)
     assert runner.invoke(app, ["ingest", str(results), "--ledger", ledger]).exit_code == 0
     _check_all_done_once(ledger, keys)
 
 
-def test_script_only_writes_a_script_sbatch_accepts(tmp_path: Path, monkeypatch):
+def test_script_only_writes_a_script_sbatch_accepts(tmp_path: Path, monkeypatch, study_file):
     ledger = str(tmp_path / "l.sqlite")
-    _setup(tmp_path, ledger, monkeypatch, gate=False)
+    _setup(tmp_path, ledger, monkeypatch, gate=False, study_file=study_file)
     for mode in (["--workers", "2"], ["--pinned"]):
         res = runner.invoke(
             app, ["slurm", *mode, "--script-only", "--time", "10", "--ledger", ledger, "--", "true"]

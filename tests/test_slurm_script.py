@@ -9,7 +9,6 @@ import os
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import pytest
@@ -18,7 +17,6 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.cluster.slurm import max_array_size
 from fewshot.ledger import Ledger
-from tests.conftest import ledger_dump, write_study
 
 runner = CliRunner()
 ROOT = Path(__file__).resolve().parent.parent
@@ -43,8 +41,8 @@ def _fake(bin_dir: Path, name: str, body: str) -> None:
 
 
 @pytest.fixture
-def ledger(tmp_path: Path) -> str:
-    study = write_study(tmp_path)
+def ledger(tmp_path: Path, study_file) -> str:
+    study = study_file(tmp_path)
     path = str(tmp_path / "l.sqlite")
     assert runner.invoke(app, ["init", str(study), "--ledger", path]).exit_code == 0
     return path
@@ -108,9 +106,9 @@ def test_pull_script_is_capped_and_submitted(tmp_path: Path, ledger: str, fake_p
 
 
 def test_bad_input_exits_2_submits_nothing_and_changes_nothing(
-    tmp_path: Path, ledger: str, fake_path: Path
+    tmp_path: Path, ledger: str, fake_path: Path, dump
 ):
-    before = ledger_dump(ledger)
+    before = dump(ledger)
     cases = [
         (["--workers", "0"], "--workers must be 1 or more"),
         ([], "either --workers N"),
@@ -141,21 +139,21 @@ def test_bad_input_exits_2_submits_nothing_and_changes_nothing(
     assert not list((tmp_path / "slurm").glob("*.sbatch")) and not list(
         (tmp_path / "slurm").glob("*.runs.jsonl")
     )
-    assert ledger_dump(ledger) == before
+    assert dump(ledger) == before
 
 
-def test_pinned_with_nothing_pending_exits_2(tmp_path: Path, ledger: str, fake_path: Path):
+def test_pinned_with_nothing_pending_exits_2(tmp_path: Path, ledger: str, fake_path: Path, dump):
     _fake(fake_path, "sbatch", f"touch {tmp_path / 'submitted'}; echo 1")
     res = runner.invoke(
         app, ["work", "--worker", "w", "--ledger", ledger, "--", sys.executable, "-c", ""]
     )
     assert res.exit_code == 0, res.output
-    before = ledger_dump(ledger)
+    before = dump(ledger)
     res = runner.invoke(app, ["slurm", "--pinned", "--ledger", ledger, "--", "python", "t.py"])
     assert res.exit_code == 2
     assert "nothing to submit" in res.output and "no pending run" in res.output
     assert not (tmp_path / "submitted").exists()
-    assert ledger_dump(ledger) == before
+    assert dump(ledger) == before
 
 
 def _pinned_script(tmp_path: Path, ledger: str, trainer: Path, max_array: int) -> tuple[Path, int]:
@@ -246,18 +244,17 @@ while True:
 """
 
 
-def test_a_stopped_pinned_task_leaves_its_run_not_done(tmp_path: Path, ledger: str):
+def test_a_stopped_pinned_task_leaves_its_run_not_done(tmp_path: Path, ledger: str, wait_until):
     trainer = tmp_path / "t.py"
     trainer.write_text(WAITING)
     run_list, _ = _pinned_script(tmp_path, ledger, trainer, 1)
     mark, results = tmp_path / "started", tmp_path / "res"
     p = _task(run_list, results, 0, 1, trainer, MARK=str(mark))
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline and not mark.exists():
-        time.sleep(0.05)
-    if not mark.exists():
+    try:
+        wait_until(mark.exists, "the pinned task to start its trainer")
+    except BaseException:
         p.kill()
-        pytest.fail("the pinned task never started its trainer")
+        raise
     p.send_signal(signal.SIGTERM)
     _, err = p.communicate(timeout=60)
     assert p.returncode == 128 + signal.SIGTERM, err

@@ -19,7 +19,6 @@ from typer.testing import CliRunner
 from fewshot.cli import app
 from fewshot.ledger import Ledger
 from fewshot.study import load_study
-from tests.conftest import ledger_dump, tree_snapshot, write_study
 
 runner = CliRunner()
 FEWSHOT = [sys.executable, "-m", "fewshot.cli"]
@@ -79,15 +78,15 @@ def _assert_full_disk_message(result: subprocess.CompletedProcess[str], what: st
     assert "full" in result.stderr and what in result.stderr, result.stderr
 
 
-def test_init_on_a_full_disk_leaves_no_ledger_and_no_draws(small_disk: Path):
-    study = write_study(small_disk)
-    before = tree_snapshot(small_disk)
+def test_init_on_a_full_disk_leaves_no_ledger_and_no_draws(small_disk: Path, snapshot, study_file):
+    study = study_file(small_disk)
+    before = snapshot(small_disk)
     fillers = _fill(small_disk)
     ledger = small_disk / "l.sqlite"
     result = _fewshot("init", str(study), "--ledger", str(ledger))
     _assert_full_disk_message(result, str(small_disk))
     _free(fillers)
-    assert tree_snapshot(small_disk) == before  # no ledger file, no draws folder
+    assert snapshot(small_disk) == before  # no ledger file, no draws folder
     again = _fewshot("init", str(study), "--ledger", str(ledger))
     assert again.returncode == 0, again.stderr
     assert Ledger.open(ledger).counts()["planned"] == 21
@@ -95,26 +94,28 @@ def test_init_on_a_full_disk_leaves_no_ledger_and_no_draws(small_disk: Path):
 
 def test_reinit_with_new_seeds_on_a_full_disk_leaves_ledger_and_draws_as_they_were(
     small_disk: Path,
+    dump,
+    snapshot,
+    study_file,
 ):
-    study = write_study(small_disk)
+    study = study_file(small_disk)
     ledger = small_disk / "l.sqlite"
     assert _fewshot("init", str(study), "--ledger", str(ledger)).returncode == 0
-    text = study.read_text(encoding="utf-8").replace("seeds = [0, 1, 2]", "seeds = [0, 1, 2, 3, 4]")
-    study.write_text(text, encoding="utf-8")
-    ledger_before = ledger_dump(str(ledger))
-    draws_before = tree_snapshot(small_disk / "draws")
+    study_file(small_disk, seeds=[0, 1, 2, 3, 4])
+    ledger_before = dump(str(ledger))
+    draws_before = snapshot(small_disk / "draws")
     fillers = _fill(small_disk)
     result = _fewshot("init", str(study), "--ledger", str(ledger))
     _assert_full_disk_message(result, str(small_disk))
     _free(fillers)
-    assert ledger_dump(str(ledger)) == ledger_before
-    assert tree_snapshot(small_disk / "draws") == draws_before
+    assert dump(str(ledger)) == ledger_before
+    assert snapshot(small_disk / "draws") == draws_before
     assert _fewshot("init", str(study), "--ledger", str(ledger)).returncode == 0
     assert len(Ledger.open(ledger).runs()) == 35
 
 
-def test_ingest_on_a_full_disk_stores_nothing_then_succeeds(small_disk: Path):
-    study = write_study(small_disk)
+def test_ingest_on_a_full_disk_stores_nothing_then_succeeds(small_disk: Path, dump, study_file):
+    study = study_file(small_disk)
     ledger = small_disk / "l.sqlite"
     assert _fewshot("init", str(study), "--ledger", str(ledger)).returncode == 0
     keys = Ledger.open(ledger).runs()["key"].tolist()
@@ -127,12 +128,12 @@ def test_ingest_on_a_full_disk_stores_nothing_then_succeeds(small_disk: Path):
         ),
         encoding="utf-8",
     )
-    before = ledger_dump(str(ledger))
+    before = dump(str(ledger))
     fillers = _fill(small_disk)
     result = _fewshot("ingest", str(results), "--ledger", str(ledger))
     _assert_full_disk_message(result, str(ledger))
     _free(fillers)
-    assert ledger_dump(str(ledger)) == before
+    assert dump(str(ledger)) == before
     again = _fewshot("ingest", str(results), "--ledger", str(ledger))
     assert again.returncode == 0, again.stderr
     assert len(Ledger.open(ledger).results()) == 40 * len(keys)
@@ -140,11 +141,13 @@ def test_ingest_on_a_full_disk_stores_nothing_then_succeeds(small_disk: Path):
 
 def test_exec_next_and_record_on_a_full_disk_write_nothing_then_exec_runs_everything(
     small_disk: Path,
+    dump,
+    study_file,
 ):
-    study = write_study(small_disk)
+    study = study_file(small_disk)
     ledger = small_disk / "l.sqlite"
     assert _fewshot("init", str(study), "--ledger", str(ledger)).returncode == 0
-    before = ledger_dump(str(ledger))
+    before = dump(str(ledger))
     fillers = _fill(small_disk)
     trainer = [sys.executable, "-c", "pass"]
     result = _fewshot("exec", "--worker", "w", "--ledger", str(ledger), "--", *trainer)
@@ -152,7 +155,7 @@ def test_exec_next_and_record_on_a_full_disk_write_nothing_then_exec_runs_everyt
     for args in (("next", "--worker", "w"), ("record", "wide/reach/n1/s0", "return=1")):
         _assert_full_disk_message(_fewshot(*args, "--ledger", str(ledger)), str(ledger))
     _free(fillers)
-    assert ledger_dump(str(ledger)) == before
+    assert dump(str(ledger)) == before
     again = _fewshot("exec", "--worker", "w", "--ledger", str(ledger), "--", *trainer)
     assert again.returncode == 0, again.stderr
     assert Ledger.open(ledger).counts()["done"] == 21
@@ -161,10 +164,10 @@ def test_exec_next_and_record_on_a_full_disk_write_nothing_then_exec_runs_everyt
 # ----------------------------------------------------------------------- damaged ledgers
 
 
-def _planned_ledger(folder: Path) -> Path:
+def _planned_ledger(folder: Path, study_file) -> Path:
     ledger = folder / "l.sqlite"
     with Ledger.open(ledger) as led:
-        led.plan(load_study(write_study(folder)))
+        led.plan(load_study(study_file(folder)))
     return ledger
 
 
@@ -221,9 +224,9 @@ def _text(p: Path) -> None:
     ids=["status", "next", "record", "export", "init"],
 )
 def test_a_damaged_or_foreign_ledger_is_refused_unwritten(
-    tmp_path: Path, damage, fragment: str, command: list[str]
+    tmp_path: Path, damage, fragment: str, command: list[str], study_file
 ):
-    ledger = _planned_ledger(tmp_path)
+    ledger = _planned_ledger(tmp_path, study_file)
     damage(ledger)
     before = ledger.read_bytes()
     args = [a.replace("{study}", str(tmp_path / "study.toml")) for a in command]
@@ -236,19 +239,21 @@ def test_a_damaged_or_foreign_ledger_is_refused_unwritten(
     assert not wal.exists() or wal.stat().st_size == 0
 
 
-def test_a_read_only_ledger_file_is_read_but_next_says_how_to_fix_it(tmp_path: Path):
+def test_a_read_only_ledger_file_is_read_but_next_says_how_to_fix_it(tmp_path: Path, study_file):
     if os.geteuid() == 0:
         pytest.skip("root may write a read-only file, so the refusal cannot be seen as root")
-    ledger = _planned_ledger(tmp_path)
+    ledger = _planned_ledger(tmp_path, study_file)
     ledger.chmod(0o444)
     assert runner.invoke(app, ["status", "--ledger", str(ledger)]).exit_code == 0
     result = runner.invoke(app, ["next", "--worker", "w", "--ledger", str(ledger)])
     assert result.exit_code == 2 and "read-only" in result.output, result.output
 
 
-def test_a_read_only_mounted_ledger_is_read_but_writes_say_read_only(small_disk: Path):
-    ledger = _planned_ledger(small_disk)
-    before = ledger_dump(str(ledger))
+def test_a_read_only_mounted_ledger_is_read_but_writes_say_read_only(
+    small_disk: Path, dump, study_file
+):
+    ledger = _planned_ledger(small_disk, study_file)
+    before = dump(str(ledger))
     subprocess.run(["mount", "-o", "remount,ro", str(small_disk)], check=True)
     try:
         assert runner.invoke(app, ["status", "--ledger", str(ledger)]).exit_code == 0
@@ -258,18 +263,13 @@ def test_a_read_only_mounted_ledger_is_read_but_writes_say_read_only(small_disk:
             assert "read-only" in result.output and "Traceback" not in result.output
     finally:
         subprocess.run(["mount", "-o", "remount,rw", str(small_disk)], check=True)
-    assert ledger_dump(str(ledger)) == before
+    assert dump(str(ledger)) == before
 
 
-def test_an_unknown_study_table_layout_in_postgresql_is_not_touched():
-    url = os.environ.get("FEWSHOT_TEST_PG")
-    if not url:
-        pytest.skip("no PostgreSQL server: set FEWSHOT_TEST_PG to run this")
+def test_an_unknown_study_table_layout_in_postgresql_is_not_touched(pg_scratch: str):
     from sqlalchemy import create_engine, text
 
-    from tests.conftest import _reset_pg
-
-    _reset_pg(url)
+    url = pg_scratch
     engine = create_engine(url.replace("postgresql://", "postgresql+psycopg://", 1))
     marker = uuid.uuid4().hex
     with engine.begin() as conn:

@@ -2,24 +2,30 @@
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import pytest
 
 from fewshot.study import StudyError, load_study, run_key
-from tests.conftest import STUDY_TOML, write_study
 
 
-def test_the_study_factory_writes_the_shared_study(tmp_path: Path, study_file):
-    # the fixture's study (built from named edits) and the shared text are one study
-    (tmp_path / "a").mkdir()
-    (tmp_path / "b").mkdir()
-    a = load_study(study_file(tmp_path / "a"))
-    b = load_study(write_study(tmp_path / "b"))
-    assert a.arms == b.arms and a.sizes == b.sizes and a.seeds == b.seeds
-    assert [t.draw_settings() for t in a.tasks] == [t.draw_settings() for t in b.tasks]
+def test_the_study_factory_refuses_edits_that_do_not_apply(tmp_path: Path, study_file):
+    # the fixture's named edits reach the loaded study, and an edit that cannot apply fails
+    study = load_study(
+        study_file(seeds=[4, 5], arms={"wide": {"name": "deep"}}, task={"reserve": 2})
+    )
+    assert study.seeds == (4, 5) and study.arms[0].name == "deep" and study.tasks[0].reserve == 2
     with pytest.raises(KeyError, match="no arm 'nope'"):
         study_file(arms={"nope": {"role": "baseline"}})
+    with pytest.raises(KeyError, match="no arm 'nope' to drop"):
+        study_file(drop_arms=("nope",))
+    with pytest.raises(KeyError, match="no key 'lowest_first' in the task to remove"):
+        study_file(task={"lowest_first": None})
+    with pytest.raises(KeyError, match="no top-level key 'caution' to remove"):
+        study_file(caution=None)
+    with pytest.raises(TypeError, match="either the raw text or named edits"):
+        study_file(text="name = 'x'\n", seeds=[1])
 
 
 def test_parse_and_plan(tmp_path: Path, study_file):
@@ -44,71 +50,59 @@ def test_replicates_add_a_suffix(study_file):
     assert run_key("a", "t", 1, 2, 0, 1) == "a/t/n1/s2"
 
 
-def _edit(old: str, new: str) -> str:
-    assert old in STUDY_TOML
-    return STUDY_TOML.replace(old, new, 1)
-
-
 @pytest.mark.parametrize(
-    ("text", "fragment"),
+    ("edits", "fragment"),
     [
-        ("sizez = [1]\n" + STUDY_TOML, "line 1: sizez: unknown key. Did you mean 'sizes'?"),
-        (STUDY_TOML + 'name = "x"\n', "not valid TOML"),
-        ("[[arms]\n" + STUDY_TOML, "not valid TOML"),
+        ({"_before": "sizez = [1]\n"}, "line 1: sizez: unknown key. Did you mean 'sizes'?"),
+        ({"_after": 'name = "x"\n'}, "not valid TOML"),
+        ({"_before": "[[arms]\n"}, "not valid TOML"),
         (
-            _edit('role = "baseline"', 'role = "baseline"\ncheckpont = "x"'),
+            {"arms": {"scratch": {"checkpont": "x"}}},
             "arms[1].checkpont: unknown key. Did you mean 'checkpoint'?",
         ),
         (
-            _edit("keep_top = 100", "keep_topp = 100"),
+            {"task": {"keep_top": None, "keep_topp": 100}},
             "tasks[0].keep_topp: unknown key. Did you mean 'keep_top'?",
         ),
-        (_edit("sizes = [0, 1, 3, 10]", 'sizes = "1,3"'), "sizes: must be a list of whole numbers"),
-        (_edit("sizes = [0, 1, 3, 10]", "sizes = [1, 1]"), "sizes: must be distinct"),
+        ({"sizes": "1,3"}, "sizes: must be a list of whole numbers"),
+        ({"sizes": [1, 1]}, "sizes: must be distinct"),
+        ({"sizes": [-1, 3]}, "sizes: must be distinct whole numbers from 0 (zero-shot) to 2**63-1"),
+        ({"seeds": [-4]}, "seeds: must be distinct whole numbers from 0"),
+        ({"higher_is_better": "yes"}, "higher_is_better: must be true or false"),
+        ({"arms": {"scratch": {"name": "wide"}}}, "arms[1].name: 'wide' is named twice"),
+        ({"arms": {"wide": {"name": "wide base"}}}, "arm name 'wide base' is not valid"),
+        ({"arms": {"wide": {"name": "../wide"}}}, "arm name '../wide' is not valid"),
+        ({"task": {"name": "<b>reach</b>"}}, "task name '<b>reach</b>' is not valid"),
         (
-            _edit("sizes = [0, 1, 3, 10]", "sizes = [-1, 3]"),
-            "sizes: must be distinct whole numbers from 0 (zero-shot) to 2**63-1",
-        ),
-        (
-            _edit("seeds = [0, 1, 2]", "seeds = [-4]"),
-            "seeds: must be distinct whole numbers from 0",
-        ),
-        (
-            _edit("higher_is_better = true", 'higher_is_better = "yes"'),
-            "higher_is_better: must be true or false",
-        ),
-        (_edit('name = "scratch"', 'name = "wide"'), "arms[1].name: 'wide' is named twice"),
-        (_edit('name = "wide"', 'name = "wide base"'), "arm name 'wide base' is not valid"),
-        (_edit('name = "wide"', 'name = "../wide"'), "arm name '../wide' is not valid"),
-        (_edit('name = "reach"', 'name = "<b>reach</b>"'), "task name '<b>reach</b>' is not valid"),
-        (
-            _edit('baseline = "scratch"', 'baseline = "scratc"'),
+            {"baseline": "scratc"},
             "'scratc' is not one of the arms (wide, scratch). Did you mean 'scratch'?",
         ),
-        (_edit('role = "pretrained"', 'role = "teacher"'), "must be 'pretrained' or 'baseline'"),
-        (_edit("keep_top = 100\n", ""), "keep_top and rank_by go together"),
-        (_edit("expert = 100.0", "expert = nan"), "expert: must be a finite number"),
-        (_edit("expert = 100.0", "expert = 0.0"), "floor and expert must differ"),
+        ({"arms": {"wide": {"role": "teacher"}}}, "must be 'pretrained' or 'baseline'"),
+        ({"task": {"keep_top": None}}, "keep_top and rank_by go together"),
+        ({"task": {"expert": math.nan}}, "expert: must be a finite number"),
+        ({"task": {"expert": 0.0}}, "floor and expert must differ"),
         (
-            _edit("attributes = { params = 1e6 }", 'attributes = { params = [1, 2] }'),
+            {"arms": {"wide": {"attributes": {"params": [1, 2]}}}},
             "attribute 'params' must be a finite number",
         ),
-        (_edit('metric = "return"\n', ""), "the file needs a 'metric' key"),
-        (_edit('pool = "pool.csv"\n', ""), "tasks[0] needs a 'pool' key"),
-        (_edit('group = "arm"', 'group = "a b"'), "group name 'a b' is not valid"),
+        ({"metric": None}, "the file needs a 'metric' key"),
+        ({"task": {"pool": None}}, "tasks[0] needs a 'pool' key"),
+        ({"task": {"group": "a b"}}, "group name 'a b' is not valid"),
     ],
 )
-def test_bad_study_files(tmp_path: Path, text, fragment):
-    path = write_study(tmp_path, text)
+def test_bad_study_files(tmp_path: Path, edits, fragment, study_file, study_text):
+    edits = dict(edits)
+    before, after = edits.pop("_before", ""), edits.pop("_after", "")
+    path = study_file(tmp_path, text=before + study_text(**edits) + after)
     with pytest.raises(StudyError) as info:
         load_study(path)
     assert fragment in str(info.value)
     assert str(path) in str(info.value)
 
 
-def test_error_line_points_at_the_key(tmp_path: Path):
-    text = _edit('role = "baseline"', 'role = "baseline"\nzero_shot = "no"')
-    path = write_study(tmp_path, text)
+def test_error_line_points_at_the_key(tmp_path: Path, study_file):
+    path = study_file(tmp_path, arms={"scratch": {"zero_shot": "no"}})
+    text = path.read_text(encoding="utf-8")
     line = next(n for n, t in enumerate(text.splitlines(), 1) if t.startswith("zero_shot"))
     with pytest.raises(
         StudyError, match=rf"line {line}: arms\[1\].zero_shot: must be true or false"

@@ -20,7 +20,6 @@ from fewshot.cli import app
 from fewshot.errors import FewshotError
 from fewshot.masking import mask_secrets
 from fewshot.names import check_name
-from tests.conftest import write_study
 
 runner = CliRunner()
 
@@ -40,9 +39,9 @@ def run(*args: object, env: dict[str, str] | None = None):
 
 
 @pytest.fixture(scope="module")
-def ledger(tmp_path_factory: pytest.TempPathFactory) -> str:
+def ledger(tmp_path_factory: pytest.TempPathFactory, study_in) -> str:
     folder = tmp_path_factory.mktemp("user-text")
-    study = write_study(folder)
+    study = study_in(folder)
     path = str(folder / "l.sqlite")
     assert run("init", study, "--ledger", path).exit_code == 0
     return path
@@ -111,10 +110,10 @@ def test_export_to_a_bracketed_folder(ledger: str, tmp_path: Path):
 
 
 @pytest.mark.parametrize("folder", ["[bold]l", "a:smile:b", "x\\[y"])
-def test_ledger_paths_print_as_given(tmp_path: Path, folder: str):
+def test_ledger_paths_print_as_given(tmp_path: Path, folder: str, study_file):
     where = tmp_path / folder
     where.mkdir(parents=True)
-    study = write_study(tmp_path)
+    study = study_file(tmp_path)
     path = where / "l.sqlite"
     made = run("init", study, "--ledger", path)
     assert made.exit_code == 0, made.output
@@ -128,10 +127,10 @@ def test_ledger_paths_print_as_given(tmp_path: Path, folder: str):
 @example(text="[rank0]: out of memory")
 @example(text="[/]")
 def test_trainer_stderr_passes_through_and_is_kept(
-    tmp_path_factory: pytest.TempPathFactory, text: str
+    tmp_path_factory: pytest.TempPathFactory, text: str, study_in
 ):
     folder = tmp_path_factory.mktemp("exec")
-    study = write_study(folder)
+    study = study_in(folder)
     led = str(folder / "l.sqlite")
     assert run("init", study, "--ledger", led).exit_code == 0
     trainer = [

@@ -7,7 +7,6 @@ import os
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import pytest
@@ -15,7 +14,6 @@ from typer.testing import CliRunner
 
 from fewshot.cli import app
 from fewshot.ledger import Ledger
-from tests.conftest import write_study
 
 runner = CliRunner()
 ROOT = Path(__file__).resolve().parent.parent
@@ -39,8 +37,8 @@ while True:
 """
 
 
-def _init(tmp_path: Path, ledger: str) -> None:
-    study = write_study(tmp_path)
+def _init(study_file, ledger: str) -> None:
+    study = study_file()
     res = runner.invoke(app, ["init", str(study), "--ledger", ledger])
     assert res.exit_code == 0, res.output
 
@@ -51,8 +49,8 @@ def _trainer(tmp_path: Path, text: str) -> str:
     return str(p)
 
 
-def test_three_loops_run_every_run_once(tmp_path: Path, ledger_url: str):
-    _init(tmp_path, ledger_url)
+def test_three_loops_run_every_run_once(tmp_path: Path, ledger_url: str, study_file):
+    _init(study_file, ledger_url)
     trainer = _trainer(tmp_path, TRAINER)
     res = runner.invoke(
         app,
@@ -83,9 +81,9 @@ def test_three_loops_run_every_run_once(tmp_path: Path, ledger_url: str):
     assert f"3 loops: {len(runs)} runs done, 0 failed" in res.output
 
 
-def test_each_gpu_loop_sees_only_its_device(tmp_path: Path):
+def test_each_gpu_loop_sees_only_its_device(tmp_path: Path, study_file):
     ledger = str(tmp_path / "l.sqlite")
-    _init(tmp_path, ledger)
+    _init(study_file, ledger)
     trainer = _trainer(tmp_path, TRAINER)
     res = runner.invoke(
         app,
@@ -115,9 +113,9 @@ def test_each_gpu_loop_sees_only_its_device(tmp_path: Path):
     assert set(dev.astype(int)) <= {0, 1}
 
 
-def test_sigint_hands_every_claimed_run_back(tmp_path: Path):
+def test_sigint_hands_every_claimed_run_back(tmp_path: Path, study_file, wait_until):
     ledger = str(tmp_path / "l.sqlite")
-    _init(tmp_path, ledger)
+    _init(study_file, ledger)
     marks = tmp_path / "marks"
     marks.mkdir()
     trainer = _trainer(tmp_path, WAITING)
@@ -142,14 +140,15 @@ def test_sigint_hands_every_claimed_run_back(tmp_path: Path):
         stderr=subprocess.PIPE,
         text=True,
     )
-    deadline = time.monotonic() + 120
-    while time.monotonic() < deadline:
-        if len(list(marks.iterdir())) == 3:
-            break
-        time.sleep(0.05)
-    else:
+    try:
+        wait_until(
+            lambda: len(list(marks.iterdir())) == 3,
+            "each of the three loops to start a trainer",
+            timeout=120,
+        )
+    except BaseException:
         proc.kill()
-        pytest.fail("the three loops never all started a trainer")
+        raise
     with Ledger.open(ledger) as led:
         assert (led.runs()["status"] == "running").sum() == 3
     proc.send_signal(signal.SIGINT)
@@ -176,21 +175,21 @@ def test_sigint_hands_every_claimed_run_back(tmp_path: Path):
         (["--parallel", "3", "--gpus", "0,1"], "disagree"),
     ],
 )
-def test_bad_loop_options_exit_2_and_change_nothing(tmp_path: Path, args: list[str], says: str):
-    from tests.conftest import ledger_dump
-
+def test_bad_loop_options_exit_2_and_change_nothing(
+    tmp_path: Path, args: list[str], says: str, dump, study_file
+):
     ledger = str(tmp_path / "l.sqlite")
-    _init(tmp_path, ledger)
-    before = ledger_dump(ledger)
+    _init(study_file, ledger)
+    before = dump(ledger)
     res = runner.invoke(app, ["work", "--worker", "w", *args, "--ledger", ledger, "--", "true"])
     assert res.exit_code == 2, res.output
     assert says in res.output and "Traceback" not in res.output
-    assert ledger_dump(ledger) == before
+    assert dump(ledger) == before
 
 
-def test_no_command_exits_2(tmp_path: Path):
+def test_no_command_exits_2(tmp_path: Path, study_file):
     ledger = str(tmp_path / "l.sqlite")
-    _init(tmp_path, ledger)
+    _init(study_file, ledger)
     res = runner.invoke(app, ["work", "--worker", "w", "--parallel", "2", "--ledger", ledger])
     assert res.exit_code == 2
     assert "Missing argument" in res.output and "Traceback" not in res.output  # click's own message

@@ -21,7 +21,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from fewshot.ledger import Ledger  # noqa: E402
 from fewshot.study import load_study  # noqa: E402
-from tests.conftest import STUDY_TOML, write_study  # noqa: E402
+from tests.support import study_toml, write_study  # noqa: E402
 
 
 def main() -> None:
@@ -30,10 +30,8 @@ def main() -> None:
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
-        text = (
-            STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1, 2, 3, 4, 5]")
-            .replace("seeds = [0, 1, 2]", "seeds = [" + ", ".join(map(str, range(100))) + "]")
-            .replace('role = "pretrained"', 'role = "pretrained"\nzero_shot = false')
+        text = study_toml(
+            sizes=[1, 2, 3, 4, 5], seeds=list(range(100)), arms={"wide": {"zero_shot": False}}
         )
         led_path = folder / "base.sqlite"
         led = Ledger.open(led_path)

@@ -21,7 +21,7 @@ sys.path.insert(0, str(ROOT))
 
 from fewshot.ledger import Ledger  # noqa: E402
 from fewshot.study import load_study  # noqa: E402
-from tests.conftest import _reset_pg  # noqa: E402
+from tests.support import reset_pg  # noqa: E402
 from tests.test_reliability import WORKER, _study  # noqa: E402
 
 
@@ -63,7 +63,7 @@ def main() -> None:
         run(f"sqlite:///{tmp}/load.sqlite", Path(tmp), args.seeds, args.workers)
         pg = os.environ.get("FEWSHOT_TEST_PG")
         if pg:
-            _reset_pg(pg)
+            reset_pg(pg)
             other = Path(tmp) / "pg"
             other.mkdir()
             run(pg, other, args.seeds, args.workers)

@@ -24,18 +24,16 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 from fewshot.cluster.parallel import loop_plan, run_parallel  # noqa: E402
 from fewshot.ledger import Ledger, resolve_url  # noqa: E402
 from fewshot.study import load_study  # noqa: E402
-from tests.conftest import STUDY_TOML, _reset_pg, write_study  # noqa: E402
+from tests.support import reset_pg, study_toml, write_study  # noqa: E402
 
 
 def _ledger(folder: Path, backend: str, pg: str | None, seeds: int) -> str:
-    text = STUDY_TOML.replace("sizes = [0, 1, 3, 10]", "sizes = [1, 2, 3, 4]").replace(
-        "seeds = [0, 1, 2]", "seeds = [" + ", ".join(map(str, range(seeds))) + "]"
-    )
+    text = study_toml(sizes=[1, 2, 3, 4], seeds=list(range(seeds)))
     if backend == "sqlite":
         url = str(folder / f"l{time.monotonic_ns()}.sqlite")
     else:
         assert pg is not None
-        _reset_pg(pg)
+        reset_pg(pg)
         url = pg
     with Ledger.open(url, create=True) as led:
         led.plan(load_study(write_study(folder, text)))
