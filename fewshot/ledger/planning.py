@@ -57,7 +57,7 @@ def _spec_json(study: Study) -> str:
             "sizes": list(study.sizes),
             "seeds": list(study.seeds),
             "replicates": study.replicates,
-            "file": str(study.path),
+            "file": str(study.path.resolve()),  # trainers resolve checkpoints against it
             "metrics": list(study.metrics),
             "bounds": None if study.bounds is None else list(study.bounds),
             "caution": study.caution,

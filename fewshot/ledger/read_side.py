@@ -220,6 +220,7 @@ class LedgerReads(LedgerConnection):
                 "metrics": tuple(spec.get("metrics") or (r.metric,)),
                 "bounds": None if bounds is None else (float(bounds[0]), float(bounds[1])),
                 "caution": spec.get("caution"),
+                "file": spec.get("file"),  # the study file as planned
             }
 
         return self._tx(go)

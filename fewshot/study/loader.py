@@ -13,7 +13,6 @@ import math
 import re
 import tomllib
 from collections.abc import Mapping, Sequence
-from dataclasses import fields
 from pathlib import Path
 from typing import Any
 
@@ -21,28 +20,16 @@ from fewshot.errors import InvalidInput
 from fewshot.files import read_text
 from fewshot.names import check_name
 from fewshot.ranges import INT64_MAX, MAX_REPLICATES
+from fewshot.study.keys import KIND_WORDS, keys_of
 from fewshot.study.model import Arm, Study, StudyError, Task
 
 __all__ = ["load_study"]
 
-_TOP = {
-    "name",
-    "metric",
-    "higher_is_better",
-    "sizes",
-    "seeds",
-    "replicates",
-    "baseline",
-    "arms",
-    "tasks",
-    "draws_dir",
-    "description",
-    "metrics",
-    "bounds",
-    "caution",
-}
-_ARM = {f.name for f in fields(Arm)}
-_TASK = {f.name for f in fields(Task)}  # the task's own keys and its draw settings
+# The known keys come from the one key table (fewshot.study.keys), which the README's key
+# reference is printed from; a test checks it against Arm's and Task's fields.
+_TOP = set(keys_of("study"))
+_ARM = set(keys_of("arms"))
+_TASK = set(keys_of("tasks"))  # the task's own keys and its draw settings
 
 
 class _Where:
@@ -130,18 +117,7 @@ def _get(doc, key, kind, where, table=None, i=0, *, required=False, default=None
         "tables": isinstance(value, list) and all(isinstance(v, dict) for v in value),
     }[kind]
     if not ok:
-        words = {
-            "str": "a string",
-            "bool": "true or false",
-            "int": "a whole number",
-            "num": "a number",
-            "intlist": "a list of whole numbers",
-            "numlist": "a list of numbers",
-            "strlist": "a list of strings",
-            "table": "a table",
-            "tables": "an array of tables",
-        }
-        raise where.error(f"must be {words[kind]}. Got {value!r}.", key, table, i)
+        raise where.error(f"must be {KIND_WORDS[kind]}. Got {value!r}.", key, table, i)
     if kind == "num" and not math.isfinite(value):
         raise where.error(f"must be a finite number. Got {value!r}.", key, table, i)
     return value

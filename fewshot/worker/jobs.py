@@ -7,7 +7,7 @@ from typing import TYPE_CHECKING
 
 from fewshot.errors import InvalidInput
 from fewshot.jobtemplate import parse_template
-from fewshot.worker.fields import RUN_FIELDS, run_values
+from fewshot.worker.fields import RUN_FIELDS, run_values, trainer_context
 
 if TYPE_CHECKING:
     from fewshot.ledger import Ledger
@@ -32,5 +32,5 @@ def job_lines(ledger: Ledger, template: str, *, include_failed: bool = False) ->
             "Drop {ledger} and give trainers the URL through FEWSHOT_LEDGER instead."
         )
     runs = ledger.runs(["planned", "failed"] if include_failed else ["planned"])
-    name, url = ledger.study, ledger.connect_url
-    return [parsed.render(run_values(r, url, name)) for r in runs.itertuples()]
+    context, url = trainer_context(ledger), ledger.connect_url
+    return [parsed.render(run_values(r, url, context)) for r in runs.itertuples()]

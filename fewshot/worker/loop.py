@@ -43,7 +43,7 @@ from fewshot.ledger.runs import Claim
 from fewshot.results_format import attempt_of_file, results_file_for
 from fewshot.sampling import subset_digest
 from fewshot.sampling.pools import read_id_list
-from fewshot.worker.fields import run_environment
+from fewshot.worker.fields import TrainerContext, run_environment, trainer_context
 
 __all__ = [
     "ExecOutcome",
@@ -155,7 +155,7 @@ def run_claims(
         raise InvalidInput(f"`max_runs` must be 1 or more. Got {max_runs}.")
     if results_dir is not None:
         _make_results_dir(results_dir)
-    study = ledger.study
+    study = trainer_context(ledger)  # the study-level fields, read once per loop
     outcomes: list[ExecOutcome] = []
     with _Signals() as signals:
         while max_runs is None or len(outcomes) < max_runs:
@@ -226,7 +226,7 @@ def _run_one(
     lease: float,
     results_dir: Path | None,
     ledger_url: str,
-    study: str,
+    study: TrainerContext,
     signals: _Signals,
 ) -> ExecOutcome:
     start = time.monotonic()
