@@ -21,6 +21,21 @@ if TYPE_CHECKING:
 
 __all__ = ["CompareReport", "compare_report", "compare_scores"]
 
+# the columns of fewshot.stats.transfer.effective_data besides the keys and n_seeds (kept, empty,
+# when no task has a baseline curve to read yet)
+EFFECT_COLUMNS = [
+    "arm_estimate",
+    *(
+        f"{m}{end}"
+        for m in ("effective", "transferred", "multiplier")
+        for end in ("", "_low", "_high")
+    ),
+    "censor",
+    "mark",
+    "label",
+    "hurts",
+]
+
 
 @dataclass(frozen=True)
 class CompareReport:
@@ -129,7 +144,10 @@ def compare_scores(
         on=keys,
         how="left",
     )
-    table = table.merge(eff.drop(columns=["n_seeds"]), on=keys, how="left")
+    if len(eff):
+        table = table.merge(eff.drop(columns=["n_seeds"]), on=keys, how="left")
+    else:  # mid-study the baseline may have no curve to read yet: the columns, empty
+        table = table.reindex(columns=[*table.columns, *EFFECT_COLUMNS])
     in_raw = table["task"].isin(raw)
     table.insert(3, "unit", np.where(in_raw, sc.metric, "normalised"))
     # raw values back into the metric's own units (a lower-is-better metric's differences turn sign)
@@ -191,9 +209,15 @@ def compare_scores(
                     f"baseline {base!r} has no runs at size(s) {', '.join(map(str, missing))} on task "
                     f"{task!r}: no comparison with {arm!r} there"
                 )
+    if not chosen:
+        notes.append(
+            f"nothing to compare yet: {base!r} is the only arm with scores; the tables show the "
+            "baseline alone (add another arm's results to compare it)"
+        )
     n_min = int(table["n_seeds"].min()) if len(table) else 0
-    notes.append(f"pairs by seed (same subsets); seeds behind each comparison: {n_min} or more")
-    if n_min < FEW_SEEDS:
+    if len(table):
+        notes.append(f"pairs by seed (same subsets); seeds behind each comparison: {n_min} or more")
+    if len(table) and n_min < FEW_SEEDS:
         notes.append(
             f"some comparisons rest on fewer than {FEW_SEEDS} seeds (flagged !): do not read them as evidence"
         )
