@@ -90,7 +90,7 @@ def _edit(old: str, new: str) -> str:
         (_edit("expert = 100.0", "expert = nan"), "expert: must be a finite number"),
         (_edit("expert = 100.0", "expert = 0.0"), "floor and expert must differ"),
         (
-            _edit("attributes = { params = 1e6 }", "attributes = { params = [1, 2] }"),
+            _edit("attributes = { params = 1e6 }", 'attributes = { params = [1, 2] }'),
             "attribute 'params' must be a finite number",
         ),
         (_edit('metric = "return"\n', ""), "the file needs a 'metric' key"),
