@@ -19,11 +19,13 @@ from fewshot.analysis import (
     curve_figure,
     study_findings,
 )
+from fewshot.analysis.figures import figure_pages
 from fewshot.errors import InvalidInput
 from fewshot.files import write_text_atomic
 from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
 from fewshot.stats import CurveSettings
 from fewshot.stats.coverage import coverage_sentence, printed_sentence
+from fewshot.stats.progress import advance
 from fewshot.tables import flagged, number, threshold_cell, transfer_rows, with_interval
 
 __all__ = ["build_report", "write_report", "check_report_path", "HARDWARE_CAUTION"]
@@ -127,39 +129,58 @@ def _completion_section(data: StudyData) -> tuple[str, list[str]]:
 
 
 def _figure(draw: Callable[[], Any], kind: str, caption: str) -> str:
+    """One figure, or pages of one (``draw`` returns a figure or ``(label, figure)`` pages)."""
     try:
-        return figure_html(figure_uri(draw()), caption)
+        drawn = draw()
+        pages = drawn if isinstance(drawn, list) else [("", drawn)]
+        return "".join(
+            figure_html(figure_uri(fig), f"{caption} ({label})." if label else f"{caption}.")
+            for label, fig in pages
+        )
     except InvalidInput as exc:
         return paragraph(f"No {kind} figure: {exc}")
 
 
 def _figures(rep: StudyReports) -> str:
-    """Every figure, drawn from the reports already computed."""
+    """Every figure, drawn from the reports already computed; figures with one panel per task in
+    pages of at most twelve panels (by task group)."""
     data, cmp = rep.data, rep.compare
-    figs = _figure(
-        lambda: curve_figure(rep.figure_curves, data),
-        "curves",
-        "Score against episodes per task; intervals over seeds.",
-    )
+    jobs: list[tuple[Callable[[], Any], str, str]] = [
+        (
+            lambda: figure_pages("curves", rep.figure_curves, data),
+            "curves",
+            "Score against episodes per task; intervals over seeds",
+        )
+    ]
     if rep.aggregate is not None:
         aggregate = rep.aggregate
-        figs += _figure(
-            lambda: curve_figure(aggregate, data),
-            "aggregate",
-            "Interquartile mean of normalised scores over tasks.",
+        jobs.append(
+            (
+                lambda: curve_figure(aggregate, data),
+                "aggregate",
+                "Interquartile mean of normalised scores over tasks",
+            )
         )
-    if cmp is None:
-        return figs
-    shown = [
-        ("difference", f"Each arm minus {cmp.baseline}, paired by seed."),
-        ("summary", "Summary of arms by task."),
-    ]
-    if rep.normalised:
-        shown.append(("profile", "Performance profile at the largest size."))
-    if len(cmp.scaling):
-        shown.append(("scaling", "Aggregate score against the arms' attribute."))
-    for kind, caption in shown:
-        figs += _figure(lambda k=kind: compare_figure(k, cmp, data), kind, caption)  # type: ignore[misc]
+    if cmp is not None:
+        jobs.append(
+            (
+                lambda: figure_pages("difference", cmp, data),
+                "difference",
+                f"Each arm minus {cmp.baseline}, paired by seed",
+            )
+        )
+        shown = [("summary", "Summary of arms by task")]
+        if rep.normalised:
+            shown.append(("profile", "Performance profile at the largest size"))
+        if len(cmp.scaling):
+            shown.append(("scaling", "Aggregate score against the arms' attribute"))
+        for kind, caption in shown:
+            jobs.append((lambda k=kind: compare_figure(k, cmp, data), kind, caption))  # type: ignore[misc]
+    figs = ""
+    advance("report figures", 0, len(jobs))
+    for done, (draw, kind, caption) in enumerate(jobs, start=1):
+        figs += _figure(draw, kind, caption)
+        advance("report figures", done, len(jobs))
     return figs
 
 
