@@ -37,7 +37,7 @@ img, table { max-width: 100%; } table { display: block; overflow-x: auto; }
 """
 
 
-PNG_COLOURS = 96  # a palette PNG: a figure's lines, bands and text need far fewer colours
+PNG_COLOURS = 64  # a palette PNG: a figure's lines, bands and text need far fewer colours
 
 
 def figure_uri(fig, dpi: int = 150) -> str:  # type: ignore[no-untyped-def]
