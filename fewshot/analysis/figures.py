@@ -4,10 +4,13 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Any
 
+import pandas as pd
+
 from fewshot.analysis.curves import CurveReport, curve_report
 from fewshot.analysis.data import StudyData, as_study_data
 from fewshot.analysis.transfer import CompareReport, compare_report
 from fewshot.errors import InvalidInput
+from fewshot.plots.layout import PAGE_PANELS
 from fewshot.stats import CurveSettings
 
 if TYPE_CHECKING:
@@ -16,7 +19,14 @@ if TYPE_CHECKING:
 
     from fewshot.ledger import Ledger
 
-__all__ = ["FIGURE_KINDS", "CURVE_KINDS", "curve_figure", "compare_figure", "make_figure"]
+__all__ = [
+    "FIGURE_KINDS",
+    "CURVE_KINDS",
+    "curve_figure",
+    "compare_figure",
+    "figure_pages",
+    "make_figure",
+]
 
 FIGURE_KINDS = ("curves", "aggregate", "difference", "summary", "profile", "scaling")
 CURVE_KINDS = ("curves", "aggregate")  # drawn from a CurveReport; the others from a CompareReport
@@ -27,9 +37,17 @@ def _check_kind(kind: str) -> None:
         raise InvalidInput(f"kind must be one of {', '.join(FIGURE_KINDS)}. Got {kind!r}.")
 
 
-def curve_figure(rep: CurveReport, data: StudyData, *, fig: Figure | None = None) -> Figure:
+def curve_figure(
+    rep: CurveReport,
+    data: StudyData,
+    *,
+    fig: Figure | None = None,
+    tasks: list[str] | None = None,
+    heading: str = "",
+) -> Figure:
     """The curves figure of a per-task report, or the aggregate figure of an across-task one
-    (one panel per task or group, drawn into ``fig`` when given)."""
+    (one panel per task or group, drawn into ``fig`` when given). ``tasks`` and ``heading``: one
+    page of a per-task figure (see :func:`figure_pages`)."""
     from fewshot import plots
 
     if rep.kind == "per-task":
@@ -41,6 +59,8 @@ def curve_figure(rep: CurveReport, data: StudyData, *, fig: Figure | None = None
             normalised=rep.value == "normalised",
             refs=data.tasks,
             interval=f"{rep.settings.confidence:.0%} {rep.table['method'].iloc[0]}",
+            tasks=tasks,
+            heading=heading,
             fig=fig,
         )
     return plots.aggregate_figure(
@@ -56,9 +76,12 @@ def compare_figure(
     size: int | None = None,
     ax: Axes | None = None,
     fig: Figure | None = None,
+    tasks: list[str] | None = None,
+    heading: str = "",
 ) -> Figure:
     """A ``difference``, ``summary``, ``profile`` or ``scaling`` figure of a comparison: the
-    difference figure (one panel per task) into ``fig``, the others onto ``ax``, when given."""
+    difference figure (one panel per task; ``tasks`` and ``heading`` for one page) into ``fig``,
+    the others onto ``ax``, when given."""
     from fewshot import plots
 
     _check_kind(kind)
@@ -70,7 +93,13 @@ def compare_figure(
             "mixed": cmp.scores.metric + " (normalised where floor/expert exist)",
         }[cmp.value]
         return plots.difference_figure(
-            cmp.table, arms=arms, baseline=cmp.baseline, unit=unit, fig=fig
+            cmp.table,
+            arms=arms,
+            baseline=cmp.baseline,
+            unit=unit,
+            tasks=tasks,
+            heading=heading,
+            fig=fig,
         )
     if kind == "summary":
         if len(cmp.areas):
@@ -98,14 +127,68 @@ def compare_figure(
             raise InvalidInput(
                 "a performance profile needs normalised scores: give the tasks floor and expert."
             )
-        prof = performance_profile(normed, cmp.settings)
-        at = size if size is not None else int(max(s for s in prof["size"]))
+        present = normed.dropna(subset=["normalised"])
+        at = size if size is not None else int(present["size"].max())
+        prof = performance_profile(_at_size(present, at), cmp.settings)
         return plots.profile_figure(prof, arms=arms, roles=data.roles, size=at, ax=ax)
     if kind == "scaling":
         return plots.scaling_figure(cmp.scaling, arms=arms, ax=ax)
     raise InvalidInput(
         f"kind {kind!r} is drawn from a curve report (curve_figure), not a comparison."
     )
+
+
+def figure_pages(
+    kind: str,
+    report: CurveReport | CompareReport,
+    data: StudyData,
+    *,
+    per_page: int = PAGE_PANELS,
+) -> list[tuple[str, Figure]]:
+    """A per-task figure (``curves`` of a per-task curve report, ``difference`` of a comparison)
+    in pages of at most ``per_page`` panels, paged by task group when there are more tasks than
+    one page holds: ``(label, figure)`` per page, the label empty for a single page. The
+    difference figure's mean over tasks gets a page of its own then."""
+    from fewshot.plots.layout import panel_pages
+
+    if kind not in ("curves", "difference"):
+        raise InvalidInput(f"kind must be curves or difference for pages. Got {kind!r}.")
+    table = report.table
+    if kind == "difference":
+        table = table.dropna(subset=["difference"])
+    tasks = list(dict.fromkeys(table["task"])) if len(table) else []
+    groups = {
+        str(t): g if isinstance(g, str) else None
+        for t, g in zip(data.tasks["task"], data.tasks["group"], strict=True)
+    }
+    pages = panel_pages(tasks, groups, per_page=per_page)
+    if len(pages) > 1 and "all" in tasks:  # the mean over tasks first, on a page of its own
+        rest = [t for t in tasks if t != "all"]
+        pages = [("mean over tasks", ["all"]), *panel_pages(rest, groups, per_page=per_page)]
+
+    def draw(label: str, page: list[str]) -> Figure:
+        if kind == "curves":
+            assert isinstance(report, CurveReport)
+            return curve_figure(report, data, tasks=page, heading=label)
+        assert isinstance(report, CompareReport)
+        return compare_figure("difference", report, data, tasks=page, heading=label)
+
+    if not tasks:  # nothing to draw: the figure function says why
+        return [("", draw("", []))]
+    return [(label, draw(label, page)) for label, page in pages]
+
+
+def _at_size(normed: pd.DataFrame, size: int) -> pd.DataFrame:
+    """The scores a profile at ``size`` reads: only that size's rows when every task has the same
+    seeds there as at all sizes (the resample index of a task depends on its seeds alone, so the
+    profile at ``size`` is the same, number for number, as the one computed at every size);
+    otherwise every row."""
+    here = normed[normed["size"] == size]
+
+    def pairs(frame: pd.DataFrame) -> set[tuple[str, int]]:
+        return set(zip(frame["task"], frame["seed"], strict=True))
+
+    return here if pairs(here) == pairs(normed) else normed
 
 
 def make_figure(

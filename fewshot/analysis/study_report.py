@@ -5,11 +5,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from fewshot.analysis.curves import CurveReport, curve_scores
+from fewshot.analysis.curves import CurveReport, caveats, curve_scores, in_study_order
 from fewshot.analysis.data import StudyData, StudyScores, read_study, study_scores
 from fewshot.analysis.transfer import CompareReport, compare_scores
 from fewshot.errors import InvalidInput
-from fewshot.stats import CurveSettings
+from fewshot.stats import CurveSettings, aggregate_curves
+from fewshot.stats.progress import advance
 
 if TYPE_CHECKING:
     from fewshot.ledger import Ledger
@@ -32,7 +33,8 @@ class StudyReports:
     normalised_curves : CurveReport or None
         Per-task curves of normalised scores, when every task has floor and expert.
     aggregate : CurveReport or None
-        The across-task aggregates, when every task has floor and expert.
+        The across-task interquartile mean (the aggregate the report shows), when every task
+        has floor and expert.
     compare : CompareReport or None
         Every arm against the baseline; None when the comparison was refused, with the reason in
         ``compare_error``.
@@ -77,11 +79,17 @@ def analyse_study(
         )
     sc = study_scores(data, select=select)
     arms = data.arm_order
+    stage = "report statistics"
+    steps = 2 if sc.raw_tasks else 4
+    advance(stage, 0, steps)
     curves = curve_scores(sc, settings, arms=arms)
+    advance(stage, 1, steps)
     normalised_curves = aggregate = None
     if not sc.raw_tasks:
         normalised_curves = curve_scores(sc, settings, normalised=True, arms=arms)
-        aggregate = curve_scores(sc, settings, across_tasks=True, arms=arms)
+        advance(stage, 2, steps)
+        aggregate = _iqm_over_tasks(sc, settings, arms)
+        advance(stage, 3, steps)
     cmp, error = None, None
     try:
         cmp = compare_scores(
@@ -90,7 +98,18 @@ def analyse_study(
             baseline=baseline or data.study["baseline"],
             threshold=threshold,
             arm_table=data.arms,
+            iqm=None if aggregate is None else aggregate.table,  # not computed again
         )
     except InvalidInput as exc:
         error = str(exc)
+    advance(stage, steps, steps)
     return StudyReports(data, sc, settings, curves, normalised_curves, aggregate, cmp, error)
+
+
+def _iqm_over_tasks(sc: StudyScores, settings: CurveSettings, arms: list[str]) -> CurveReport:
+    """The across-task curves the report shows: the interquartile mean only (the figure and the
+    findings read nothing else), the same rows :func:`curve_scores` gives for it."""
+    table = aggregate_curves(sc.scores, settings, value="normalised", aggregates=("iqm",))
+    report = CurveReport(in_study_order(table, arms), "across-tasks", "normalised", settings, sc)
+    report.notes.extend(caveats(report))
+    return report

@@ -21,6 +21,21 @@ if TYPE_CHECKING:
 
 __all__ = ["CompareReport", "compare_report", "compare_scores"]
 
+# the columns of fewshot.stats.transfer.effective_data besides the keys and n_seeds (kept, empty,
+# when no task has a baseline curve to read yet)
+EFFECT_COLUMNS = [
+    "arm_estimate",
+    *(
+        f"{m}{end}"
+        for m in ("effective", "transferred", "multiplier")
+        for end in ("", "_low", "_high")
+    ),
+    "censor",
+    "mark",
+    "label",
+    "hurts",
+]
+
 
 @dataclass(frozen=True)
 class CompareReport:
@@ -95,10 +110,15 @@ def compare_scores(
     arms: list[str] | None = None,
     threshold: float = 0.8,
     arm_table: pd.DataFrame | None = None,
+    iqm: pd.DataFrame | None = None,
 ) -> CompareReport:
     """:func:`compare_report` on scores already read (no ledger): what the tests hold to the mirror
     property. Each task is compared in normalised units when it has floor and expert, else in raw
-    units; means over tasks use only tasks with floor and expert."""
+    units; means over tasks use only tasks with floor and expert.
+
+    ``iqm``: the across-task aggregates of these scores with these settings, when the caller has
+    them already (every task with floor and expert); the scaling view then reads its IQM rows
+    instead of computing them again."""
     from fewshot.stats.profiles import performance_profile, scaling_view
     from fewshot.stats.transfer import (
         check_baseline,
@@ -129,7 +149,10 @@ def compare_scores(
         on=keys,
         how="left",
     )
-    table = table.merge(eff.drop(columns=["n_seeds"]), on=keys, how="left")
+    if len(eff):
+        table = table.merge(eff.drop(columns=["n_seeds"]), on=keys, how="left")
+    else:  # mid-study the baseline may have no curve to read yet: the columns, empty
+        table = table.reindex(columns=[*table.columns, *EFFECT_COLUMNS])
     in_raw = table["task"].isin(raw)
     table.insert(3, "unit", np.where(in_raw, sc.metric, "normalised"))
     # raw values back into the metric's own units (a lower-is-better metric's differences turn sign)
@@ -156,13 +179,12 @@ def compare_scores(
         thresholds = threshold_sizes(normed, threshold, settings)
         areas = curve_areas(normed, settings)
         headline = performance_profile(normed, settings, taus=np.array([threshold]), over="tasks")
-        if arm_table is not None:
-            try:
-                # the scaling view reads the IQM only: the other aggregates are not computed
+        if arm_table is not None and _has_scaling_attribute(arm_table):
+            # the scaling view reads the IQM only: the other aggregates are not computed (or
+            # not again, when the caller computed them over the same scores)
+            if iqm is None:
                 iqm = aggregate_curves(normed, settings, aggregates=("iqm",))
-                scaling = scaling_view(iqm, arm_table, statistic="iqm")
-            except InvalidInput:
-                scaling = pd.DataFrame()
+            scaling = scaling_view(iqm, arm_table, statistic="iqm")
     else:
         notes.append(
             "no task has floor and expert: episodes-to-threshold and areas need normalised scores"
@@ -179,21 +201,29 @@ def compare_scores(
             + ", ".join(sorted(set(areas["sizes"])))
             + "): compare an area only with areas over the same range (the sizes column)"
         )
+    held: dict[tuple[str, str], set[int]] = {}  # (arm, task) -> sizes, from one pass
+    for arm, task, size in set(
+        zip(sc.scores["arm"], sc.scores["task"], sc.scores["size"], strict=True)
+    ):
+        held.setdefault((arm, task), set()).add(size)
     for task in tasks:
-        b_sizes = set(sc.scores[(sc.scores["arm"] == base) & (sc.scores["task"] == task)]["size"])
+        b_sizes = held.get((base, task), set())
         for arm in chosen:
-            a_sizes = set(
-                sc.scores[(sc.scores["arm"] == arm) & (sc.scores["task"] == task)]["size"]
-            )
-            missing = sorted(s for s in a_sizes - b_sizes if s > 0)
+            missing = sorted(s for s in held.get((arm, task), set()) - b_sizes if s > 0)
             if missing:
                 notes.append(
                     f"baseline {base!r} has no runs at size(s) {', '.join(map(str, missing))} on task "
                     f"{task!r}: no comparison with {arm!r} there"
                 )
+    if not chosen:
+        notes.append(
+            f"nothing to compare yet: {base!r} is the only arm with scores; the tables show the "
+            "baseline alone (add another arm's results to compare it)"
+        )
     n_min = int(table["n_seeds"].min()) if len(table) else 0
-    notes.append(f"pairs by seed (same subsets); seeds behind each comparison: {n_min} or more")
-    if n_min < FEW_SEEDS:
+    if len(table):
+        notes.append(f"pairs by seed (same subsets); seeds behind each comparison: {n_min} or more")
+    if len(table) and n_min < FEW_SEEDS:
         notes.append(
             f"some comparisons rest on fewer than {FEW_SEEDS} seeds (flagged !): do not read them as evidence"
         )
@@ -244,6 +274,22 @@ def compare_scores(
         notes,
         tuple(refs) if len(refs) > 1 else (),
     )
+
+
+def _has_scaling_attribute(arm_table: pd.DataFrame) -> bool:
+    """Whether the arms share a numeric attribute for the scaling view (asked of
+    :func:`~fewshot.stats.profiles.scaling_view` itself on no rows, so the rule is held once),
+    checked before any aggregate is computed for it."""
+    from fewshot.stats.profiles import scaling_view
+
+    empty = pd.DataFrame(
+        columns=["arm", "role", "group", "aggregate", "size", "estimate", "low", "high"]
+    )
+    try:
+        scaling_view(empty, arm_table, statistic="iqm")
+    except InvalidInput:
+        return False
+    return True
 
 
 def _unit_notes(sc: StudyScores, tasks: list[str], refs: list[str], raw: list[str]) -> list[str]:

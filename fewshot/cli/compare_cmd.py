@@ -87,6 +87,7 @@ def compare(
 ) -> None:
     """Arms against a baseline: paired differences, P(improvement), effective data, episodes to a threshold."""
     from fewshot.analysis import compare_json, compare_report, curve_scores, findings, read_study
+    from fewshot.cli.stats_progress import statistics_progress
     from fewshot.stats import CurveSettings
     from fewshot.tables import latex_table, transfer_rows
 
@@ -95,15 +96,16 @@ def compare(
         led = open_ledger(ledger, study)
         try:
             data = read_study(led)
-            rep = compare_report(
-                data,
-                settings,
-                baseline=baseline,
-                arms=_arms(arms),
-                threshold=threshold,
-                metric=metric,
-                select=select,
-            )
+            with statistics_progress():
+                rep = compare_report(
+                    data,
+                    settings,
+                    baseline=baseline,
+                    arms=_arms(arms),
+                    threshold=threshold,
+                    metric=metric,
+                    select=select,
+                )
         finally:
             led.close()
     if fmt is CompareFormat.json:
@@ -118,7 +120,7 @@ def compare(
         return
     aggregate = None
     if rep.value == "normalised" and len(rep.over_tasks) > 1:
-        with reporting(), as_flags():
+        with reporting(), as_flags(), statistics_progress():
             aggregate = curve_scores(rep.scores, settings, across_tasks=True, arms=data.arm_order)
     with paged(pager):
         print_findings(findings(rep, aggregate, arm_order=data.arm_order))

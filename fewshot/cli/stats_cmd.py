@@ -342,6 +342,7 @@ def report(
 ) -> None:
     """Write the study report: one HTML file with the figures embedded, readable offline and printable."""
     from fewshot.analysis import analyse_study
+    from fewshot.cli.stats_progress import statistics_progress
     from fewshot.report import check_report_path, write_report
     from fewshot.stats import CurveSettings
 
@@ -349,11 +350,12 @@ def report(
         settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
         check_report_path(out_file)
         led = open_ledger(ledger, study)
-        try:
-            reports = analyse_study(
-                led, settings, select=select, baseline=baseline, threshold=threshold
-            )
-        finally:
-            led.close()
-        path = write_report(out_file, reports, title=title)
+        with statistics_progress():  # the statistics, then the figures
+            try:
+                reports = analyse_study(
+                    led, settings, select=select, baseline=baseline, threshold=threshold
+                )
+            finally:
+                led.close()
+            path = write_report(out_file, reports, title=title)
     out.print(f"wrote {path}")

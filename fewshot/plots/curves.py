@@ -35,18 +35,22 @@ def curves_figure(
     normalised: bool,
     refs: pd.DataFrame | None = None,
     interval: str = "",
+    tasks: Sequence[str] | None = None,
+    heading: str = "",
     fig: Figure | None = None,
 ) -> Figure:
     """One panel per task: each arm's curve with its interval; floor and expert as reference lines.
-    Drawn into ``fig`` when given (it should be empty)."""
+    Drawn into ``fig`` when given (it should be empty). ``tasks``: the panels of one page (see
+    :func:`~fewshot.plots.layout.panel_pages`), in order; ``heading`` opens the title (the page)."""
+    curves, tasks = _page(curves, tasks)
     if curves.empty:
         raise InvalidInput("there are no curve points to plot yet: record some results first.")
     styles = arm_colours(arms)
-    tasks = list(dict.fromkeys(curves["task"]))
     fig, axes = _grid(len(tasks), fig=fig)
     ylabel = f"{metric} (normalised)" if normalised else metric
+    parts = dict(tuple(curves.groupby("task", sort=False)))
     for ax, task in zip(axes, tasks, strict=False):
-        part = curves[curves["task"] == task]
+        part = parts.get(task, curves.iloc[:0])
         zero_at = _size_axis(ax, sorted(set(part["size"])))
         for arm in arms:
             rows = part[part["arm"] == arm]
@@ -72,7 +76,9 @@ def curves_figure(
         ax.set_ylabel(ylabel)
     top = _legend(fig, axes[0])
     fig.suptitle(
-        f"{ylabel} against episodes; {interval} intervals over {_seeds_text(curves)}", fontsize=8
+        _heading(heading)
+        + f"{ylabel} against episodes; {interval} intervals over {_seeds_text(curves)}",
+        fontsize=8,
     )
     fig.tight_layout(rect=(0, 0, 1, top))
     return fig
@@ -126,18 +132,20 @@ def difference_figure(
     arms: Sequence[str],
     baseline: str,
     unit: str,
+    tasks: Sequence[str] | None = None,
+    heading: str = "",
     fig: Figure | None = None,
 ) -> Figure:
     """Arm minus baseline per size with its interval and a zero line; one panel per task, drawn
-    into ``fig`` when given."""
-    data = table.dropna(subset=["difference"])
+    into ``fig`` when given. ``tasks`` and ``heading``: one page, as in :func:`curves_figure`."""
+    data, tasks = _page(table.dropna(subset=["difference"]), tasks)
     if data.empty:
         raise InvalidInput(f"no paired differences with {baseline!r} to plot.")
     styles = arm_colours(arms)
-    tasks = list(dict.fromkeys(data["task"]))
     fig, axes = _grid(len(tasks), fig=fig)
+    parts = dict(tuple(data.groupby("task", sort=False)))
     for ax, task in zip(axes, tasks, strict=False):
-        part = data[data["task"] == task]
+        part = parts.get(task, data.iloc[:0])
         zero_at = _size_axis(ax, sorted(set(part["size"])))
         ax.axhline(0, color="black", lw=0.7)
         for arm in arms:
@@ -148,6 +156,19 @@ def difference_figure(
         ax.set_xlabel("episodes (log scale)")
         ax.set_ylabel(f"{unit} minus {baseline}")
     top = _legend(fig, axes[0])
-    fig.suptitle(f"paired by seed; intervals over {_seeds_text(data)}", fontsize=8)
+    fig.suptitle(
+        _heading(heading) + f"paired by seed; intervals over {_seeds_text(data)}", fontsize=8
+    )
     fig.tight_layout(rect=(0, 0, 1, top))
     return fig
+
+
+def _page(frame: pd.DataFrame, tasks: Sequence[str] | None) -> tuple[pd.DataFrame, list[str]]:
+    """The rows of the page's tasks and the page's tasks (every task, in order, by default)."""
+    if tasks is None:
+        return frame, list(dict.fromkeys(frame["task"]))
+    return frame[frame["task"].isin(list(tasks))], list(tasks)
+
+
+def _heading(heading: str) -> str:
+    return f"{heading}: " if heading else ""

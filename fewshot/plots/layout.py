@@ -24,7 +24,9 @@ __all__ = [
     "PALETTE",
     "STYLE",
     "FIGURE_SUFFIXES",
+    "PAGE_PANELS",
     "arm_colours",
+    "panel_pages",
     "save_figure",
     "style_context",
     "styled",
@@ -36,6 +38,7 @@ PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#0
 MARKERS = ["o", "s", "^", "D", "v", "P", "X", "*"]
 FIGURE_SUFFIXES = (".png", ".svg", ".pdf")
 COLUMN_WIDTH = 3.4  # inches: one column of a two-column paper
+PAGE_PANELS = 12  # panels of one per-task figure page: four rows of three stay readable
 
 # The house style, applied in a context while drawing and saving (never to the global rcParams).
 STYLE = {
@@ -178,6 +181,39 @@ def _grid(
     for ax in axes.ravel()[n:]:
         ax.set_visible(False)
     return fig, axes.ravel()
+
+
+def panel_pages(
+    tasks: Sequence[str],
+    groups: dict[str, str | None] | None = None,
+    *,
+    per_page: int = PAGE_PANELS,
+) -> list[tuple[str, list[str]]]:
+    """Small multiples in pages of at most ``per_page`` panels: ``(label, tasks)`` per page.
+
+    When more than one page is needed, tasks that carry a group (``groups``: task -> group or
+    None) are paged group by group (in the order the groups first appear), so a page never mixes
+    groups; the label names the group and, when a group needs more than one page, which of its
+    tasks the page holds. A single page has an empty label. Names not in ``groups`` (e.g. ``"all"``) count as ungrouped.
+    """
+    if per_page < 1:
+        raise InvalidInput(f"`per_page` must be 1 or more. Got {per_page}.")
+    if len(tasks) <= per_page:  # one page holds them all, groups or not
+        return [("", list(tasks))]
+    by_group: dict[str | None, list[str]] = {}
+    for t in tasks:
+        by_group.setdefault((groups or {}).get(t), []).append(t)
+    grouped = len(by_group) > 1 or None not in by_group
+    pages: list[tuple[str, list[str]]] = []
+    for group, members in by_group.items():
+        chunks = [members[k : k + per_page] for k in range(0, len(members), per_page)]
+        for k, chunk in enumerate(chunks):
+            where = [f"group {group}" if group is not None else "ungrouped"] if grouped else []
+            if len(chunks) > 1:
+                first = k * per_page + 1
+                where.append(f"tasks {first}-{first + len(chunk) - 1} of {len(members)}")
+            pages.append((", ".join(where), chunk))
+    return pages
 
 
 def _legend(fig: Figure, ax) -> float:  # type: ignore[no-untyped-def]

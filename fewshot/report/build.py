@@ -12,19 +12,21 @@ from typing import Any
 import pandas as pd
 
 from fewshot.analysis import (
-    CompareReport,
     StudyData,
     StudyReports,
     compare_figure,
     curve_figure,
     study_findings,
 )
+from fewshot.analysis.figures import figure_pages
 from fewshot.errors import InvalidInput
 from fewshot.files import write_text_atomic
 from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
+from fewshot.report.long_tables import collapsed, curve_section, transfer_section
 from fewshot.stats import CurveSettings
 from fewshot.stats.coverage import coverage_sentence, printed_sentence
-from fewshot.tables import flagged, number, threshold_cell, transfer_rows, with_interval
+from fewshot.stats.progress import advance
+from fewshot.tables import number
 
 __all__ = ["build_report", "write_report", "check_report_path", "HARDWARE_CAUTION"]
 
@@ -73,12 +75,23 @@ def _study_section(data: StudyData) -> str:
         f"is better), baseline {study['baseline']}, sizes {', '.join(map(str, sizes))}, seeds "
         f"{', '.join(map(str, seeds))}, {study['replicates']} replicate(s) per subset, {len(runs)} runs."
     )
+    groups = tasks["group"].dropna()
+    task_summary = paragraph(
+        f"{len(tasks)} tasks"
+        + (
+            " in groups: "
+            + ", ".join(f"{g} ({n})" for g, n in groups.value_counts(sort=False).items())
+            if len(groups)
+            else ""
+        )
+        + "."
+    )
     return (
         paragraph(text)
         + "<h3>Arms</h3>"
         + table_html(arm_rows)
         + "<h3>Tasks</h3>"
-        + table_html(task_rows)
+        + collapsed(task_rows, what="Tasks", summary=task_summary)
     )
 
 
@@ -104,7 +117,7 @@ def _completion_section(data: StudyData) -> tuple[str, list[str]]:
         f"{t['planned']} not started. Cells: runs done / planned per arm and size."
     ) + table_html(cells, numeric=[f"n{n}" for n in sizes])
     if len(st.failed):
-        body += "<h3>Failed runs</h3>" + table_html(
+        body += "<h3>Failed runs</h3>" + collapsed(
             [
                 {
                     "run": r.key,
@@ -112,7 +125,9 @@ def _completion_section(data: StudyData) -> tuple[str, list[str]]:
                     "message": (r.message or "").strip()[-300:],
                 }
                 for r in st.failed.itertuples()
-            ]
+            ],
+            what="Failed runs",
+            summary=paragraph(f"{len(st.failed)} runs failed; each with its last message."),
         )
         warnings.append(
             f"{len(st.failed)} run(s) failed: their cells rest on fewer seeds than planned."
@@ -127,73 +142,59 @@ def _completion_section(data: StudyData) -> tuple[str, list[str]]:
 
 
 def _figure(draw: Callable[[], Any], kind: str, caption: str) -> str:
+    """One figure, or pages of one (``draw`` returns a figure or ``(label, figure)`` pages)."""
     try:
-        return figure_html(figure_uri(draw()), caption)
+        drawn = draw()
+        pages = drawn if isinstance(drawn, list) else [("", drawn)]
+        return "".join(
+            figure_html(figure_uri(fig), f"{caption} ({label})." if label else f"{caption}.")
+            for label, fig in pages
+        )
     except InvalidInput as exc:
         return paragraph(f"No {kind} figure: {exc}")
 
 
 def _figures(rep: StudyReports) -> str:
-    """Every figure, drawn from the reports already computed."""
+    """Every figure, drawn from the reports already computed; figures with one panel per task in
+    pages of at most twelve panels (by task group)."""
     data, cmp = rep.data, rep.compare
-    figs = _figure(
-        lambda: curve_figure(rep.figure_curves, data),
-        "curves",
-        "Score against episodes per task; intervals over seeds.",
-    )
+    jobs: list[tuple[Callable[[], Any], str, str]] = [
+        (
+            lambda: figure_pages("curves", rep.figure_curves, data),
+            "curves",
+            "Score against episodes per task; intervals over seeds",
+        )
+    ]
     if rep.aggregate is not None:
         aggregate = rep.aggregate
-        figs += _figure(
-            lambda: curve_figure(aggregate, data),
-            "aggregate",
-            "Interquartile mean of normalised scores over tasks.",
-        )
-    if cmp is None:
-        return figs
-    shown = [
-        ("difference", f"Each arm minus {cmp.baseline}, paired by seed."),
-        ("summary", "Summary of arms by task."),
-    ]
-    if rep.normalised:
-        shown.append(("profile", "Performance profile at the largest size."))
-    if len(cmp.scaling):
-        shown.append(("scaling", "Aggregate score against the arms' attribute."))
-    for kind, caption in shown:
-        figs += _figure(lambda k=kind: compare_figure(k, cmp, data), kind, caption)  # type: ignore[misc]
-    return figs
-
-
-def _transfer_section(cmp: CompareReport) -> str:
-    body = table_html(transfer_rows(cmp.table))
-    if len(cmp.thresholds):
-        body += (
-            f"<h3>Episodes to reach {number(cmp.threshold)} of expert (normalised)</h3>"
-            + table_html(
-                [
-                    {
-                        "arm": r["arm"],
-                        "task": r["task"],
-                        "episodes": flagged(threshold_cell(r), r["n_seeds"]),
-                        "seeds": str(r["n_seeds"]),
-                    }
-                    for _, r in cmp.thresholds.iterrows()
-                ]
+        jobs.append(
+            (
+                lambda: curve_figure(aggregate, data),
+                "aggregate",
+                "Interquartile mean of normalised scores over tasks",
             )
         )
-    if len(cmp.areas):
-        body += "<h3>Area under the normalised curve (log size)</h3>" + table_html(
-            [
-                {
-                    "arm": r["arm"],
-                    "task": r["task"],
-                    "area": flagged(with_interval(r["auc"], r["low"], r["high"]), r["n_seeds"]),
-                    "sizes": r["sizes"],
-                    "seeds": str(r["n_seeds"]),
-                }
-                for _, r in cmp.areas.iterrows()
-            ]
+    if cmp is not None:
+        jobs.append(
+            (
+                lambda: figure_pages("difference", cmp, data),
+                "difference",
+                f"Each arm minus {cmp.baseline}, paired by seed",
+            )
         )
-    return body
+        shown = [("summary", "Summary of arms by task")]
+        if rep.normalised:
+            shown.append(("profile", "Performance profile at the largest size"))
+        if len(cmp.scaling):
+            shown.append(("scaling", "Aggregate score against the arms' attribute"))
+        for kind, caption in shown:
+            jobs.append((lambda k=kind: compare_figure(k, cmp, data), kind, caption))  # type: ignore[misc]
+    figs = ""
+    advance("report figures", 0, len(jobs))
+    for done, (draw, kind, caption) in enumerate(jobs, start=1):
+        figs += _figure(draw, kind, caption)
+        advance("report figures", done, len(jobs))
+    return figs
 
 
 def build_report(rep: StudyReports, *, title: str | None = None) -> str:
@@ -211,9 +212,9 @@ def build_report(rep: StudyReports, *, title: str | None = None) -> str:
     if rep.compare_error is not None:
         warnings.append(f"no comparison with the baseline: {rep.compare_error}")
     sections.append(("Figures", _figures(rep)))
-    sections.append(("Curves", _curve_table(curves)))
+    sections.append(("Curves", curve_section(rep)))
     if cmp is not None:
-        sections.append((f"Transfer against {cmp.baseline}", _transfer_section(cmp)))
+        sections.append((f"Transfer against {cmp.baseline}", transfer_section(cmp)))
         warnings.extend(cmp.notes)
     sections.append(("Methods", _methods(curves, settings, cmp)))
     warnings = curves.notes + warnings
@@ -248,25 +249,6 @@ def _findings_section(rep: StudyReports) -> str:
     if items:
         body += bullet_list(items, cls="findings")
     return body
-
-
-def _curve_table(curves) -> str:  # type: ignore[no-untyped-def]
-    rows = [
-        {
-            "arm": r["arm"],
-            "task": r["task"],
-            "size": str(r["size"]),
-            "estimate [interval]": with_interval(r["estimate"], r["low"], r["high"]),
-            "seeds": str(r["n_seeds"]),
-            "note": r["note"] or "",
-        }
-        for _, r in curves.table.iterrows()
-    ]
-    label = "normalised " if curves.value == "normalised" else ""
-    return paragraph(
-        f"{curves.settings.estimator} of {label}{curves.scores.metric} over seeds, "
-        f"{curves.settings.confidence:.0%} {curves.table['method'].iloc[0]} intervals."
-    ) + table_html(rows, numeric=("size", "seeds"))
 
 
 def _methods(curves, settings: CurveSettings, cmp) -> str:  # type: ignore[no-untyped-def]

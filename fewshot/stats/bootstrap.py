@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import warnings
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import stats
@@ -73,7 +73,9 @@ class CellIntervals:
     estimate: np.ndarray
     low: np.ndarray
     high: np.ndarray
-    se: np.ndarray
+    # the standard error, or how to compute it when first read (an interval that needs no
+    # resamples, such as the t interval of the mean, leaves it to the callers that read it)
+    _se: np.ndarray | Callable[[], np.ndarray] = field(repr=False)
     n: int
     replicates: int
     method: str
@@ -81,6 +83,14 @@ class CellIntervals:
     resamples: int
     degenerate: np.ndarray
     distribution: np.ndarray | None = None
+
+    @property
+    def se(self) -> np.ndarray:
+        """The bootstrap standard error per cell (computed on first reading when deferred)."""
+        if callable(self._se):
+            object.__setattr__(self, "_se", self._se())
+        assert isinstance(self._se, np.ndarray)
+        return self._se
 
 
 def _iv(
@@ -159,10 +169,19 @@ def bootstrap_cells(
         return CellIntervals(
             estimate, nan, nan.copy(), nan.copy(), n, r, method, confidence, resamples, degenerate
         )
-    if not want_se and method == "t" and is_mean and r == 1 and not keep_distribution:
-        rng.integers(0, n, size=(resamples, n))  # the draws _resample_seeds would take
+    se: np.ndarray | Callable[[], np.ndarray]
+    if method == "t" and is_mean and r == 1 and not keep_distribution:
+        # the interval is closed-form: the seed indices are drawn now (so the cells after these
+        # get the same draws either way), the resamples only if the standard error is read
+        idx = rng.integers(0, n, size=(resamples, n))  # the draws _resample_seeds would take
         dist = _Dist(np.full((cells, 0), np.nan), np.ones(0, dtype=np.int64))
-        se = nan.copy()
+        if want_se:
+            x = data[:, :, 0]
+            se = lambda: _resample_seeds(  # noqa: E731
+                x, estimator, resamples, rng, want_sd=False, is_mean=True, idx=idx
+            ).std()
+        else:
+            se = nan.copy()
     else:
         dist = _resample(
             data, estimator, resamples, rng, want_sd=method == "bootstrap-t", is_mean=is_mean
@@ -227,7 +246,7 @@ def _unscaled(res: CellIntervals, scale: np.ndarray) -> CellIntervals:
         res.estimate * back,
         res.low * back,
         res.high * back,
-        res.se * back,
+        lambda: res.se * back,
         res.n,
         res.replicates,
         res.method,
@@ -330,11 +349,14 @@ def _resample_seeds(
     *,
     want_sd: bool,
     is_mean: bool,
+    idx: np.ndarray | None = None,
 ) -> _Dist:
-    """One level: draw seed indices (the same integers scipy.stats.bootstrap draws), then
-    evaluate the estimator once per distinct multiset of seeds."""
+    """One level: draw seed indices (the same integers scipy.stats.bootstrap draws; ``idx``
+    when they were drawn already), then evaluate the estimator once per distinct multiset of
+    seeds."""
     cells, n = x.shape
-    idx = rng.integers(0, n, size=(resamples, n))
+    if idx is None:
+        idx = rng.integers(0, n, size=(resamples, n))
     counts = np.zeros((resamples, n), dtype=np.int64)
     for j in range(n):  # n is a handful of seeds: a loop over columns beats a scatter
         counts += idx[:, j, None] == np.arange(n)
