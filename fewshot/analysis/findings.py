@@ -16,6 +16,7 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
+from fewshot.analysis.qualify import UNFINISHED_COLUMN, UNFINISHED_MARK
 from fewshot.tables import bound, number, threshold_cell
 
 if TYPE_CHECKING:
@@ -135,6 +136,11 @@ def _iv(est: float, low: float, high: float, *, signed: bool = False) -> str:
     return f"{e} [{number(low)}, {number(high)}]"
 
 
+def _late(row: pd.Series) -> str:
+    """A mark on a sentence whose row includes results of runs not yet done."""
+    return f" {UNFINISHED_MARK}" if row.get(UNFINISHED_COLUMN, 0) > 0 else ""
+
+
 def _behind(n_seeds: int, tasks: tuple[str, ...]) -> str:
     t = f"{len(tasks)} task{'s' if len(tasks) != 1 else ''}"
     return f"({n_seeds} seeds, {t})"
@@ -169,6 +175,12 @@ def findings(
     ]
     if over:
         pre.append(f"'over tasks' = the mean over {len(over)} tasks: {', '.join(over)}.")
+    late = [t for t in (table, None if aggregate is None else aggregate.table) if t is not None]
+    if any((t.get(UNFINISHED_COLUMN, pd.Series(dtype=int)) > 0).any() for t in late):
+        pre.append(
+            f"{UNFINISHED_MARK} = the sentence's numbers include results of runs not yet done "
+            "(running, claimed, failed or planned); they may change when those runs finish."
+        )
     out = Findings(compare.baseline, compare.threshold, conf, [], pre)
     for arm in arms:
         for scope in scopes:
@@ -198,7 +210,7 @@ def _zero_shot(arm, scope, where, tasks, aggregate) -> list[Finding]:  # type: i
             arm,
             "zero-shot",
             f"Zero-shot (no episodes), {where}: interquartile mean of the normalised score "
-            f"{_iv(r['estimate'], r['low'], r['high'])}{same} {_behind(n, tasks)}.",
+            f"{_iv(r['estimate'], r['low'], r['high'])}{same} {_behind(n, tasks)}.{_late(r)}",
             "aggregate.table",
             "all",
             0,
@@ -225,7 +237,7 @@ def _ahead(arm, scope, where, tasks, table, compare, unit) -> list[Finding]:  # 
         return Finding(
             arm,
             kind,
-            text,
+            text + _late(r),
             "compare.table",
             scope,
             int(r["size"]),
@@ -381,6 +393,7 @@ def _best(aggregate: CurveReport, arms: list[str], confidence: float) -> list[Fi
         else:
             kind = "best"
             text = f"{head}, its interval above every other arm's {behind}."
+        text += _late(r)
         found.append(
             Finding(
                 "across arms",
@@ -409,15 +422,22 @@ def summarise_study(
     select: str = "final",
     baseline: str | None = None,
     threshold: float = DEFAULT_THRESHOLD,
+    include_running: bool = False,
 ) -> Findings:
     """The findings summary of a study: ``source`` is a ledger or a study read by
     :func:`read_study` with its status; ``settings`` a :class:`CurveSettings` (default ones when
-    None). Computes each report once (:func:`analyse_study`) and reads the summary off them."""
+    None); ``include_running``: results of runs not yet done count too (marked). Computes each
+    report once (:func:`analyse_study`) and reads the summary off them."""
     from fewshot.analysis.study_report import analyse_study
     from fewshot.stats import CurveSettings
 
     rep = analyse_study(
-        source, settings or CurveSettings(), select=select, baseline=baseline, threshold=threshold
+        source,
+        settings or CurveSettings(),
+        select=select,
+        baseline=baseline,
+        threshold=threshold,
+        include_running=include_running,
     )
     if rep.compare is None:
         from fewshot.errors import InvalidInput
