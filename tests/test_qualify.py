@@ -100,6 +100,10 @@ def test_the_terminal_json_and_csv_say_what_was_clipped(accuracy, tmp_path: Path
     assert "clipped" in csv.stdout.splitlines()[0].split(",")
     table = cli("curves", "--ledger", url, "--resamples", "200")
     assert table.exit_code == 0 and "were clipped to what it allows" in table.output
+    # a t interval draws no resamples, and the table's legend says so (a bootstrap one does)
+    assert "no resampling" in table.output and "resamples, seed" not in table.output
+    boot = cli("curves", "--ledger", url, "--ci", "percentile", "--resamples", "200")
+    assert "200 resamples, seed 0" in boot.output
 
 
 def test_differences_are_clipped_to_the_difference_range_not_the_metric_range(accuracy):

@@ -13,7 +13,7 @@ from fewshot.analysis import StudyReports, analyse_study, read_study
 from fewshot.analysis.qualify import CLIPPED_COLUMN
 from fewshot.report import DEFAULT_CAUTION, build_report, methods_sentences
 from fewshot.report.html import paragraph
-from fewshot.report.methods import level, seed_count
+from fewshot.report.methods import level, resampling, seed_count
 from fewshot.stats import CurveSettings
 from fewshot.stats.coverage import printed_sentence
 
@@ -154,6 +154,13 @@ def test_the_caution_is_neutral_by_default_and_the_study_can_replace_it(study):
     html = build_report(analyse_study(own, CurveSettings()))
     assert paragraph("Scored on one lab's data.") in html and DEFAULT_CAUTION not in html
     assert html.index("Scored on one lab") < html.index("Findings")  # the report opens with it
+
+
+def test_resampling_is_named_only_for_methods_that_resample():
+    assert resampling(["t"], 500, 1) == "no resampling"
+    assert resampling(["hall", "t"], 500, 1) == "no resampling"
+    assert resampling(["t (bootstrap SE)"], 500, 1) == "500 resamples, seed 1"
+    assert resampling(["t", "percentile"], 500, 1) == "500 resamples, seed 1"
 
 
 def test_level_and_seed_count_read_as_written():

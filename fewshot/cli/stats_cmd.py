@@ -91,6 +91,7 @@ AGGREGATE_NAMES = {
 
 def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     """The curves as a rich table: rows arm × task (or aggregate), columns sizes."""
+    from fewshot.report.methods import resampling
     from fewshot.stats.curves import FEW_SEEDS
 
     t = report.table
@@ -146,11 +147,9 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     )
     out.print(
         styled(
-            "score rule: {}; {} resamples, seed {}; {}; "
-            "[dim]\\[low, high] = interval; ! = fewer than {} seeds[/]",
+            "score rule: {}; {}; {}; [dim]\\[low, high] = interval; ! = fewer than {} seeds[/]",
             report.scores.rule,
-            s.resamples,
-            s.seed,
+            resampling(t["method"], s.resamples, s.seed),
             seeds,
             FEW_SEEDS,
         )
@@ -206,6 +205,7 @@ def curves_cmd(
     elif fmt == "csv":
         typer.echo(curves_table(report).to_csv(index=False), nl=False)
     elif fmt == "latex":
+        from fewshot.report.methods import resampling
         from fewshot.tables import latex_table, with_interval
 
         name = "task" if report.kind == "per-task" else "aggregate"
@@ -224,7 +224,8 @@ def curves_cmd(
             latex_table(
                 rows,
                 f"{curve_title(report)} of {report.scores.metric} with {s.confidence:.0%} "
-                f"{report.table['method'].iloc[0]} intervals ({s.resamples} resamples).",
+                f"{report.table['method'].iloc[0]} intervals "
+                f"({resampling(report.table['method'], s.resamples, s.seed)}).",
             ),
             nl=False,
         )

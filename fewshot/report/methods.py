@@ -8,6 +8,7 @@ method no table used (a t interval uses no resamples, so its sentence names none
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from typing import Any
 
 import pandas as pd
@@ -16,7 +17,7 @@ from fewshot.analysis import StudyReports
 from fewshot.analysis.qualify import CLIPPED_COLUMN, UNFINISHED_COLUMN, clipped_count
 from fewshot.stats.coverage import coverage_sentence, printed_sentence
 
-__all__ = ["methods_sentences", "level", "seed_count"]
+__all__ = ["methods_sentences", "level", "seed_count", "resampling"]
 
 MEASURED_LEVEL = 0.95  # the nominal level of every coverage the project measured
 
@@ -35,6 +36,16 @@ ACROSS_METHODS: dict[str, tuple[str, bool]] = {
     "stratified t": ("stratified t intervals from the seeds' paired differences", False),
     "stratified expanded percentile": ("stratified expanded percentile bootstrap intervals", True),
 }
+
+
+def resampling(methods: Iterable[str], resamples: int, seed: int) -> str:
+    """``10000 resamples, seed 0`` when any of these interval methods (tables' ``method``
+    labels) drew bootstrap resamples, else ``no resampling``."""
+    from fewshot.stats.aggregate import METHOD as AGGREGATE_METHOD
+
+    known = {**CELL_METHODS, **ACROSS_METHODS, AGGREGATE_METHOD: ("", True)}
+    drew = any(known.get(m, ("", True))[1] for m in methods)  # an unknown label: assume it did
+    return f"{resamples} resamples, seed {seed}" if drew else "no resampling"
 
 
 def level(confidence: float) -> str:
