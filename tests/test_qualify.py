@@ -118,7 +118,7 @@ def test_differences_are_clipped_to_the_difference_range_not_the_metric_range(ac
     assert _t([WIDE[s] - SCRATCH[1][s] for s in (0, 1, 2)])[1] > 1  # clipped at 1 ...
     assert t.loc[("wide", "reach", 10), "low"] < 0  # ... and a negative end kept: not [0, 1]
     assert bool(t.loc[("wide", "reach", 1), CLIPPED_COLUMN])
-    assert any("intervals of differences and areas ran past" in n for n in rep.notes)
+    assert any("intervals of differences, areas and IQMs ran past" in n for n in rep.notes)
 
 
 def test_an_open_side_clips_nothing_and_no_bounds_add_no_column(accuracy):
@@ -213,3 +213,31 @@ def test_qualifying_twice_changes_nothing(accuracy):
     again = qualify_curves(rep, data)
     assert again is rep and len(again.notes) == len(rep.notes)
     pd.testing.assert_frame_equal(again.table, rep.table)
+
+
+def test_the_scaling_view_and_thresholds_are_qualified_too(tmp_path: Path, study_file):
+    path = study_file(
+        metric="acc",
+        bounds=[0, 1],
+        task={"floor": 0.0, "expert": 1.0},
+        arms={"scratch": {"attributes": {"params": 1e3}}},
+    )
+    led = Ledger.open(str(tmp_path / "scaled.sqlite"), create=True)
+    try:
+        led.plan(load_study(path))
+        led.record_lines(
+            [
+                ResultLine(run=r.key, metric="acc", value=_acc(r.arm, r.size, r.seed))
+                for r in led.runs().itertuples()
+            ]
+        )
+        data = _with_status(read_study(led), {"wide/reach/n10/s1"})
+    finally:
+        led.close()
+    rep = compare_report(data, SETTINGS)
+    sc = rep.scaling
+    assert len(sc) and CLIPPED_COLUMN in sc
+    assert sc["high"].max() <= 1.0 and sc["low"].min() >= 0.0  # an IQM of accuracies
+    assert sc[CLIPPED_COLUMN].any()  # three seeds near 1: the t interval passed 1
+    th = rep.thresholds
+    assert list(th[UNFINISHED_COLUMN] > 0) == list(th["arm"] == "wide")  # the arm's whole curve

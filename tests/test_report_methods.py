@@ -114,7 +114,9 @@ def _outside(rep: StudyReports, lo: float, hi: float) -> int:
     assert cmp is not None
     width = n_hi - n_lo  # normalised rows: a difference lies in [-(hi - lo), hi - lo] / 100
     count += int(((cmp.table["low"] < -width) | (cmp.table["high"] > width)).sum())
-    count += int(((cmp.areas["low"] < n_lo) | (cmp.areas["high"] > n_hi)).sum())
+    for t in (cmp.areas, cmp.scaling):
+        if len(t):
+            count += int(((t["low"] < n_lo) | (t["high"] > n_hi)).sum())
     return count
 
 
@@ -128,10 +130,14 @@ def test_clipping_to_bounds_is_said_with_its_count(study):
     assert expected > 0
     assert "lies in [0, 100]" in said["bounds"]
     assert f"; {expected} of " in said["bounds"] and said["bounds"].endswith("were clipped.")
-    n = sum(
-        int(t[CLIPPED_COLUMN].sum())
-        for t in (rep.curves.table, rep.aggregate.table, rep.compare.table, rep.compare.areas)  # type: ignore[union-attr]
-    ) + int(rep.normalised_curves.table[CLIPPED_COLUMN].sum())  # type: ignore[union-attr]
+    n = (
+        sum(
+            int(t[CLIPPED_COLUMN].sum())
+            for t in (rep.curves.table, rep.aggregate.table, rep.compare.table, rep.compare.areas)  # type: ignore[union-attr]
+        )
+        + (int(rep.compare.scaling[CLIPPED_COLUMN].sum()) if len(rep.compare.scaling) else 0)
+        + int(rep.normalised_curves.table[CLIPPED_COLUMN].sum())
+    )  # type: ignore[union-attr]
     assert n == expected
     assert "bounds" not in methods_sentences(plain)  # no bounds declared: nothing said
 

@@ -18,16 +18,18 @@ Both are applied once, here, to report objects already computed (the statistics 
     ``[low, high]`` (an arm can be 0.3 behind on an accuracy): the range clipped to is that
     symmetric one, scaled by ``1 / |expert - floor|`` on normalised rows, and for a mean over
     tasks by the largest of those (a mean of differences lies within the widest task's range);
-  * an area under a normalised curve (its mean height) lies in the task's normalised range.
+  * an area under a normalised curve (its mean height) lies in the task's normalised range, and
+    the scaling view's across-task IQM in the widest of them.
 
   P(improvement), fractions of tasks and effective data have ranges of their own and are left
   alone. A side given as infinite clips nothing on that side. Each clipped table gets a
   ``clipped`` column (True where an end was cut) and the report a note saying how many were.
 
 - **Unfinished runs.** With ``include_running``, :func:`study_data` reads results of runs that
-  are not done (running, claimed, failed or planned) too; every value that includes one gets an
-  ``unfinished_runs`` count (the runs behind it that are not done), marked ``*`` in text tables,
-  and the report a note saying what the mark means.
+  are not done (running, claimed, failed or planned) too; when the study holds any, every table
+  gets an ``unfinished_runs`` column (the runs behind each value that are not done; areas and
+  episodes to the threshold count the arm's runs at every size), values with one are marked ``*``
+  in text tables, and the report has a note saying what the mark means.
 """
 
 from __future__ import annotations
@@ -79,13 +81,14 @@ def study_data(
 
 
 def _unfinished(data: StudyData, scores: pd.DataFrame) -> pd.DataFrame | None:
-    """The score rows that come from runs not done (None: the study was read without status)."""
+    """The score rows that come from runs not done; None when the study holds no result of a
+    run that is not done (read without include_running, or every run done): nothing to mark."""
     res = data.results
     if "run_status" not in res:
         return None
     keys = res.loc[res["run_status"] != "done", RUN_IDS].drop_duplicates()
     if keys.empty:
-        return scores.iloc[0:0]
+        return None
     return scores.merge(keys, on=RUN_IDS, how="inner")
 
 
@@ -221,6 +224,7 @@ def qualify_compare(report: CompareReport, data: StudyData) -> CompareReport:
     """``report``'s differences and areas clipped to what the study's bounds allow, and its
     rows marked where unfinished runs enter them."""
     t, areas, notes = report.table, report.areas, list(report.notes)
+    thresholds, scaling = report.thresholds, report.scaling
     if CLIPPED_COLUMN in t or UNFINISHED_COLUMN in t:
         return report
     bounds = data.study.get("bounds")
@@ -241,8 +245,14 @@ def qualify_compare(report: CompareReport, data: StudyData) -> CompareReport:
             r = areas[["task"]].merge(ranges.reset_index(), on="task", how="left")
             areas = _clip(areas, r["n_low"].to_numpy(float), r["n_high"].to_numpy(float))
             total, n = total + len(areas), n + clipped_count(areas)
+        if len(scaling) and len(ranges):  # the across-task IQM of normalised scores
+            a, b = float(ranges["n_low"].min()), float(ranges["n_high"].max())
+            scaling = _clip(scaling, np.full(len(scaling), a), np.full(len(scaling), b))
+            total, n = total + len(scaling), n + clipped_count(scaling)
         if n:
-            notes.append(_clip_note(data.study, n, total, "intervals of differences and areas"))
+            notes.append(
+                _clip_note(data.study, n, total, "intervals of differences, areas and IQMs")
+            )
     late = _unfinished(data, report.scores.scores)
     if late is not None:
         base = report.baseline
@@ -261,9 +271,15 @@ def qualify_compare(report: CompareReport, data: StudyData) -> CompareReport:
         t = t.assign(**{UNFINISHED_COLUMN: cell})
         if len(areas):
             areas = areas.assign(**{UNFINISHED_COLUMN: _count(areas, late, ["arm", "task"])})
+        if len(thresholds):  # episodes to the threshold: read off the arm's whole curve
+            thresholds = thresholds.assign(
+                **{UNFINISHED_COLUMN: _count(thresholds, late, ["arm", "task"])}
+            )
         if n := int((t[UNFINISHED_COLUMN] > 0).sum()):
             notes.append(_mark_note(n))
-    return dataclasses.replace(report, table=t, areas=areas, notes=notes)
+    return dataclasses.replace(
+        report, table=t, areas=areas, thresholds=thresholds, scaling=scaling, notes=notes
+    )
 
 
 def qualify_study(reports: StudyReports) -> StudyReports:

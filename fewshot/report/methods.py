@@ -185,7 +185,7 @@ def _comparison(rep: StudyReports, cmp: Any) -> dict[str, str]:
 def _tables(rep: StudyReports) -> list[pd.DataFrame]:
     tables = [r.table for r in (rep.curves, rep.normalised_curves, rep.aggregate) if r is not None]
     if rep.compare is not None:
-        tables += [rep.compare.table, rep.compare.areas]
+        tables += [rep.compare.table, rep.compare.areas, rep.compare.scaling]
     return tables
 
 
@@ -201,8 +201,8 @@ def _qualified(rep: StudyReports) -> dict[str, str]:
         lo, hi = bounds
         out["bounds"] = (
             f"The study declares that {study['metric']} lies in [{lo:g}, {hi:g}]. Intervals were "
-            f"clipped to what that allows: cells to [{lo:g}, {hi:g}], normalised cells, aggregates "
-            "and areas to that range in normalised units (the widest over the tasks pooled), and "
+            f"clipped to what that allows: cells to [{lo:g}, {hi:g}], normalised cells, aggregates, "
+            "areas and the scaling view's IQMs to that range in normalised units (the widest over the tasks pooled), and "
             f"differences to [{lo - hi:g}, {hi - lo:g}] (in normalised units per task where "
             f"normalised); {n} of {total} intervals were clipped."
         )
