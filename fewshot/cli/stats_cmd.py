@@ -25,7 +25,7 @@ from fewshot.cli.common import (
 from fewshot.cli.fit import fits, make_table, split_interval
 from fewshot.cli.flags import as_flags
 from fewshot.cli.options import ESTIMATOR_NAMES as ESTIMATOR_NAMES  # re-exported
-from fewshot.cli.options import StatsOptions, statistics_options
+from fewshot.cli.options import BaselineOpt, StatsOptions, ThresholdOpt, statistics_options
 from fewshot.errors import InvalidInput
 
 if TYPE_CHECKING:
@@ -289,16 +289,8 @@ def report(
         "report.html"
     ),
     title: Annotated[str | None, typer.Option("--title", help="A title of your own.")] = None,
-    baseline: Annotated[
-        str | None, typer.Option("--baseline", help="Baseline arm (default: the study's).")
-    ] = None,
-    threshold: Annotated[
-        float,
-        typer.Option(
-            "--threshold",
-            help="Level for episodes-to-threshold, as a fraction of the expert (default 0.8).",
-        ),
-    ] = 0.8,
+    baseline: BaselineOpt = None,
+    threshold: ThresholdOpt = 0.8,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
     stats: StatsOptions,
