@@ -241,3 +241,35 @@ def test_the_scaling_view_and_thresholds_are_qualified_too(tmp_path: Path, study
     assert sc[CLIPPED_COLUMN].any()  # three seeds near 1: the t interval passed 1
     th = rep.thresholds
     assert list(th[UNFINISHED_COLUMN] > 0) == list(th["arm"] == "wide")  # the arm's whole curve
+
+
+def test_a_lower_is_better_metric_is_clipped_as_its_mirror(accuracy, tmp_path: Path, study_file):
+    """An error rate (1 - accuracy, lower is better, floor 1, expert 0) gives the accuracy's
+    normalised cells, clipped alike: the mirror property of tests/test_orientation.py."""
+    (tmp_path / "err").mkdir()
+    path = study_file(
+        tmp_path / "err",
+        metric="err",
+        higher_is_better=False,
+        bounds=[0, 1],
+        task={"floor": 1.0, "expert": 0.0},
+    )
+    led = Ledger.open(str(tmp_path / "err.sqlite"), create=True)
+    try:
+        led.plan(load_study(path))
+        led.record_lines(
+            [
+                ResultLine(run=r.key, metric="err", value=1 - _acc(r.arm, r.size, r.seed))
+                for r in led.runs().itertuples()
+            ]
+        )
+        err = curve_report(led, SETTINGS, normalised=True)
+        raw = curve_report(led, SETTINGS)
+    finally:
+        led.close()
+    acc = curve_report(accuracy, SETTINGS, normalised=True)
+    cols = ["arm", "size", "estimate", "low", "high", CLIPPED_COLUMN]
+    pd.testing.assert_frame_equal(err.table[cols], acc.table[cols], atol=1e-12)
+    plain = curve_report(accuracy, SETTINGS)  # raw error = 1 - raw accuracy, ends swapped
+    assert np.allclose(raw.table["low"], 1 - plain.table["high"], atol=1e-12)
+    assert np.allclose(raw.table["high"], 1 - plain.table["low"], atol=1e-12)

@@ -140,6 +140,9 @@ def methods_sentences(rep: StudyReports) -> dict[str, str]:
         )
     if cmp is not None:
         out.update(_comparison(rep, cmp))
+    if cmp is not None or "aggregates" in out:  # the kinds the harness measured, as quoted
+        shown = cmp.table if cmp is not None and len(cmp.table) else t
+        out["printed coverage"] = printed_sentence(int(shown["n_seeds"].min()))
     out.update(_qualified(rep))
     return out
 
@@ -177,8 +180,6 @@ def _comparison(rep: StudyReports, cmp: Any) -> dict[str, str]:
         "areas (none of these resample). Words such as 'hurts', 'helps', '>=', 'already there' and "
         "'not reached' are printed only where the interval supports them."
     )
-    n_min = int(t["n_seeds"].min()) if len(t) else int(rep.curves.table["n_seeds"].min())
-    out["printed coverage"] = printed_sentence(n_min)
     return out
 
 
