@@ -115,7 +115,8 @@ def transfer_rows(table: pd.DataFrame) -> list[dict[str, str]]:
                 "task": str(r["task"]),
                 "size": str(r["size"]),
                 **({"unit": str(r["unit"])} if mixed else {}),
-                "difference": flagged(with_interval(r["difference"], r["low"], r["high"]), n),
+                "difference": flagged(with_interval(r["difference"], r["low"], r["high"]), n)
+                + (" *" if r.get("unfinished_runs", 0) > 0 else ""),  # includes runs not done
                 "P(improvement)": flagged(
                     with_interval(r.get("probability"), r.get("p_low"), r.get("p_high")),
                     r.get("p_seeds", n),

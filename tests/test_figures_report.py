@@ -156,7 +156,7 @@ def test_report_is_self_contained_and_escaped(ledger, tmp_path: Path):
     assert MARKUP not in html_text and "&lt;script&gt;" in html_text  # the checkpoint, escaped
     assert "Dock &lt;i&gt;study&lt;/i&gt;" in html_text
     for phrase in (
-        "safe to run on real hardware",
+        "or is safe, where it is deployed",  # the default caution (the study gives none)
         "Methods",
         "seeds stand behind each interval",
         "Warnings",

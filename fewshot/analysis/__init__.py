@@ -31,6 +31,12 @@ from fewshot.analysis.findings import (
     study_findings,
     summarise_study,
 )
+from fewshot.analysis.qualify import (
+    qualify_compare,
+    qualify_curves,
+    qualify_study,
+    study_data,
+)
 from fewshot.analysis.seeds import SeedsReport, seeds_needed_report, seeds_report
 from fewshot.analysis.shapes import (
     compare_json,
@@ -65,6 +71,10 @@ __all__ = [
     "compare_scores",
     "curve_figure",
     "curve_report",
+    "qualify_compare",
+    "qualify_curves",
+    "qualify_study",
+    "study_data",
     "curve_scores",
     "curves_json",
     "curves_table",

@@ -11,7 +11,8 @@ from typing import TYPE_CHECKING
 
 import pandas as pd
 
-from fewshot.analysis.data import StudyData, StudyScores, as_study_data, study_scores
+from fewshot.analysis.data import StudyData, StudyScores, study_scores
+from fewshot.analysis.qualify import qualify_curves, study_data
 from fewshot.errors import InvalidInput
 from fewshot.stats import CurveSettings, aggregate_curves, curves, to_metric_units
 from fewshot.stats.curves import FEW_SEEDS
@@ -58,17 +59,21 @@ def curve_report(
     normalised: bool = False,
     across_tasks: bool = False,
     by_group: bool = False,
+    include_running: bool = False,
 ) -> CurveReport:
     """Curves of a study (per task, or aggregated across tasks or per task group).
 
-    ``source`` is a ledger (read once) or a study already read by :func:`read_study`.
+    ``source`` is a ledger (read once: results of done runs, or of every run with
+    ``include_running``) or a study already read by :func:`read_study`. Intervals are clipped to
+    the study's bounds and values that include unfinished runs are marked
+    (:func:`fewshot.analysis.qualify.qualify_curves`).
     """
     if across_tasks and by_group:
         raise InvalidInput(BOTH_AGGREGATES)
     settings.check()
-    data = as_study_data(source)
+    data = study_data(source, include_running=include_running)
     sc = study_scores(data, metric=metric, select=select)
-    return curve_scores(
+    report = curve_scores(
         sc,
         settings,
         normalised=normalised,
@@ -76,6 +81,7 @@ def curve_report(
         by_group=by_group,
         arms=data.arm_order,
     )
+    return qualify_curves(report, data)
 
 
 def curve_scores(

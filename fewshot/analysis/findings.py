@@ -10,12 +10,12 @@ difference", never "helps" or "hurts".
 from __future__ import annotations
 
 import math
-import textwrap
-from dataclasses import asdict, dataclass, field
 from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
+from fewshot.analysis.finding import Finding, Findings
+from fewshot.analysis.qualify import UNFINISHED_COLUMN, UNFINISHED_MARK
 from fewshot.tables import bound, number, threshold_cell
 
 if TYPE_CHECKING:
@@ -35,97 +35,6 @@ __all__ = [
 AGGREGATE = "iqm"  # the across-task aggregate the summary quotes (robust to one odd task)
 
 
-@dataclass(frozen=True)
-class Finding:
-    """One sentence of the summary and where its number came from.
-
-    ``source`` names the report table (``compare.table``, ``compare.thresholds``,
-    ``aggregate.table``); ``arm``, ``task`` and ``size`` name its row; ``kind`` says what the
-    sentence claims (``zero-shot``, ``ahead``, ``behind``, ``no clear difference``,
-    ``multiplier``, ``threshold``, ``best``, ``no clear best``).
-    """
-
-    arm: str
-    kind: str
-    text: str
-    source: str
-    task: str
-    size: int | None
-    estimate: float | None
-    low: float | None
-    high: float | None
-    n_seeds: int
-    tasks: tuple[str, ...]
-
-
-@dataclass(frozen=True)
-class Findings:
-    """The findings summary of a comparison: its sentences in the order they are read."""
-
-    baseline: str
-    threshold: float
-    confidence: float
-    statements: list[Finding] = field(default_factory=list)
-    preamble: list[str] = field(default_factory=list)
-
-    def text(self, width: int | None = None) -> str:
-        """Plain text, one sentence a paragraph, wrapped at ``width`` columns when given."""
-        lines = list(self.preamble)
-        arm = None
-        for f in self.statements:
-            if f.arm != arm:
-                arm = f.arm
-                lines.append(
-                    f"{arm}:" if f.kind not in ("best", "no clear best") else "Across arms:"
-                )
-            lines.append(f"  - {f.text}")
-        if width:
-            lines = [
-                textwrap.fill(
-                    line,
-                    width,
-                    subsequent_indent="    " if line[:3] == "  -" else "",
-                    break_on_hyphens=False,
-                )
-                for line in lines
-            ]
-        return "\n".join(lines)
-
-    def markdown(self) -> str:
-        """Markdown for a paper's draft or a lab notebook."""
-        lines = ["## Findings", "", *self.preamble, ""]
-        arm = None
-        for f in self.statements:
-            if f.arm != arm:
-                arm = f.arm
-                head = "Across arms" if f.kind in ("best", "no clear best") else f"`{arm}`"
-                lines += ["", f"**{head}**", ""]
-            lines.append(f"- {f.text}")
-        return "\n".join(lines).strip() + "\n"
-
-    def to_json(self) -> dict[str, Any]:
-        """The sentences with their numbers, rows and seeds."""
-        return {
-            "baseline": self.baseline,
-            "threshold": self.threshold,
-            "confidence": self.confidence,
-            "preamble": self.preamble,
-            "findings": [
-                {k: (list(v) if isinstance(v, tuple) else _num(v)) for k, v in asdict(f).items()}
-                for f in self.statements
-            ],
-        }
-
-
-def _num(v: Any) -> Any:
-    if isinstance(v, float):
-        if math.isnan(v):
-            return None
-        if math.isinf(v):
-            return "inf" if v > 0 else "-inf"
-    return v
-
-
 def _iv(est: float, low: float, high: float, *, signed: bool = False) -> str:
     e = number(est)
     if signed and est > 0:
@@ -133,6 +42,11 @@ def _iv(est: float, low: float, high: float, *, signed: bool = False) -> str:
     if pd.isna(low) or pd.isna(high):
         return f"{e} (no interval)"
     return f"{e} [{number(low)}, {number(high)}]"
+
+
+def _late(row: pd.Series) -> str:
+    """A mark on a sentence whose row includes results of runs not yet done."""
+    return f" {UNFINISHED_MARK}" if row.get(UNFINISHED_COLUMN, 0) > 0 else ""
 
 
 def _behind(n_seeds: int, tasks: tuple[str, ...]) -> str:
@@ -169,6 +83,12 @@ def findings(
     ]
     if over:
         pre.append(f"'over tasks' = the mean over {len(over)} tasks: {', '.join(over)}.")
+    late = [t for t in (table, None if aggregate is None else aggregate.table) if t is not None]
+    if any((t.get(UNFINISHED_COLUMN, pd.Series(dtype=int)) > 0).any() for t in late):
+        pre.append(
+            f"{UNFINISHED_MARK} = the sentence's numbers include results of runs not yet done "
+            "(running, claimed, failed or planned); they may change when those runs finish."
+        )
     out = Findings(compare.baseline, compare.threshold, conf, [], pre)
     for arm in arms:
         for scope in scopes:
@@ -198,7 +118,7 @@ def _zero_shot(arm, scope, where, tasks, aggregate) -> list[Finding]:  # type: i
             arm,
             "zero-shot",
             f"Zero-shot (no episodes), {where}: interquartile mean of the normalised score "
-            f"{_iv(r['estimate'], r['low'], r['high'])}{same} {_behind(n, tasks)}.",
+            f"{_iv(r['estimate'], r['low'], r['high'])}{same} {_behind(n, tasks)}.{_late(r)}",
             "aggregate.table",
             "all",
             0,
@@ -225,7 +145,7 @@ def _ahead(arm, scope, where, tasks, table, compare, unit) -> list[Finding]:  # 
         return Finding(
             arm,
             kind,
-            text,
+            text + _late(r),
             "compare.table",
             scope,
             int(r["size"]),
@@ -381,6 +301,7 @@ def _best(aggregate: CurveReport, arms: list[str], confidence: float) -> list[Fi
         else:
             kind = "best"
             text = f"{head}, its interval above every other arm's {behind}."
+        text += _late(r)
         found.append(
             Finding(
                 "across arms",
@@ -409,15 +330,22 @@ def summarise_study(
     select: str = "final",
     baseline: str | None = None,
     threshold: float = DEFAULT_THRESHOLD,
+    include_running: bool = False,
 ) -> Findings:
     """The findings summary of a study: ``source`` is a ledger or a study read by
     :func:`read_study` with its status; ``settings`` a :class:`CurveSettings` (default ones when
-    None). Computes each report once (:func:`analyse_study`) and reads the summary off them."""
+    None); ``include_running``: results of runs not yet done count too (marked). Computes each
+    report once (:func:`analyse_study`) and reads the summary off them."""
     from fewshot.analysis.study_report import analyse_study
     from fewshot.stats import CurveSettings
 
     rep = analyse_study(
-        source, settings or CurveSettings(), select=select, baseline=baseline, threshold=threshold
+        source,
+        settings or CurveSettings(),
+        select=select,
+        baseline=baseline,
+        threshold=threshold,
+        include_running=include_running,
     )
     if rep.compare is None:
         from fewshot.errors import InvalidInput

@@ -6,7 +6,8 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from fewshot.analysis.curves import CurveReport, caveats, curve_scores, in_study_order
-from fewshot.analysis.data import StudyData, StudyScores, read_study, study_scores
+from fewshot.analysis.data import StudyData, StudyScores, study_scores
+from fewshot.analysis.qualify import qualify_study, study_data
 from fewshot.analysis.transfer import CompareReport, compare_scores
 from fewshot.errors import InvalidInput
 from fewshot.stats import CurveSettings, aggregate_curves
@@ -68,11 +69,13 @@ def analyse_study(
     select: str = "final",
     baseline: str | None = None,
     threshold: float = 0.8,
+    include_running: bool = False,
 ) -> StudyReports:
     """Read the study once (``source``: a ledger, or a study read by :func:`read_study` with its
-    status) and compute its curves, aggregates and comparison once each."""
+    status) and compute its curves, aggregates and comparison once each (``include_running``:
+    results of runs not yet done count too, marked; see :mod:`fewshot.analysis.qualify`)."""
     settings.check()
-    data = source if isinstance(source, StudyData) else read_study(source, with_status=True)
+    data = study_data(source, include_running=include_running, with_status=True)
     if data.status is None:
         raise InvalidInput(
             "source must be read with its completion: read_study(ledger, with_status=True)."
@@ -103,7 +106,8 @@ def analyse_study(
     except InvalidInput as exc:
         error = str(exc)
     advance(stage, steps, steps)
-    return StudyReports(data, sc, settings, curves, normalised_curves, aggregate, cmp, error)
+    reports = StudyReports(data, sc, settings, curves, normalised_curves, aggregate, cmp, error)
+    return qualify_study(reports)
 
 
 def _iqm_over_tasks(sc: StudyScores, settings: CurveSettings, arms: list[str]) -> CurveReport:

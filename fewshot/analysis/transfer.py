@@ -12,6 +12,7 @@ import pandas as pd
 
 from fewshot.analysis.curves import in_study_order
 from fewshot.analysis.data import StudyData, StudyScores, as_study_data, study_scores
+from fewshot.analysis.qualify import qualify_compare
 from fewshot.errors import InvalidInput
 from fewshot.stats import CurveSettings, aggregate_curves, to_metric_units
 from fewshot.stats.curves import FEW_SEEDS
@@ -97,9 +98,10 @@ def compare_report(
     data = as_study_data(source)
     sc = study_scores(data, metric=metric, select=select)
     base = baseline or data.study["baseline"]
-    return compare_scores(
+    report = compare_scores(
         sc, settings, baseline=base, arms=arms, threshold=threshold, arm_table=data.arms
     )
+    return qualify_compare(report, data)  # clipped to the study's bounds, unfinished runs marked
 
 
 def compare_scores(

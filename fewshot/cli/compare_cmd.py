@@ -23,16 +23,12 @@ from fewshot.cli.common import (
 )
 from fewshot.cli.fit import fits, fitted_tables, make_table
 from fewshot.cli.flags import as_flags
-from fewshot.cli.stats_cmd import (
-    DEFAULT_CI,
-    CiOpt,
-    ConfidenceOpt,
-    Estimator,
-    EstimatorOpt,
-    MetricOpt,
-    ResamplesOpt,
-    SeedOpt,
+from fewshot.cli.options import (
+    BaselineOpt,
     SelectOpt,
+    StatsOptions,
+    ThresholdOpt,
+    statistics_options,
 )
 from fewshot.errors import InvalidInput
 
@@ -44,11 +40,6 @@ class CompareFormat(StrEnum):
     latex = "latex"
 
 
-BaselineOpt = Annotated[
-    str | None, typer.Option("--baseline", help="The arm to compare with (default: the study's).")
-]
-
-
 def _arms(text: str | None) -> list[str] | None:
     if text is None:
         return None
@@ -58,44 +49,39 @@ def _arms(text: str | None) -> list[str] | None:
     return arms
 
 
+@statistics_options()
 def compare(
     *,
     baseline: BaselineOpt = None,
     arms: Annotated[
         str | None, typer.Option("--arms", help="Arms to compare, comma-separated (default: all).")
     ] = None,
-    threshold: Annotated[
-        float,
-        typer.Option(
-            "--threshold",
-            help="Level for episodes-to-threshold, as a fraction of the expert (default 0.8).",
-        ),
-    ] = 0.8,
-    metric: MetricOpt = None,
-    select: SelectOpt = "final",
-    estimator: EstimatorOpt = Estimator.mean,
-    ci: CiOpt = DEFAULT_CI,
-    confidence: ConfidenceOpt = 0.95,
-    resamples: ResamplesOpt = 10_000,
-    seed: SeedOpt = 0,
+    threshold: ThresholdOpt = 0.8,
     fmt: Annotated[
         CompareFormat, typer.Option("--format", help="table, csv, json or latex.")
     ] = CompareFormat.table,
     pager: PagerOpt = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
+    stats: StatsOptions,
 ) -> None:
     """Arms against a baseline: paired differences, P(improvement), effective data, episodes to a threshold."""
-    from fewshot.analysis import compare_json, compare_report, curve_scores, findings, read_study
+    from fewshot.analysis import (
+        compare_json,
+        compare_report,
+        curve_scores,
+        findings,
+        qualify_curves,
+        study_data,
+    )
     from fewshot.cli.stats_progress import statistics_progress
-    from fewshot.stats import CurveSettings
     from fewshot.tables import latex_table, transfer_rows
 
     with reporting(), as_flags():
-        settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
+        settings = stats.settings()
         led = open_ledger(ledger, study)
         try:
-            data = read_study(led)
+            data = study_data(led, include_running=stats.include_running)
             with statistics_progress():
                 rep = compare_report(
                     data,
@@ -103,8 +89,8 @@ def compare(
                     baseline=baseline,
                     arms=_arms(arms),
                     threshold=threshold,
-                    metric=metric,
-                    select=select,
+                    metric=stats.metric,
+                    select=stats.select,
                 )
         finally:
             led.close()
@@ -121,7 +107,9 @@ def compare(
     aggregate = None
     if rep.value == "normalised" and len(rep.over_tasks) > 1:
         with reporting(), as_flags(), statistics_progress():
-            aggregate = curve_scores(rep.scores, settings, across_tasks=True, arms=data.arm_order)
+            aggregate = qualify_curves(
+                curve_scores(rep.scores, settings, across_tasks=True, arms=data.arm_order), data
+            )
     with paged(pager):
         print_findings(findings(rep, aggregate, arm_order=data.arm_order))
         print_transfer(rep)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from enum import StrEnum
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated, Any
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 from rich.text import Text
@@ -24,30 +24,14 @@ from fewshot.cli.common import (
 )
 from fewshot.cli.fit import fits, make_table, split_interval
 from fewshot.cli.flags import as_flags
+from fewshot.cli.options import ESTIMATOR_NAMES as ESTIMATOR_NAMES  # re-exported
+from fewshot.cli.options import BaselineOpt, StatsOptions, ThresholdOpt, statistics_options
 from fewshot.errors import InvalidInput
-from fewshot.schema import DEFAULT_INTERVAL_METHOD as DEFAULT_METHOD
-from fewshot.schema import INTERVAL_METHODS as METHODS
 
 if TYPE_CHECKING:
     import pandas as pd
 
-MetricOpt = Annotated[
-    str | None, typer.Option("--metric", help="Metric to score runs by (default: the study's).")
-]
-SelectOpt = Annotated[
-    str,
-    typer.Option(
-        "--select", help="Score rule: final, best:<val metric>, least:<val metric>, last:<k>."
-    ),
-]
-ESTIMATOR_NAMES = ("mean", "median", "iqm")  # fewshot.stats.ESTIMATORS (a test holds them equal)
 FIGURE_NAMES = ("curves", "aggregate", "difference", "summary", "profile", "scaling")
-
-
-class Estimator(StrEnum):
-    mean = "mean"
-    median = "median"
-    iqm = "iqm"
 
 
 class CurvesFormat(StrEnum):
@@ -57,20 +41,8 @@ class CurvesFormat(StrEnum):
     latex = "latex"
 
 
-# the interval methods and figure kinds by name (help lists them; a test holds them equal to the
-# library's own lists)
-IntervalMethod = StrEnum("IntervalMethod", [(m, m) for m in METHODS])  # type: ignore[misc]
+# the figure kinds by name (help lists them; a test holds them equal to the library's list)
 FigureKind = StrEnum("FigureKind", [(k, k) for k in FIGURE_NAMES])  # type: ignore[misc]
-DEFAULT_CI: Any = IntervalMethod(DEFAULT_METHOD)
-EstimatorOpt = Annotated[Estimator, typer.Option("--estimator", help="Estimator over seeds.")]
-CiOpt = Annotated[IntervalMethod, typer.Option("--ci", help="Interval method.")]
-ConfidenceOpt = Annotated[
-    float, typer.Option("--confidence", help="Confidence level of the intervals.")
-]
-ResamplesOpt = Annotated[int, typer.Option("--resamples", help="Bootstrap resamples.")]
-SeedOpt = Annotated[
-    int, typer.Option("--seed", help="Seed of the resampling (results are reproducible).")
-]
 
 
 def _fmt(x: float) -> str:
@@ -79,10 +51,17 @@ def _fmt(x: float) -> str:
     return number(x)
 
 
+def _late(row: pd.Series) -> str:
+    """`` *`` when the value includes results of runs not yet done (``--include-running``)."""
+    from fewshot.analysis.qualify import UNFINISHED_COLUMN, UNFINISHED_MARK
+
+    return f" {UNFINISHED_MARK}" if row.get(UNFINISHED_COLUMN, 0) > 0 else ""
+
+
 def _cell(row: pd.Series, show_n: bool) -> str:
     from fewshot.stats.curves import FEW_SEEDS
 
-    flag = " [red]![/]" if row["n_seeds"] < FEW_SEEDS else ""
+    flag = (" [red]![/]" if row["n_seeds"] < FEW_SEEDS else "") + _late(row)
     n = f" n{row['n_seeds']}" if show_n else ""
     if math.isnan(row["low"]):
         return f"{_fmt(row['estimate'])}[dim]{n}[/]{flag}"
@@ -112,6 +91,7 @@ AGGREGATE_NAMES = {
 
 def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     """The curves as a rich table: rows arm × task (or aggregate), columns sizes."""
+    from fewshot.report.methods import resampling
     from fewshot.stats.curves import FEW_SEEDS
 
     t = report.table
@@ -146,7 +126,7 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
         for _, r in t.iterrows():
             low = "" if math.isnan(r["low"]) else _fmt(r["low"])
             est, interval = split_interval(_fmt(r["estimate"]), low, _fmt(r["high"]))
-            flag = " !" if r["n_seeds"] < FEW_SEEDS else ""
+            flag = (" !" if r["n_seeds"] < FEW_SEEDS else "") + _late(r)
             long_rows.append(
                 [
                     *[str(r[k]) if r[k] is not None else "-" for k in firsts],
@@ -167,11 +147,9 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     )
     out.print(
         styled(
-            "score rule: {}; {} resamples, seed {}; {}; "
-            "[dim]\\[low, high] = interval; ! = fewer than {} seeds[/]",
+            "score rule: {}; {}; {}; [dim]\\[low, high] = interval; ! = fewer than {} seeds[/]",
             report.scores.rule,
-            s.resamples,
-            s.seed,
+            resampling(t["method"], s.resamples, s.seed),
             seeds,
             FEW_SEEDS,
         )
@@ -181,18 +159,12 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
             err.print(f"note: {note}")
 
 
+@statistics_options()
 def curves_cmd(
     *,
-    metric: MetricOpt = None,
-    select: SelectOpt = "final",
     normalised: Annotated[
         bool, typer.Option("--normalised", help="Scores as (score - floor) / (expert - floor).")
     ] = False,
-    estimator: EstimatorOpt = Estimator.mean,
-    ci: CiOpt = DEFAULT_CI,
-    confidence: ConfidenceOpt = 0.95,
-    resamples: ResamplesOpt = 10_000,
-    seed: SeedOpt = 0,
     across_tasks: Annotated[
         bool, typer.Option("--across-tasks", help="Aggregate normalised scores over all tasks.")
     ] = False,
@@ -205,27 +177,26 @@ def curves_cmd(
     pager: PagerOpt = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
+    stats: StatsOptions,
 ) -> None:
     """Data-efficiency curves: an estimate and a bootstrap interval per arm, task and size."""
     from fewshot.analysis import curve_report, curves_json, curves_table
     from fewshot.cli.stats_progress import statistics_progress
-    from fewshot.stats import CurveSettings
 
     with reporting(), as_flags():
         if fmt not in ("table", "csv", "json", "latex"):
             raise InvalidInput(f"--format must be table, csv, json or latex. Got {fmt!r}.")
-        settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
+        settings = stats.settings()
         led = open_ledger(ledger, study)
         try:
             with statistics_progress():
                 report = curve_report(
                     led,
                     settings,
-                    metric=metric,
-                    select=select,
                     normalised=normalised,
                     across_tasks=across_tasks,
                     by_group=by_group,
+                    **stats.scoring(),
                 )
         finally:
             led.close()
@@ -234,6 +205,7 @@ def curves_cmd(
     elif fmt == "csv":
         typer.echo(curves_table(report).to_csv(index=False), nl=False)
     elif fmt == "latex":
+        from fewshot.report.methods import resampling
         from fewshot.tables import latex_table, with_interval
 
         name = "task" if report.kind == "per-task" else "aggregate"
@@ -242,7 +214,7 @@ def curves_cmd(
                 "arm": str(r["arm"]),
                 name: str(r[name]),
                 "size": str(r["size"]),
-                "estimate [interval]": with_interval(r["estimate"], r["low"], r["high"]),
+                "estimate [interval]": with_interval(r["estimate"], r["low"], r["high"]) + _late(r),
                 "seeds": str(r["n_seeds"]),
             }
             for _, r in report.table.iterrows()
@@ -252,7 +224,8 @@ def curves_cmd(
             latex_table(
                 rows,
                 f"{curve_title(report)} of {report.scores.metric} with {s.confidence:.0%} "
-                f"{report.table['method'].iloc[0]} intervals ({s.resamples} resamples).",
+                f"{report.table['method'].iloc[0]} intervals "
+                f"({resampling(report.table['method'], s.resamples, s.seed)}).",
             ),
             nl=False,
         )
@@ -261,12 +234,11 @@ def curves_cmd(
             print_curve_table(report)
 
 
+@statistics_options()
 def plot(
     *,
     kind: Annotated[FigureKind, typer.Option("--kind", help="The figure.")],
     out_file: Annotated[Path, typer.Option("--out", help="The figure file: .png, .svg or .pdf.")],
-    metric: MetricOpt = None,
-    select: SelectOpt = "final",
     normalised: Annotated[
         bool, typer.Option("--normalised", help="Normalised scores (curves).")
     ] = False,
@@ -279,31 +251,26 @@ def plot(
     by_group: Annotated[
         bool, typer.Option("--by-group", help="Aggregate per task group (--kind aggregate).")
     ] = False,
-    estimator: EstimatorOpt = Estimator.mean,
-    ci: CiOpt = DEFAULT_CI,
-    confidence: ConfidenceOpt = 0.95,
-    resamples: ResamplesOpt = 10_000,
-    seed: SeedOpt = 0,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
+    stats: StatsOptions,
 ) -> None:
     """Draw one figure of the study to a PNG, SVG or PDF file."""
-    from fewshot.analysis import make_figure
+    from fewshot.analysis import make_figure, study_data
     from fewshot.plots import save_figure
-    from fewshot.stats import CurveSettings
 
     with reporting(), as_flags():
-        settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
+        settings = stats.settings()
         if out_file.suffix.lower() not in (".png", ".svg", ".pdf"):
             raise InvalidInput(f"{out_file}: --out must end in .png, .svg or .pdf.")
         led = open_ledger(ledger, study)
         try:
             fig = make_figure(
-                led,
+                study_data(led, include_running=stats.include_running),
                 kind,
                 settings,
-                metric=metric,
-                select=select,
+                metric=stats.metric,
+                select=stats.select,
                 normalised=normalised,
                 baseline=baseline,
                 size=size,
@@ -315,45 +282,32 @@ def plot(
     out.print(f"wrote {path}")
 
 
+@statistics_options(metric=False)
 def report(
     *,
     out_file: Annotated[Path, typer.Option("--out", help="The report file (.html).")] = Path(
         "report.html"
     ),
     title: Annotated[str | None, typer.Option("--title", help="A title of your own.")] = None,
-    baseline: Annotated[
-        str | None, typer.Option("--baseline", help="Baseline arm (default: the study's).")
-    ] = None,
-    threshold: Annotated[
-        float,
-        typer.Option(
-            "--threshold",
-            help="Level for episodes-to-threshold, as a fraction of the expert (default 0.8).",
-        ),
-    ] = 0.8,
-    select: SelectOpt = "final",
-    estimator: EstimatorOpt = Estimator.mean,
-    ci: CiOpt = DEFAULT_CI,
-    confidence: ConfidenceOpt = 0.95,
-    resamples: ResamplesOpt = 10_000,
-    seed: SeedOpt = 0,
+    baseline: BaselineOpt = None,
+    threshold: ThresholdOpt = 0.8,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
+    stats: StatsOptions,
 ) -> None:
     """Write the study report: one HTML file with the figures embedded, readable offline and printable."""
     from fewshot.analysis import analyse_study
     from fewshot.cli.stats_progress import statistics_progress
     from fewshot.report import check_report_path, write_report
-    from fewshot.stats import CurveSettings
 
     with reporting(), as_flags():
-        settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
+        settings = stats.settings()
         check_report_path(out_file)
         led = open_ledger(ledger, study)
         with statistics_progress():  # the statistics, then the figures
             try:
                 reports = analyse_study(
-                    led, settings, select=select, baseline=baseline, threshold=threshold
+                    led, settings, baseline=baseline, threshold=threshold, **stats.scoring()
                 )
             finally:
                 led.close()

@@ -9,18 +9,7 @@ import typer
 
 from fewshot.cli.common import LedgerOpt, StudyOpt, open_ledger, out, print_json, reporting
 from fewshot.cli.flags import as_flags
-from fewshot.cli.stats_cmd import (
-    DEFAULT_CI,
-    CiOpt,
-    ConfidenceOpt,
-    Estimator,
-    EstimatorOpt,
-    ResamplesOpt,
-    SeedOpt,
-    SelectOpt,
-)
-
-THRESHOLD_HELP = "Level for episodes-to-threshold, as a fraction of the expert (default 0.8)."
+from fewshot.cli.options import BaselineOpt, StatsOptions, ThresholdOpt, statistics_options
 
 
 class SummaryFormat(StrEnum):
@@ -29,19 +18,11 @@ class SummaryFormat(StrEnum):
     markdown = "markdown"
 
 
+@statistics_options(metric=False)
 def summary(
     *,
-    baseline: Annotated[
-        str | None,
-        typer.Option("--baseline", help="The arm to compare with (default: the study's)."),
-    ] = None,
-    threshold: Annotated[float, typer.Option("--threshold", help=THRESHOLD_HELP)] = 0.8,
-    select: SelectOpt = "final",
-    estimator: EstimatorOpt = Estimator.mean,
-    ci: CiOpt = DEFAULT_CI,
-    confidence: ConfidenceOpt = 0.95,
-    resamples: ResamplesOpt = 10_000,
-    seed: SeedOpt = 0,
+    baseline: BaselineOpt = None,
+    threshold: ThresholdOpt = 0.8,
     fmt: Annotated[
         SummaryFormat,
         typer.Option(
@@ -50,17 +31,17 @@ def summary(
     ] = SummaryFormat.text,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
+    stats: StatsOptions,
 ) -> None:
     """The findings summary alone: each pretrained arm against the baseline, with intervals."""
     from fewshot.analysis import summarise_study
-    from fewshot.stats import CurveSettings
 
     with reporting(), as_flags():
-        settings = CurveSettings(estimator, ci, confidence, resamples, seed).check()
+        settings = stats.settings()
         led = open_ledger(ledger, study)
         try:
             found = summarise_study(
-                led, settings, select=select, baseline=baseline, threshold=threshold
+                led, settings, baseline=baseline, threshold=threshold, **stats.scoring()
             )
         finally:
             led.close()

@@ -23,18 +23,24 @@ from fewshot.errors import InvalidInput
 from fewshot.files import write_text_atomic
 from fewshot.report.html import bullet_list, figure_html, figure_uri, page, paragraph, table_html
 from fewshot.report.long_tables import collapsed, curve_section, transfer_section
-from fewshot.stats import CurveSettings
-from fewshot.stats.coverage import coverage_sentence, printed_sentence
+from fewshot.report.methods import methods_sentences
 from fewshot.stats.progress import advance
 from fewshot.tables import number
 
-__all__ = ["build_report", "write_report", "check_report_path", "HARDWARE_CAUTION"]
+__all__ = ["build_report", "write_report", "check_report_path", "DEFAULT_CAUTION", "caution"]
 
-HARDWARE_CAUTION = (
-    "These scores come from the evaluation the trainers ran, often in simulation or on logged data. "
-    "However good they are, they do not show that a policy is safe to run on real hardware: that needs "
-    "its own testing, with safeguards, on the system itself."
+DEFAULT_CAUTION = (
+    "These scores come from the evaluations the trainers ran, often in simulation or on logged "
+    "data. However good they are, they do not show that a model works, or is safe, where it is "
+    "deployed: that needs its own testing there, with safeguards."
 )
+
+
+def caution(study: dict[str, Any]) -> str:
+    """The caution a report opens with: the study's own (its ``caution``) when it gives one,
+    else :data:`DEFAULT_CAUTION`."""
+    own = study.get("caution")
+    return own.strip() if isinstance(own, str) and own.strip() else DEFAULT_CAUTION
 
 
 def _study_section(data: StudyData) -> str:
@@ -199,10 +205,10 @@ def _figures(rep: StudyReports) -> str:
 
 def build_report(rep: StudyReports, *, title: str | None = None) -> str:
     """The report as one HTML string, drawn from the reports of :func:`analyse_study`."""
-    data, curves, cmp, settings = rep.data, rep.curves, rep.compare, rep.settings
+    data, curves, cmp = rep.data, rep.curves, rep.compare
     study = data.study
     sections: list[tuple[str, str]] = [
-        ("Caution", f'<div class="caution">{paragraph(HARDWARE_CAUTION)}</div>')
+        ("Caution", f'<div class="caution">{paragraph(caution(study))}</div>')
     ]
     if cmp is not None:
         sections.append(("Findings", _findings_section(rep)))
@@ -216,7 +222,7 @@ def build_report(rep: StudyReports, *, title: str | None = None) -> str:
     if cmp is not None:
         sections.append((f"Transfer against {cmp.baseline}", transfer_section(cmp)))
         warnings.extend(cmp.notes)
-    sections.append(("Methods", _methods(curves, settings, cmp)))
+    sections.append(("Methods", _methods(rep)))
     warnings = curves.notes + warnings
     if curves.scores.rule != "final":
         warnings.append(
@@ -251,47 +257,9 @@ def _findings_section(rep: StudyReports) -> str:
     return body
 
 
-def _methods(curves, settings: CurveSettings, cmp) -> str:  # type: ignore[no-untyped-def]
-    t = curves.table
-    n_min, n_max = int(t["n_seeds"].min()), int(t["n_seeds"].max())
-    rule = curves.scores.rule
-    rule_text = (
-        "the final evaluation of each run (its last reported step when it reported no final one)"
-        if rule == "final"
-        else f"the rule {rule}"
-    )
-    parts = [
-        f"Each run was scored by {curves.scores.metric} at {rule_text}. Curve points are the {settings.estimator} over "
-        f"seeds (one seed = one nested draw of training episodes, shared by every arm) with {settings.confidence:.0%} "
-        f"{settings.method} intervals from {settings.resamples} bootstrap resamples of whole seeds (resampling seed "
-        f"{settings.seed}); between {n_min} and {n_max} seeds stand behind each interval.",
-        coverage_sentence(settings.method, n_min),
-        "Aggregates over tasks pool the normalised scores of all runs; their intervals are stratified t intervals: "
-        "the standard error from a stratified bootstrap (seeds resampled within each task, each task's resample "
-        "rescaled by sqrt(n/(n-1))) and Satterthwaite's degrees of freedom.",
-    ]
-    if not curves.scores.higher_is_better:
-        parts.append(
-            f"Lower {curves.scores.metric} is better: every statistic was computed on normalised scores (0 at the "
-            "floor, 1 at the expert) or, for tasks without them, on the negated raw score, so that higher is better "
-            "throughout; raw values are shown back in the metric's own units."
-        )
-    if cmp is not None and cmp.value != "normalised":
-        parts.append(
-            "Tasks without floor and expert are compared in raw units and left out of every mean over tasks."
-        )
-    if cmp is not None:
-        parts.append(
-            f"Arms were compared with {cmp.baseline} on the same subsets, paired by seed. Effective data transferred is "
-            "read off an isotonic fit of the baseline's curve on log size (Hernandez et al. 2021); probability of "
-            "improvement counts ties as one half (Agarwal et al. 2021) and gets Newcombe's (2006) score interval. "
-            "Intervals of effective data and of episodes to the threshold are the sizes at which a paired t test over "
-            "seeds does not tell the two curves (or the curve and the threshold) apart; areas get Student's t over "
-            "seeds' areas. Words such as 'hurts', 'helps', '>=', 'already there' and 'not reached' are printed only "
-            "where the interval supports them."
-        )
-        parts.append(printed_sentence(n_min))
-    return "".join(paragraph(p) for p in parts)
+def _methods(rep: StudyReports) -> str:
+    """The methods text, one paragraph a topic (:func:`fewshot.report.methods.methods_sentences`)."""
+    return "".join(paragraph(p) for p in methods_sentences(rep).values())
 
 
 def check_report_path(path: str | Path) -> Path:
