@@ -199,8 +199,8 @@ def test_one_seed_gives_no_interval_and_degenerate_cells_warn():
 @pytest.mark.parametrize(
     ("kwargs", "fragment"),
     [
-        ({"method": "wild"}, "method must be one of"),
-        ({"confidence": 1.5}, "confidence must lie between 0 and 1"),
+        ({"method": "wild"}, "`method` must be one of"),
+        ({"confidence": 1.5}, "`confidence` must lie between 0 and 1"),
         ({"resamples": 10}, "at least 100"),
         ({"method": "bootstrap-t", "is_mean": False}, "mean only"),
     ],

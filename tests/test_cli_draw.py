@@ -274,13 +274,18 @@ def test_library_parameters_become_the_commands_flags():
 
     flags = {"keep_top": "--keep-top", "rank_by": "--rank-by"}
     assert (
-        as_flags("keep_top and rank_by go together", flags)
+        as_flags("keep_top and rank_by go together", flags, bare=True)
         == "--keep-top and --rank-by go together"
     )
+    # without ``bare`` (every command but draw) prose is left alone: only backticked names change
+    assert as_flags("keep_top and rank_by go together", flags) == "keep_top and rank_by go together"
     assert as_flags("pick one with `study`.", {}) == "pick one with --study."
     assert as_flags("`max_runs` must be 1", {"max_runs": "--max-runs"}) == "--max-runs must be 1"
     # a flag already spelled, part of a longer word, or a name not mapped stays as it is
-    assert as_flags("--keep-top 5 and keep_tops, rank", flags) == "--keep-top 5 and keep_tops, rank"
+    assert (
+        as_flags("--keep-top 5 and keep_tops, rank", flags, bare=True)
+        == "--keep-top 5 and keep_tops, rank"
+    )
 
 
 def test_backticked_parameters_leave_the_prose_alone():

@@ -95,3 +95,14 @@ def test_a_bad_shared_option_is_refused_with_its_flag(cli, planned: str):
     result = cli("summary", "--ledger", planned, "--confidence", "1.5")
     assert result.exit_code == 2
     assert "--confidence must lie between 0 and 1" in result.output
+
+
+@pytest.mark.parametrize("command", ["summary", "compare"])
+def test_a_library_message_names_the_flag_not_the_parameter(cli, filled_ledger, command: str):
+    # the library writes `threshold` (its parameter, in backticks); the command line reads it as
+    # its flag, also where the message is long and wraps
+    result = cli(command, "--ledger", str(filled_ledger.url), "--threshold", "-3")
+    assert result.exit_code == 2, result.output
+    text = " ".join(result.output.split())
+    assert "--threshold -3.0 lies outside" in text
+    assert "`" not in text

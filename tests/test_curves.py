@@ -88,8 +88,8 @@ def test_score_rules():
     ("rule", "fragment"),
     [
         ("best:return", "may not be chosen by 'return' itself"),
-        ("last:0", "^select must be"),
-        ("top", "^select must be"),
+        ("last:0", "^`select` must be"),
+        ("top", "^`select` must be"),
         ("best:nope", "validation metric 'nope'"),
     ],
 )
@@ -260,11 +260,11 @@ def test_by_group_and_missing_seed_notes():
 @pytest.mark.parametrize(
     ("settings", "fragment"),
     [
-        (CurveSettings(estimator="mode"), "estimator must be one of"),
-        (CurveSettings(method="x"), "^method must be one of"),
-        (CurveSettings(confidence=0), "^confidence must lie"),
-        (CurveSettings(resamples=5), "^resamples must be"),
-        (CurveSettings(method="bootstrap-t", estimator="iqm"), "estimator 'mean' only"),
+        (CurveSettings(estimator="mode"), "^`estimator` must be one of"),
+        (CurveSettings(method="x"), "^`method` must be one of"),
+        (CurveSettings(confidence=0), "^`confidence` must lie"),
+        (CurveSettings(resamples=5), "^`resamples` must be"),
+        (CurveSettings(method="bootstrap-t", estimator="iqm"), "`estimator` 'mean' only"),
     ],
 )
 def test_bad_curve_settings(settings, fragment):

@@ -187,7 +187,7 @@ def test_report_loads_in_headless_chromium(ledger, tmp_path: Path):
 
 def test_report_refuses_a_bad_path(ledger, tmp_path: Path):
     bad = run("report", "--out", tmp_path / "r.txt", "--ledger", ledger, "--resamples", "300")
-    assert bad.exit_code == 2 and "ending in .html" in bad.output
+    assert bad.exit_code == 2 and "--out must end in .html" in bad.output
     missing = run(
         "report", "--out", tmp_path / "no" / "r.html", "--ledger", ledger, "--resamples", "300"
     )

@@ -22,7 +22,7 @@ if TYPE_CHECKING:
 
 __all__ = ["CurveReport", "curve_report", "curve_scores", "caveats", "BOTH_AGGREGATES"]
 
-BOTH_AGGREGATES = "choose one of across_tasks and by_group."
+BOTH_AGGREGATES = "choose one of `across_tasks` and `by_group`."
 
 
 @dataclass(frozen=True)
@@ -101,7 +101,7 @@ def curve_scores(
     if value == "normalised" and not (sc.scores["reference"] == "floor/expert").any():
         raise InvalidInput(
             "no task has both floor and expert, so there are no normalised scores. "
-            "Add floor and expert to the tasks in the study file, or ask for raw scores (normalised=False)."
+            "Add floor and expert to the tasks in the study file, or ask for raw scores (leave out `normalised`)."
         )
     if aggregate:
         table = aggregate_curves(sc.scores, settings, value="normalised", by_group=by_group)

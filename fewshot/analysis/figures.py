@@ -34,7 +34,7 @@ CURVE_KINDS = ("curves", "aggregate")  # drawn from a CurveReport; the others fr
 
 def _check_kind(kind: str) -> None:
     if kind not in FIGURE_KINDS:
-        raise InvalidInput(f"kind must be one of {', '.join(FIGURE_KINDS)}. Got {kind!r}.")
+        raise InvalidInput(f"`kind` must be one of {', '.join(FIGURE_KINDS)}. Got {kind!r}.")
 
 
 def curve_figure(

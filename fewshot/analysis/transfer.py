@@ -175,7 +175,7 @@ def compare_scores(
         lo, hi = float(normed["normalised"].min()), float(normed["normalised"].max())
         if not lo <= threshold <= max(hi, 1.0):
             raise InvalidInput(
-                f"threshold {threshold} lies outside the data: normalised scores run from {lo:.3g} to {hi:.3g} "
+                f"`threshold` {threshold} lies outside the data: normalised scores run from {lo:.3g} to {hi:.3g} "
                 "(1 = the expert). Pick a threshold in that range, e.g. 0.5 or 1.0."
             )
         thresholds = threshold_sizes(normed, threshold, settings)

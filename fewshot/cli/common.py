@@ -39,31 +39,33 @@ class TableOrJson(StrEnum):
 LEDGER_FLAGS = {"url": "--ledger", "study": "--study"}
 
 
-def as_flags(message: str, flags: Mapping[str, str]) -> str:
+def as_flags(message: str, flags: Mapping[str, str], *, bare: bool = False) -> str:
     """``message`` with library parameter names replaced by the command's flags.
 
-    The library's messages name parameters, in backticks (```max_runs``` must be ...) or, for the
-    draw settings, bare (``keep_top and rank_by go together``, in a message without backticks);
-    a command says which of its flags stand for which parameter (``flags``), and its user reads
-    the flags. Backticked ``url`` and
-    ``study`` are the ledger's ``--ledger`` and ``--study`` in every command.
+    The library's messages name parameters in backticks (```max_runs``` must be ...); a command
+    says which of its flags stand for which parameter (``flags``), and its user reads the flags.
+    Backticked ``url`` and ``study`` are the ledger's ``--ledger`` and ``--study`` in every
+    command. ``bare``: the draw settings' messages name them without backticks (``keep_top and
+    rank_by go together``); with ``bare`` such a message (one without backticks) has its bare
+    names translated too. Prose is never touched otherwise.
     """
     if "`" in message:  # parameters in backticks: only those are names
         every = {**LEDGER_FLAGS, **flags}
         backticked = re.compile(r"`(" + "|".join(map(re.escape, every)) + r")`")
         return backticked.sub(lambda m: every[m.group(1)], message)
-    if not flags:
+    if not (flags and bare):
         return message
     names = sorted(flags, key=len, reverse=True)
-    bare = re.compile(r"(?<![\w`-])(" + "|".join(map(re.escape, names)) + r")(?![\w`-])")
-    return bare.sub(lambda m: flags[m.group(1)], message)
+    pattern = re.compile(r"(?<![\w`-])(" + "|".join(map(re.escape, names)) + r")(?![\w`-])")
+    return pattern.sub(lambda m: flags[m.group(1)], message)
 
 
 @contextmanager
-def reporting(flags: Mapping[str, str] | None = None) -> Iterator[None]:
+def reporting(flags: Mapping[str, str] | None = None, *, bare: bool = False) -> Iterator[None]:
     """Turn a :class:`FewshotError` into its message on stderr and exit status 2.
 
-    ``flags`` maps library parameter names to the command's flags (see :func:`as_flags`). With
+    ``flags`` maps library parameter names to the command's flags, ``bare`` as in
+    :func:`as_flags`. With
     ``fewshot --debug`` the exception propagates with its traceback. Either way every password in
     the messages is masked (:func:`fewshot.masking.mask_secrets`).
     """
@@ -77,7 +79,7 @@ def reporting(flags: Mapping[str, str] | None = None) -> Iterator[None]:
         if STATE["debug"]:
             _mask_chain(exc)
             raise
-        text = as_flags(mask_secrets(str(exc)), flags or {})
+        text = as_flags(mask_secrets(str(exc)), flags or {}, bare=bare)
         err.print(styled("[bold red]error:[/] {}", text))
         raise typer.Exit(2) from None
     except Exception as exc:  # a bug: its traceback is shown, with any password masked

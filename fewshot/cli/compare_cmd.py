@@ -22,8 +22,8 @@ from fewshot.cli.common import (
     reporting,
 )
 from fewshot.cli.fit import fits, fitted_tables, make_table
-from fewshot.cli.flags import as_flags
 from fewshot.cli.options import (
+    STATS_FLAGS,
     BaselineOpt,
     SelectOpt,
     StatsOptions,
@@ -77,7 +77,7 @@ def compare(
     from fewshot.cli.stats_progress import statistics_progress
     from fewshot.tables import latex_table, transfer_rows
 
-    with reporting(), as_flags():
+    with reporting(STATS_FLAGS):
         settings = stats.settings()
         led = open_ledger(ledger, study)
         try:
@@ -106,7 +106,7 @@ def compare(
         return
     aggregate = None
     if rep.value == "normalised" and len(rep.over_tasks) > 1:
-        with reporting(), as_flags(), statistics_progress():
+        with reporting(STATS_FLAGS), statistics_progress():
             aggregate = qualify_curves(
                 curve_scores(rep.scores, settings, across_tasks=True, arms=data.arm_order), data
             )
@@ -331,7 +331,7 @@ def seeds_needed_cmd(
     """Seeds each comparison needs to detect --effect, by Welch's t power, from the spread seen so far."""
     from fewshot.analysis import seeds_json, seeds_needed_report
 
-    with reporting(), as_flags():
+    with reporting(STATS_FLAGS):
         led = open_ledger(ledger, study)
         try:
             rep = seeds_needed_report(

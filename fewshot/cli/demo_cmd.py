@@ -10,7 +10,7 @@ from typing import Annotated
 import typer
 
 from fewshot.cli.common import err, out, progress, reporting
-from fewshot.cli.flags import as_flags
+from fewshot.cli.options import STATS_FLAGS
 from fewshot.errors import InvalidInput
 
 
@@ -33,7 +33,7 @@ def demo(
     from fewshot.demo.run import analyse_demo, prepare_demo, run_workers
 
     start = time.monotonic()
-    with reporting(), as_flags():
+    with reporting(STATS_FLAGS):
         if workers < 0:
             raise InvalidInput(
                 f"--workers must be 1 or more (0: one per CPU, at most 4). Got {workers}."

@@ -100,7 +100,7 @@ def draw(
     ),
 ) -> None:
     """Draw nested subsets of a pool for every seed and write a manifest and id files."""
-    with reporting(DRAW_FLAGS):
+    with reporting(DRAW_FLAGS, bare=True):
         spec = DrawSpec(
             task=task,
             pool=pool,

@@ -40,7 +40,28 @@ __all__ = [
     "IncludeRunningOpt",
     "BaselineOpt",
     "ThresholdOpt",
+    "STATS_FLAGS",
 ]
+
+#: The statistics library's parameters (named in backticks in its messages) -> these commands'
+#: flags, for :func:`fewshot.cli.common.reporting`.
+STATS_FLAGS = {
+    "method": "--ci",
+    "estimator": "--estimator",
+    "confidence": "--confidence",
+    "resamples": "--resamples",
+    "select": "--select",
+    "kind": "--kind",
+    "threshold": "--threshold",
+    "across_tasks": "--across-tasks",
+    "by_group": "--by-group",
+    "normalised": "--normalised",
+    "effect": "--effect",
+    "power": "--power",
+    "alpha": "--alpha",
+    "workers": "--workers",
+    "path": "--out",
+}
 
 ESTIMATOR_NAMES = ("mean", "median", "iqm")  # fewshot.stats.ESTIMATORS (a test holds them equal)
 

@@ -23,9 +23,14 @@ from fewshot.cli.common import (
     styled,
 )
 from fewshot.cli.fit import fits, make_table, split_interval
-from fewshot.cli.flags import as_flags
 from fewshot.cli.options import ESTIMATOR_NAMES as ESTIMATOR_NAMES  # re-exported
-from fewshot.cli.options import BaselineOpt, StatsOptions, ThresholdOpt, statistics_options
+from fewshot.cli.options import (
+    STATS_FLAGS,
+    BaselineOpt,
+    StatsOptions,
+    ThresholdOpt,
+    statistics_options,
+)
 from fewshot.errors import InvalidInput
 
 if TYPE_CHECKING:
@@ -183,7 +188,7 @@ def curves_cmd(
     from fewshot.analysis import curve_report, curves_json, curves_table
     from fewshot.cli.stats_progress import statistics_progress
 
-    with reporting(), as_flags():
+    with reporting(STATS_FLAGS):
         if fmt not in ("table", "csv", "json", "latex"):
             raise InvalidInput(f"--format must be table, csv, json or latex. Got {fmt!r}.")
         settings = stats.settings()
@@ -259,7 +264,7 @@ def plot(
     from fewshot.analysis import make_figure, study_data
     from fewshot.plots import save_figure
 
-    with reporting(), as_flags():
+    with reporting(STATS_FLAGS):
         settings = stats.settings()
         if out_file.suffix.lower() not in (".png", ".svg", ".pdf"):
             raise InvalidInput(f"{out_file}: --out must end in .png, .svg or .pdf.")
@@ -300,7 +305,7 @@ def report(
     from fewshot.cli.stats_progress import statistics_progress
     from fewshot.report import check_report_path, write_report
 
-    with reporting(), as_flags():
+    with reporting(STATS_FLAGS):
         settings = stats.settings()
         check_report_path(out_file)
         led = open_ledger(ledger, study)

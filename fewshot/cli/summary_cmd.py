@@ -8,8 +8,13 @@ from typing import Annotated
 import typer
 
 from fewshot.cli.common import LedgerOpt, StudyOpt, open_ledger, out, print_json, reporting
-from fewshot.cli.flags import as_flags
-from fewshot.cli.options import BaselineOpt, StatsOptions, ThresholdOpt, statistics_options
+from fewshot.cli.options import (
+    STATS_FLAGS,
+    BaselineOpt,
+    StatsOptions,
+    ThresholdOpt,
+    statistics_options,
+)
 
 
 class SummaryFormat(StrEnum):
@@ -36,7 +41,7 @@ def summary(
     """The findings summary alone: each pretrained arm against the baseline, with intervals."""
     from fewshot.analysis import summarise_study
 
-    with reporting(), as_flags():
+    with reporting(STATS_FLAGS):
         settings = stats.settings()
         led = open_ledger(ledger, study)
         try:

@@ -97,7 +97,7 @@ def run_workers(
 ) -> None:
     """Run every pending run with ``workers`` processes, calling ``on_tick(done, total)`` as they finish."""
     if workers < 1:
-        raise fewshot.InvalidInput(f"workers must be 1 or more. Got {workers}.")
+        raise fewshot.InvalidInput(f"`workers` must be 1 or more. Got {workers}.")
     ctx = multiprocessing.get_context(
         "spawn"
     )  # clean processes: no inherited connections or threads

@@ -266,7 +266,7 @@ def check_report_path(path: str | Path) -> Path:
     """``path`` as a report file: an .html name in a folder that exists."""
     p = Path(path)
     if p.suffix.lower() not in (".html", ".htm"):
-        raise InvalidInput(f"{p}: the report is an HTML file; give a path ending in .html.")
+        raise InvalidInput(f"{p}: the report is an HTML file: `path` must end in .html.")
     if not p.parent.is_dir():
         raise InvalidInput(
             f"{p.parent}: no such folder for the report. Create it first or pick another path."

@@ -106,9 +106,9 @@ def _iv(
     if not np.isfinite(data).all():
         raise InvalidInput("values must be finite: drop missing runs before bootstrapping.")
     if method not in METHODS:
-        raise InvalidInput(f"method must be one of {', '.join(METHODS)}. Got {method!r}.")
+        raise InvalidInput(f"`method` must be one of {', '.join(METHODS)}. Got {method!r}.")
     if not 0 < confidence < 1:
-        raise InvalidInput(f"confidence must lie between 0 and 1, e.g. 0.95. Got {confidence!r}.")
+        raise InvalidInput(f"`confidence` must lie between 0 and 1, e.g. 0.95. Got {confidence!r}.")
     if (
         isinstance(resamples, bool)
         or not isinstance(resamples, int | np.integer)

@@ -72,15 +72,17 @@ class CurveSettings:
     def check(self) -> CurveSettings:
         get_estimator(self.estimator)
         if self.method not in METHODS:
-            raise InvalidInput(f"method must be one of {', '.join(METHODS)}. Got {self.method!r}.")
+            raise InvalidInput(
+                f"`method` must be one of {', '.join(METHODS)}. Got {self.method!r}."
+            )
         if not 0 < self.confidence < 1:
             raise InvalidInput(
-                f"confidence must lie between 0 and 1, e.g. 0.95. Got {self.confidence}."
+                f"`confidence` must lie between 0 and 1, e.g. 0.95. Got {self.confidence}."
             )
         if self.resamples < 100:
-            raise InvalidInput(f"resamples must be at least 100. Got {self.resamples}.")
+            raise InvalidInput(f"`resamples` must be at least 100. Got {self.resamples}.")
         if self.method == "bootstrap-t" and self.estimator != "mean":
-            raise InvalidInput("method 'bootstrap-t' works with estimator 'mean' only.")
+            raise InvalidInput("`method` 'bootstrap-t' works with `estimator` 'mean' only.")
         return self
 
 

@@ -62,7 +62,7 @@ def estimator(name: str, *, aggregate: bool = False) -> Estimator:
     """The estimator called ``name``; ``aggregate`` also allows ``optimality_gap``."""
     table = AGGREGATES if aggregate else ESTIMATORS
     if name not in table:
-        raise InvalidInput(f"estimator must be one of {', '.join(table)}. Got {name!r}.")
+        raise InvalidInput(f"`estimator` must be one of {', '.join(table)}. Got {name!r}.")
     return table[name]
 
 

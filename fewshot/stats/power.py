@@ -64,12 +64,12 @@ def seeds_needed(
 def _iv(effect: float, power: float, alpha: float) -> None:
     if not effect > 0:
         raise InvalidInput(
-            f"effect must be a positive difference (in the scores' units). Got {effect}."
+            f"`effect` must be a positive difference (in the scores' units). Got {effect}."
         )
     if not 0 < power < 1:
-        raise InvalidInput(f"power must lie between 0 and 1, e.g. 0.8. Got {power}.")
+        raise InvalidInput(f"`power` must lie between 0 and 1, e.g. 0.8. Got {power}.")
     if not 0 < alpha < 0.5:
-        raise InvalidInput(f"alpha must lie between 0 and 0.5, e.g. 0.05. Got {alpha}.")
+        raise InvalidInput(f"`alpha` must lie between 0 and 0.5, e.g. 0.05. Got {alpha}.")
 
 
 def seeds_table(

@@ -88,7 +88,7 @@ def parse_rule(text: str) -> ScoreRule:
     if m and int(m.group(1)) >= 1:
         return ScoreRule("last", k=int(m.group(1)))
     raise InvalidInput(
-        f"select must be final, best:<metric>, least:<metric> or last:<k> (k >= 1). Got {text!r}."
+        f"`select` must be final, best:<metric>, least:<metric> or last:<k> (k >= 1). Got {text!r}."
     )
 
 
@@ -99,7 +99,7 @@ def run_scores(results: pd.DataFrame, metric: str, rule: ScoreRule | str = "fina
     if r.metric is not None and r.metric == metric:
         raise InvalidInput(
             f"the step may not be chosen by {metric!r} itself, the metric being reported: that would "
-            "overstate every score. Choose it by a validation metric, e.g. select='best:val_return'."
+            "overstate every score. Choose it by a validation metric, e.g. `select`='best:val_return'."
         )
     known = sorted(set(results["metric"])) if len(results) else []
     if metric not in known:
@@ -125,7 +125,7 @@ def run_scores(results: pd.DataFrame, metric: str, rule: ScoreRule | str = "fina
 def _by_validation(results: pd.DataFrame, main: pd.DataFrame, r: ScoreRule) -> pd.DataFrame:
     val = results[results["metric"] == r.metric]
     if val.empty:
-        raise InvalidInput(f"no results for the validation metric {r.metric!r} named in select.")
+        raise InvalidInput(f"no results for the validation metric {r.metric!r} named in `select`.")
     val = val.assign(order=val["step"].astype("float").fillna(np.inf))
     ascending = r.kind == "least"
     val = val.sort_values(
