@@ -52,9 +52,10 @@ def curves_figure(
     for ax, task in zip(axes, tasks, strict=False):
         part = parts.get(task, curves.iloc[:0])
         zero_at = _size_axis(ax, sorted(set(part["size"])))
+        by_arm = dict(tuple(part.groupby("arm", sort=False)))
         for arm in arms:
-            rows = part[part["arm"] == arm]
-            if len(rows):
+            rows = by_arm.get(arm)
+            if rows is not None:
                 _draw_arm(ax, rows, arm, styles[arm], roles.get(arm) == "baseline", zero_at)
         if refs is not None and task in set(refs["task"]):
             r = refs[refs["task"] == task].iloc[0]
@@ -148,9 +149,10 @@ def difference_figure(
         part = parts.get(task, data.iloc[:0])
         zero_at = _size_axis(ax, sorted(set(part["size"])))
         ax.axhline(0, color="black", lw=0.7)
+        by_arm = dict(tuple(part.groupby("arm", sort=False)))
         for arm in arms:
-            rows = part[part["arm"] == arm]
-            if len(rows):
+            rows = by_arm.get(arm)
+            if rows is not None:
                 _draw_arm(ax, rows, arm, styles[arm], False, zero_at, value="difference")
         ax.set_title("mean over tasks" if task == "all" else task)
         ax.set_xlabel("episodes (log scale)")

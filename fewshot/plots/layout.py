@@ -143,21 +143,25 @@ def _draw_arm(
     value: str = "estimate",
 ) -> None:
     colour, marker = style
-    f = frame.sort_values("size")
-    pos = f[f["size"] > 0]
+    # plain arrays: dozens of panels of many arms each, so no pandas work per curve
+    order = np.argsort(frame["size"].to_numpy(), kind="stable")
+    size = frame["size"].to_numpy()[order]
+    y = frame[value].to_numpy(dtype=float)[order]
+    has_band = "low" in frame
+    low = frame["low"].to_numpy(dtype=float)[order] if has_band else None
+    high = frame["high"].to_numpy(dtype=float)[order] if has_band else None
+    pos = size > 0
     ls = "--" if dashed else "-"
-    ax.plot(pos["size"], pos[value], ls=ls, marker=marker, ms=3, lw=1.2, color=colour, label=arm)
-    if "low" in f and pos["low"].notna().any():
-        ax.fill_between(pos["size"], pos["low"], pos["high"], color=colour, alpha=0.18, lw=0)
-    zero = f[f["size"] == 0]
+    ax.plot(size[pos], y[pos], ls=ls, marker=marker, ms=3, lw=1.2, color=colour, label=arm)
+    if low is not None and high is not None and (~np.isnan(low[pos])).any():
+        ax.fill_between(size[pos], low[pos], high[pos], color=colour, alpha=0.18, lw=0)
+    zero = np.flatnonzero(size == 0)
     if zero_at is not None and len(zero):
-        z = zero.iloc[0]
+        z = zero[0]
         err = None
-        if not pd.isna(z.get("low")):
-            err = [[z[value] - z["low"]], [z["high"] - z[value]]]
-        ax.errorbar(
-            [zero_at], [z[value]], yerr=err, fmt=marker, ms=3, color=colour, capsize=2, lw=1
-        )
+        if low is not None and high is not None and not np.isnan(low[z]):
+            err = [[y[z] - low[z]], [high[z] - y[z]]]
+        ax.errorbar([zero_at], [y[z]], yerr=err, fmt=marker, ms=3, color=colour, capsize=2, lw=1)
 
 
 def _seeds_text(frame: pd.DataFrame) -> str:
