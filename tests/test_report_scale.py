@@ -260,3 +260,52 @@ def test_t_interval_standard_error_read_late_equals_the_resampled_one():
         (x[0],), np.mean, n_resamples=10_000, method="percentile", rng=np.random.default_rng(5)
     )
     assert lazy.se[0] == pytest.approx(ref.standard_error, rel=1e-9)
+
+
+# --------------------------------------------------------------------------- measured layout
+
+
+@pytest.mark.parametrize(("n", "scale"), [(1, 1.0), (5, 1.0), (12, 1.0), (12, 1e5), (7, -3e-4)])
+def test_grid_layout_keeps_every_label_inside_and_apart(n, scale):
+    # matplotlib's own extents of each panel with its labels (Axes.get_tightbbox) are the check:
+    # inside the figure, below the legend, and no two panels' extents overlap
+    import pandas as pd
+
+    from fewshot.plots import curves_figure
+
+    rows = [
+        {
+            "arm": a,
+            "task": f"task-{t}",
+            "size": s,
+            "estimate": scale * (s + t + k),
+            "low": scale * (s + t + k) - abs(scale),
+            "high": scale * (s + t + k) + abs(scale),
+            "n_seeds": 3,
+        }
+        for k, a in enumerate(("base", "wide"))
+        for t in range(n)
+        for s in (0, 1, 3, 10, 30)
+    ]
+    fig = curves_figure(
+        pd.DataFrame(rows),
+        arms=["base", "wide"],
+        roles={"base": "baseline"},
+        metric="return",
+        normalised=False,
+    )
+    renderer = fig.canvas.get_renderer() if hasattr(fig.canvas, "get_renderer") else None
+    if renderer is None:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        renderer = FigureCanvasAgg(fig).get_renderer()
+    width, height = fig.bbox.width, fig.bbox.height
+    (legend,) = fig.legends
+    legend_bottom = legend.get_window_extent(renderer).y0
+    boxes = [ax.get_tightbbox(renderer) for ax in fig.axes if ax.get_visible()]
+    assert len(boxes) == n
+    for box in boxes:
+        assert box.x0 >= 0 and box.y0 >= 0 and box.x1 <= width and box.y1 <= legend_bottom
+    for i, a in enumerate(boxes):
+        for b in boxes[i + 1 :]:
+            assert not a.overlaps(b)

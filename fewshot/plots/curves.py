@@ -11,10 +11,12 @@ from fewshot.errors import InvalidInput
 from fewshot.plots.layout import (
     COLUMN_WIDTH,
     _draw_arm,
+    _fit_grid,
     _grid,
     _legend,
     _seeds_text,
     _size_axis,
+    _suptitle,
     arm_colours,
     styled,
 )
@@ -76,12 +78,12 @@ def curves_figure(
         ax.set_xlabel("episodes (log scale)")
         ax.set_ylabel(ylabel)
     top = _legend(fig, axes[0])
-    fig.suptitle(
+    _suptitle(
+        fig,
         _heading(heading)
         + f"{ylabel} against episodes; {interval} intervals over {_seeds_text(curves)}",
-        fontsize=8,
     )
-    fig.tight_layout(rect=(0, 0, 1, top))
+    _fit_grid(fig, axes, len(tasks), top)
     return fig
 
 
@@ -121,8 +123,8 @@ def aggregate_figure(
             f"{statistic.upper() if statistic == 'iqm' else statistic} of {metric} (normalised)"
         )
     top = _legend(fig, axes[0])
-    fig.suptitle(f"stratified bootstrap intervals over {_seeds_text(data)} per task", fontsize=8)
-    fig.tight_layout(rect=(0, 0, 1, top))
+    _suptitle(fig, f"stratified bootstrap intervals over {_seeds_text(data)} per task")
+    _fit_grid(fig, axes, len(groups), top)
     return fig
 
 
@@ -158,10 +160,8 @@ def difference_figure(
         ax.set_xlabel("episodes (log scale)")
         ax.set_ylabel(f"{unit} minus {baseline}")
     top = _legend(fig, axes[0])
-    fig.suptitle(
-        _heading(heading) + f"paired by seed; intervals over {_seeds_text(data)}", fontsize=8
-    )
-    fig.tight_layout(rect=(0, 0, 1, top))
+    _suptitle(fig, _heading(heading) + f"paired by seed; intervals over {_seeds_text(data)}")
+    _fit_grid(fig, axes, len(tasks), top)
     return fig
 
 
