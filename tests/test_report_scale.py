@@ -302,6 +302,7 @@ def test_grid_layout_keeps_every_label_inside_and_apart(n, scale):
     width, height = fig.bbox.width, fig.bbox.height
     (legend,) = fig.legends
     legend_bottom = legend.get_window_extent(renderer).y0
+    assert legend.get_window_extent(renderer).y1 <= height  # the legend inside the figure too
     boxes = [ax.get_tightbbox(renderer) for ax in fig.axes if ax.get_visible()]
     assert len(boxes) == n
     for box in boxes:
@@ -309,3 +310,36 @@ def test_grid_layout_keeps_every_label_inside_and_apart(n, scale):
     for i, a in enumerate(boxes):
         for b in boxes[i + 1 :]:
             assert not a.overlaps(b)
+
+
+def test_report_reuses_its_iqm_for_the_scaling_view(tmp_path, study_file):
+    # both arms carry `params`, so the comparison has a scaling view; the report passes its own
+    # across-task IQM to it, and the view must be the one compare computes on its own
+    from fewshot.analysis import analyse_study, compare_report, read_study
+    from fewshot.stats import CurveSettings
+
+    study = study_file(arms={"scratch": {"attributes": {"params": 1e5}}})
+    url = str(tmp_path / "l.sqlite")
+    led = Ledger.open(url)
+    led.plan(load_study(study))
+    rng = np.random.default_rng(8)
+    values = {
+        r.key: float((10 if r.arm == "wide" else 5) * r.size + rng.normal(0, 3))
+        for r in led.runs().itertuples()
+    }
+    led.record_lines([_line(k, v) for k, v in values.items()], done=True)
+    settings = CurveSettings(resamples=500)
+    try:
+        data = read_study(led, with_status=True)
+    finally:
+        led.close()
+    reused = analyse_study(data, settings).compare
+    alone = compare_report(data, settings)
+    assert reused is not None and len(reused.scaling) == len(alone.scaling) > 0
+    from pandas.testing import assert_frame_equal
+
+    assert_frame_equal(reused.scaling, alone.scaling)
+    # the IQM of one task's three seeds is scipy's 25% trimmed mean of them (Agarwal et al. 2021)
+    row = alone.scaling[(alone.scaling["arm"] == "wide") & (alone.scaling["size"] == 10)].iloc[0]
+    seeds = [values[f"wide/reach/n10/s{s}"] / 100 for s in (0, 1, 2)]
+    assert row["estimate"] == pytest.approx(stats.trim_mean(seeds, 0.25), rel=1e-12)
