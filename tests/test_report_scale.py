@@ -260,3 +260,86 @@ def test_t_interval_standard_error_read_late_equals_the_resampled_one():
         (x[0],), np.mean, n_resamples=10_000, method="percentile", rng=np.random.default_rng(5)
     )
     assert lazy.se[0] == pytest.approx(ref.standard_error, rel=1e-9)
+
+
+# --------------------------------------------------------------------------- measured layout
+
+
+@pytest.mark.parametrize(("n", "scale"), [(1, 1.0), (5, 1.0), (12, 1.0), (12, 1e5), (7, -3e-4)])
+def test_grid_layout_keeps_every_label_inside_and_apart(n, scale):
+    # matplotlib's own extents of each panel with its labels (Axes.get_tightbbox) are the check:
+    # inside the figure, below the legend, and no two panels' extents overlap
+    import pandas as pd
+
+    from fewshot.plots import curves_figure
+
+    rows = [
+        {
+            "arm": a,
+            "task": f"task-{t}",
+            "size": s,
+            "estimate": scale * (s + t + k),
+            "low": scale * (s + t + k) - abs(scale),
+            "high": scale * (s + t + k) + abs(scale),
+            "n_seeds": 3,
+        }
+        for k, a in enumerate(("base", "wide"))
+        for t in range(n)
+        for s in (0, 1, 3, 10, 30)
+    ]
+    fig = curves_figure(
+        pd.DataFrame(rows),
+        arms=["base", "wide"],
+        roles={"base": "baseline"},
+        metric="return",
+        normalised=False,
+    )
+    renderer = fig.canvas.get_renderer() if hasattr(fig.canvas, "get_renderer") else None
+    if renderer is None:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        renderer = FigureCanvasAgg(fig).get_renderer()
+    width, height = fig.bbox.width, fig.bbox.height
+    (legend,) = fig.legends
+    legend_bottom = legend.get_window_extent(renderer).y0
+    assert legend.get_window_extent(renderer).y1 <= height  # the legend inside the figure too
+    boxes = [ax.get_tightbbox(renderer) for ax in fig.axes if ax.get_visible()]
+    assert len(boxes) == n
+    for box in boxes:
+        assert box.x0 >= 0 and box.y0 >= 0 and box.x1 <= width and box.y1 <= legend_bottom
+    for i, a in enumerate(boxes):
+        for b in boxes[i + 1 :]:
+            assert not a.overlaps(b)
+
+
+def test_report_reuses_its_iqm_for_the_scaling_view(tmp_path, study_file):
+    # both arms carry `params`, so the comparison has a scaling view; the report passes its own
+    # across-task IQM to it, and the view must be the one compare computes on its own
+    from fewshot.analysis import analyse_study, compare_report, read_study
+    from fewshot.stats import CurveSettings
+
+    study = study_file(arms={"scratch": {"attributes": {"params": 1e5}}})
+    url = str(tmp_path / "l.sqlite")
+    led = Ledger.open(url)
+    led.plan(load_study(study))
+    rng = np.random.default_rng(8)
+    values = {
+        r.key: float((10 if r.arm == "wide" else 5) * r.size + rng.normal(0, 3))
+        for r in led.runs().itertuples()
+    }
+    led.record_lines([_line(k, v) for k, v in values.items()], done=True)
+    settings = CurveSettings(resamples=500)
+    try:
+        data = read_study(led, with_status=True)
+    finally:
+        led.close()
+    reused = analyse_study(data, settings).compare
+    alone = compare_report(data, settings)
+    assert reused is not None and len(reused.scaling) == len(alone.scaling) > 0
+    from pandas.testing import assert_frame_equal
+
+    assert_frame_equal(reused.scaling, alone.scaling)
+    # the IQM of one task's three seeds is scipy's 25% trimmed mean of them (Agarwal et al. 2021)
+    row = alone.scaling[(alone.scaling["arm"] == "wide") & (alone.scaling["size"] == 10)].iloc[0]
+    seeds = [values[f"wide/reach/n10/s{s}"] / 100 for s in (0, 1, 2)]
+    assert row["estimate"] == pytest.approx(stats.trim_mean(seeds, 0.25), rel=1e-12)

@@ -11,10 +11,12 @@ from fewshot.errors import InvalidInput
 from fewshot.plots.layout import (
     COLUMN_WIDTH,
     _draw_arm,
+    _fit_grid,
     _grid,
     _legend,
     _seeds_text,
     _size_axis,
+    _suptitle,
     arm_colours,
     styled,
 )
@@ -52,9 +54,10 @@ def curves_figure(
     for ax, task in zip(axes, tasks, strict=False):
         part = parts.get(task, curves.iloc[:0])
         zero_at = _size_axis(ax, sorted(set(part["size"])))
+        by_arm = dict(tuple(part.groupby("arm", sort=False)))
         for arm in arms:
-            rows = part[part["arm"] == arm]
-            if len(rows):
+            rows = by_arm.get(arm)
+            if rows is not None:
                 _draw_arm(ax, rows, arm, styles[arm], roles.get(arm) == "baseline", zero_at)
         if refs is not None and task in set(refs["task"]):
             r = refs[refs["task"] == task].iloc[0]
@@ -75,12 +78,12 @@ def curves_figure(
         ax.set_xlabel("episodes (log scale)")
         ax.set_ylabel(ylabel)
     top = _legend(fig, axes[0])
-    fig.suptitle(
+    _suptitle(
+        fig,
         _heading(heading)
         + f"{ylabel} against episodes; {interval} intervals over {_seeds_text(curves)}",
-        fontsize=8,
     )
-    fig.tight_layout(rect=(0, 0, 1, top))
+    _fit_grid(fig, axes, len(tasks), top)
     return fig
 
 
@@ -120,8 +123,8 @@ def aggregate_figure(
             f"{statistic.upper() if statistic == 'iqm' else statistic} of {metric} (normalised)"
         )
     top = _legend(fig, axes[0])
-    fig.suptitle(f"stratified bootstrap intervals over {_seeds_text(data)} per task", fontsize=8)
-    fig.tight_layout(rect=(0, 0, 1, top))
+    _suptitle(fig, f"stratified bootstrap intervals over {_seeds_text(data)} per task")
+    _fit_grid(fig, axes, len(groups), top)
     return fig
 
 
@@ -148,18 +151,17 @@ def difference_figure(
         part = parts.get(task, data.iloc[:0])
         zero_at = _size_axis(ax, sorted(set(part["size"])))
         ax.axhline(0, color="black", lw=0.7)
+        by_arm = dict(tuple(part.groupby("arm", sort=False)))
         for arm in arms:
-            rows = part[part["arm"] == arm]
-            if len(rows):
+            rows = by_arm.get(arm)
+            if rows is not None:
                 _draw_arm(ax, rows, arm, styles[arm], False, zero_at, value="difference")
         ax.set_title("mean over tasks" if task == "all" else task)
         ax.set_xlabel("episodes (log scale)")
         ax.set_ylabel(f"{unit} minus {baseline}")
     top = _legend(fig, axes[0])
-    fig.suptitle(
-        _heading(heading) + f"paired by seed; intervals over {_seeds_text(data)}", fontsize=8
-    )
-    fig.tight_layout(rect=(0, 0, 1, top))
+    _suptitle(fig, _heading(heading) + f"paired by seed; intervals over {_seeds_text(data)}")
+    _fit_grid(fig, axes, len(tasks), top)
     return fig
 
 

@@ -1,4 +1,5 @@
-"""Long tables of the report kept readable: a summary first, the full table behind it.
+"""The report's long tables (curves, transfer) kept readable: a summary first, the full table
+behind it.
 
 A table of more than :data:`LONG_ROWS` rows (40 tasks × 8 arms × 9 sizes gives thousands) is shown
 as a short summary read off the reports (never a statistic computed here) followed by the full
@@ -67,6 +68,8 @@ def wide_cells(
 
 
 def transfer_section(cmp: CompareReport) -> str:
+    """The report's transfer tables (differences, P(improvement), effective data; episodes to the
+    threshold; areas), each long one behind its summary."""
     t = cmp.table
     over = t[t["task"] == "all"]
     if len(over):
@@ -133,6 +136,7 @@ def largest(table: pd.DataFrame) -> pd.DataFrame:
 
 
 def curve_section(rep: StudyReports) -> str:
+    """The report's curve table, behind the across-task IQM (or the curves' ends) when long."""
     curves = rep.curves
     if rep.aggregate is not None:
         t = rep.aggregate.table
