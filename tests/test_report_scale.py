@@ -343,3 +343,54 @@ def test_report_reuses_its_iqm_for_the_scaling_view(tmp_path, study_file):
     row = alone.scaling[(alone.scaling["arm"] == "wide") & (alone.scaling["size"] == 10)].iloc[0]
     seeds = [values[f"wide/reach/n10/s{s}"] / 100 for s in (0, 1, 2)]
     assert row["estimate"] == pytest.approx(stats.trim_mean(seeds, 0.25), rel=1e-12)
+
+
+def test_plot_writes_a_page_of_a_many_task_figure_or_every_page_into_a_pdf(
+    wide_ledger, tmp_path, cli
+):
+    url, _ = wide_ledger
+    png = tmp_path / "curves.png"
+    first = cli("plot", "--ledger", url, "--kind", "curves", "--out", png, "--resamples", "200")
+    assert first.exit_code == 0, first.output
+    assert "page 1 of 2 (group early)" in " ".join(first.output.split())
+    assert png.read_bytes().startswith(b"\x89PNG")
+    second = cli(
+        "plot", "--ledger", url, "--kind", "curves", "--out", tmp_path / "p2.png", "--page", "2"
+    )
+    assert second.exit_code == 0 and "page 2 of 2 (group late)" in " ".join(second.output.split())
+    # a page the figure does not have: a message, exit 2, nothing written
+    bad = cli(
+        "plot", "--ledger", url, "--kind", "curves", "--out", tmp_path / "p3.png", "--page", "3"
+    )
+    assert bad.exit_code == 2 and "--page 3: this figure has 2 pages" in bad.output
+    assert not (tmp_path / "p3.png").exists()
+    # a PDF holds every page: each page is a /Type /Page object (ISO 32000-1, 7.7.3.3)
+    pdf = tmp_path / "curves.pdf"
+    every = cli("plot", "--ledger", url, "--kind", "curves", "--out", pdf, "--resamples", "200")
+    assert every.exit_code == 0, every.output
+    assert len(re.findall(rb"/Type\s*/Page(?![A-Za-z])", pdf.read_bytes())) == 2
+    refused = cli("plot", "--ledger", url, "--kind", "curves", "--out", pdf, "--page", "1")
+    assert refused.exit_code == 2 and "a .pdf holds every page" in refused.output
+    # a one-page figure has no page 2
+    one = cli(
+        "plot", "--ledger", url, "--kind", "summary", "--out", tmp_path / "s.png", "--page", "2"
+    )
+    assert one.exit_code == 2 and "this figure has 1 page." in one.output
+
+
+def test_make_figures_pages_like_panel_pages(wide_ledger):
+    import fewshot
+    from fewshot.plots.layout import panel_pages
+
+    url, _ = wide_ledger
+    led = fewshot.Ledger.open(url)
+    try:
+        data = fewshot.read_study(led)
+    finally:
+        led.close()
+    settings = fewshot.CurveSettings(resamples=200)
+    pages = fewshot.make_figures(data, "curves", settings, per_page=5)
+    groups = dict(zip(data.tasks["task"], data.tasks["group"], strict=True))
+    want = panel_pages(list(data.tasks["task"]), groups, per_page=5)
+    assert [label for label, _ in pages] == [label for label, _ in want]
+    assert len(fewshot.make_figures(data, "summary", settings)) == 1

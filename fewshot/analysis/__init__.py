@@ -22,7 +22,13 @@ from fewshot.analysis.data import (
     score_tables,
     study_scores,
 )
-from fewshot.analysis.figures import FIGURE_KINDS, compare_figure, curve_figure, make_figure
+from fewshot.analysis.figures import (
+    FIGURE_KINDS,
+    compare_figure,
+    curve_figure,
+    make_figure,
+    make_figures,
+)
 from fewshot.analysis.findings import (
     DEFAULT_THRESHOLD,
     Finding,
@@ -81,6 +87,7 @@ __all__ = [
     "json_records",
     "load_scores",
     "make_figure",
+    "make_figures",
     "read_study",
     "score_tables",
     "seeds_json",

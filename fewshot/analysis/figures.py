@@ -25,6 +25,7 @@ __all__ = [
     "curve_figure",
     "compare_figure",
     "figure_pages",
+    "make_figures",
     "make_figure",
 ]
 
@@ -152,7 +153,7 @@ def figure_pages(
     from fewshot.plots.layout import panel_pages
 
     if kind not in ("curves", "difference"):
-        raise InvalidInput(f"kind must be curves or difference for pages. Got {kind!r}.")
+        raise InvalidInput(f"`kind` must be curves or difference for pages. Got {kind!r}.")
     table = report.table
     if kind == "difference":
         table = table.dropna(subset=["difference"])
@@ -209,8 +210,49 @@ def make_figure(
 
     ``source`` is a ledger (read once) or a study already read; only the report the figure needs
     is computed. Panel figures (curves, aggregate, difference) draw into ``fig``, one-panel
-    figures onto ``ax``, when given.
+    figures onto ``ax``, when given. Every task is on the one figure; :func:`make_figures` pages
+    a per-task figure of many tasks.
     """
+    data, rep = _figure_report(
+        source, kind, settings, metric, select, normalised, baseline, by_group
+    )
+    if isinstance(rep, CurveReport):
+        return curve_figure(rep, data, fig=fig)
+    return compare_figure(kind, rep, data, size=size, ax=ax, fig=fig)
+
+
+def make_figures(
+    source: Ledger | StudyData,
+    kind: str,
+    settings: CurveSettings,
+    *,
+    metric: str | None = None,
+    select: str = "final",
+    normalised: bool = False,
+    baseline: str | None = None,
+    size: int | None = None,
+    by_group: bool = False,
+    per_page: int = PAGE_PANELS,
+) -> list[tuple[str, Figure]]:
+    """The figure of :func:`make_figure` as pages ``(label, figure)``: a per-task figure
+    (``curves`` of per-task curves, ``difference``) in pages of at most ``per_page`` panels by
+    task group (:func:`figure_pages`), any other figure as one page with an empty label."""
+    data, rep = _figure_report(
+        source, kind, settings, metric, select, normalised, baseline, by_group
+    )
+    if isinstance(rep, CurveReport):
+        if rep.kind == "per-task":
+            return figure_pages("curves", rep, data, per_page=per_page)
+        return [("", curve_figure(rep, data))]
+    if kind == "difference":
+        return figure_pages("difference", rep, data, per_page=per_page)
+    return [("", compare_figure(kind, rep, data, size=size))]
+
+
+def _figure_report(  # type: ignore[no-untyped-def]
+    source, kind, settings, metric, select, normalised, baseline, by_group
+) -> tuple[StudyData, CurveReport | CompareReport]:
+    """The study and the one report a figure of ``kind`` is drawn from."""
     _check_kind(kind)
     data = as_study_data(source)
     if kind in CURVE_KINDS:
@@ -223,6 +265,5 @@ def make_figure(
             across_tasks=kind == "aggregate" and not by_group,
             by_group=kind == "aggregate" and by_group,
         )
-        return curve_figure(rep, data, fig=fig)
-    cmp = compare_report(data, settings, baseline=baseline, metric=metric, select=select)
-    return compare_figure(kind, cmp, data, size=size, ax=ax, fig=fig)
+        return data, rep
+    return data, compare_report(data, settings, baseline=baseline, metric=metric, select=select)

@@ -256,21 +256,33 @@ def plot(
     by_group: Annotated[
         bool, typer.Option("--by-group", help="Aggregate per task group (--kind aggregate).")
     ] = False,
+    page: Annotated[
+        int | None,
+        typer.Option(
+            "--page",
+            min=1,
+            help="Which page of a per-task figure of many tasks (12 panels a page, by task group) "
+            "to write as PNG/SVG; a .pdf holds every page.",
+        ),
+    ] = None,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
     stats: StatsOptions,
 ) -> None:
     """Draw one figure of the study to a PNG, SVG or PDF file."""
-    from fewshot.analysis import make_figure, study_data
-    from fewshot.plots import save_figure
+    from fewshot.analysis import make_figures, study_data
+    from fewshot.plots import save_figure, save_pages
 
-    with reporting(STATS_FLAGS):
+    with reporting({**STATS_FLAGS, "page": "--page"}):
         settings = stats.settings()
+        pdf = out_file.suffix.lower() == ".pdf"
         if out_file.suffix.lower() not in (".png", ".svg", ".pdf"):
             raise InvalidInput(f"{out_file}: --out must end in .png, .svg or .pdf.")
+        if pdf and page is not None:
+            raise InvalidInput("--page is for .png and .svg files: a .pdf holds every page.")
         led = open_ledger(ledger, study)
         try:
-            fig = make_figure(
+            pages = make_figures(
                 study_data(led, include_running=stats.include_running),
                 kind,
                 settings,
@@ -283,8 +295,27 @@ def plot(
             )
         finally:
             led.close()
-        path = save_figure(fig, out_file)
-    out.print(f"wrote {path}")
+        n = len(pages)
+        if pdf and n > 1:
+            path = save_pages([fig for _, fig in pages], out_file)
+        else:
+            k = page or 1
+            if k > n:
+                raise InvalidInput(
+                    f"--page {k}: this figure has {n} page{'s' if n > 1 else ''}. "
+                    f"Pick one from 1 to {n}."
+                )
+            path = save_figure(pages[k - 1][1], out_file)
+    if n > 1 and not pdf:
+        label = pages[(page or 1) - 1][0]
+        out.print(
+            f"wrote {path}: page {page or 1} of {n} ({label}). The others: --page 1 to {n}, "
+            "or --out a .pdf file for every page in one file."
+        )
+    elif n > 1:
+        out.print(f"wrote {path} ({n} pages: {'; '.join(label for label, _ in pages)})")
+    else:
+        out.print(f"wrote {path}")
 
 
 @statistics_options(metric=False)

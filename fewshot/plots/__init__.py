@@ -20,6 +20,7 @@ from fewshot.plots.layout import (
     STYLE,
     arm_colours,
     save_figure,
+    save_pages,
     style_context,
     styled,
 )
@@ -35,6 +36,7 @@ __all__ = [
     "difference_figure",
     "profile_figure",
     "save_figure",
+    "save_pages",
     "scaling_figure",
     "style_context",
     "styled",

@@ -312,6 +312,19 @@ def _legend(fig: Figure, ax) -> float:  # type: ignore[no-untyped-def]
 
 
 @styled
+def save_pages(figs: Sequence[Figure], path: str | Path) -> Path:
+    """Write figures as the pages of one PDF file (all or nothing: a temporary name, then moved)."""
+    from matplotlib.backends.backend_pdf import PdfPages
+
+    p = Path(path)
+    if p.suffix.lower() != ".pdf":
+        raise InvalidInput(f"{p}: pages go into one .pdf file; got {p.suffix or 'no suffix'!r}.")
+    with replacing(p, what="figure") as tmp, PdfPages(tmp, metadata={"CreationDate": None}) as pdf:
+        for fig in figs:
+            pdf.savefig(fig)
+    return p
+
+
 def save_figure(fig: Figure, path: str | Path, *, dpi: int = 200) -> Path:
     """Write a figure as PNG, SVG or PDF by the file's suffix; written to a temporary name, then moved."""
     p = Path(path)
