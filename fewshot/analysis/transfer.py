@@ -156,6 +156,7 @@ def compare_scores(
         thresholds = threshold_sizes(normed, threshold, settings)
         areas = curve_areas(normed, settings)
         headline = performance_profile(normed, settings, taus=np.array([threshold]), over="tasks")
+        notes.extend(dict.fromkeys(n for n in headline["note"] if n))  # why no interval there
         if arm_table is not None:
             try:
                 # the scaling view reads the IQM only: the other aggregates are not computed

@@ -28,7 +28,7 @@ from fewshot.stats.transfer import (
     threshold_sizes,
 )
 
-__all__ = ["QUANTITIES", "study_intervals", "coverage_table"]
+__all__ = ["QUANTITIES", "WITHOUT_INTERVAL", "study_intervals", "coverage_table"]
 
 QUANTITIES = (
     "cell mean",
@@ -44,13 +44,14 @@ QUANTITIES = (
     "difference over tasks",
     "P(improvement) per task",
     "P(improvement) over tasks",
-    "effective data",
-    "data transferred",
+    "effective data",  # and D_T = D_E - n: the same interval shifted by n, so the same coverage
     "data multiplier",
     "episodes to threshold",
     "area under curve",
     "fraction of tasks above",
 )
+# printed as an estimate only, with the reason (fewshot.stats.profiles.NO_TASK_INTERVAL)
+WITHOUT_INTERVAL = ("fraction of tasks above",)
 
 
 def _rows(quantity: str, low, high, truth) -> pd.DataFrame:  # type: ignore[no-untyped-def]
@@ -143,9 +144,6 @@ def study_intervals(
         n = eff["size"].to_numpy(dtype=float)
         parts.append(_rows("effective data", eff["effective_low"], eff["effective_high"], d_e))
         parts.append(
-            _rows("data transferred", eff["transferred_low"], eff["transferred_high"], d_e - n)
-        )
-        parts.append(
             _rows("data multiplier", eff["multiplier_low"], eff["multiplier_high"], d_e / n)
         )
         thr = threshold_sizes(scores, sc.threshold, settings)
@@ -182,7 +180,8 @@ def study_intervals(
 
 
 def summarise(rows: pd.DataFrame) -> dict[str, float]:
-    """Coverage, mean finite width, degenerate share and no-interval share of interval rows."""
+    """Coverage (overall and where the truth is finite), share of infinite truths, mean finite
+    width, degenerate share and no-interval share of interval rows."""
     printed = rows["low"].notna() & rows["high"].notna()
     p = rows[printed]
     tol = 1e-9 * np.maximum(1.0, np.abs(p["truth"].where(np.isfinite(p["truth"]), 0.0)))
@@ -190,8 +189,13 @@ def summarise(rows: pd.DataFrame) -> dict[str, float]:
         np.isinf(p["truth"]) & (p["high"] == p["truth"])
     )
     width = (p["high"] - p["low"]).to_numpy()
+    finite = np.isfinite(p["truth"]).to_numpy()
     return {
         "coverage": float(inside.mean()) if len(p) else float("nan"),
+        # sizes whose truth lies beyond the ladder (inf) are held by every interval reaching it:
+        # the coverage where the truth is finite shows how the rest fare
+        "finite_coverage": float(inside[finite].mean()) if finite.any() else float("nan"),
+        "infinite_truth": float(np.mean(~finite)) if len(p) else float("nan"),
         "width": float(np.mean(width[np.isfinite(width)]))
         if np.isfinite(width).any()
         else float("nan"),
@@ -213,7 +217,8 @@ def coverage_table(
 ) -> pd.DataFrame:
     """Coverage of every printed quantity per (seeds, noise) over ``studies`` synthetic studies.
 
-    Columns: quantity, seeds, noise, coverage, width, degenerate, no_interval, intervals, studies.
+    Columns: quantity, seeds, noise, coverage, finite_coverage, infinite_truth, width, degenerate,
+    no_interval, intervals, studies.
     """
     sc = scenario or default_scenario()
     rng = np.random.default_rng(rng_seed)
