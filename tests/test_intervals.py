@@ -210,7 +210,7 @@ def test_probability_of_improvement_is_brunner_munzels_relative_effect():
 def test_newcombe_interval_covers_near_nominal_at_five_runs(theta):
     # independent normal runs shifted by delta: P(X > Y) = Phi(delta / sqrt 2) (scipy.stats.norm);
     # 4000 studies of 5 runs a side (Monte Carlo error about 0.35 points). Measured: 92-95% over
-    # theta in 0.5-0.99 (the equal-tailed interval: 93-97%); U takes few values at 5 runs, so the
+    # theta in 0.5-0.99 (the equal-tailed interval: 94-97%); U takes few values at 5 runs, so the
     # coverage jumps with theta, and the bounds are loose accordingly
     rng = np.random.default_rng(int(theta * 1000))
     delta = np.sqrt(2) * stats.norm.ppf(theta)

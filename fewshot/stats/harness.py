@@ -65,6 +65,22 @@ def _rows(quantity: str, low, high, truth) -> pd.DataFrame:  # type: ignore[no-u
     )
 
 
+def _per_task_and_over(name: str, table: pd.DataFrame, sc: Scenario, truth) -> list[pd.DataFrame]:  # type: ignore[no-untyped-def]
+    """Rows "<name> per task" and "<name> over tasks" (task "all": the mean of the tasks' truths)."""
+    truths = np.array(
+        [
+            np.mean([truth(a, k, int(n)) for k in (list(sc.tasks) if t == "all" else [t])])
+            for a, t, n in zip(table["arm"], table["task"], table["size"], strict=True)
+        ]
+    )
+    over = (table["task"] == "all").to_numpy()
+    low, high = table["low"].to_numpy(), table["high"].to_numpy()
+    return [
+        _rows(f"{name} per task", low[~over], high[~over], truths[~over]),
+        _rows(f"{name} over tasks", low[over], high[over], truths[over]),
+    ]
+
+
 def study_intervals(
     scores: pd.DataFrame, sc: Scenario, noise: str, settings: CurveSettings
 ) -> pd.DataFrame:
@@ -107,32 +123,15 @@ def study_intervals(
                     )
                 )
         diff = paired_differences(scores, base, settings, value="normalised")
-        truth_list = []
-        for a, t, n in zip(diff["arm"], diff["task"], diff["size"], strict=True):
-            tasks = list(sc.tasks) if t == "all" else [t]
-            truth_list.append(
-                np.mean([sc.mean(a, k, [n])[0] - sc.mean(base, k, [n])[0] for k in tasks])
-            )
-        over = (diff["task"] == "all").to_numpy()
-        truth = np.array(truth_list)
-        parts.append(
-            _rows("difference per task", diff["low"][~over], diff["high"][~over], truth[~over])
-        )
-        parts.append(
-            _rows("difference over tasks", diff["low"][over], diff["high"][over], truth[over])
+        parts += _per_task_and_over(
+            "difference",
+            diff,
+            sc,
+            lambda a, k, n: sc.mean(a, k, [n])[0] - sc.mean(base, k, [n])[0],
         )
         poi = probability_of_improvement_table(scores, base, settings, value="normalised")
-        truth_list = []
-        for a, t, n in zip(poi["arm"], poi["task"], poi["size"], strict=True):
-            tasks = list(sc.tasks) if t == "all" else [t]
-            truth_list.append(np.mean([sc.truth_poi(a, k, int(n), noise) for k in tasks]))
-        over = (poi["task"] == "all").to_numpy()
-        truth = np.array(truth_list)
-        parts.append(
-            _rows("P(improvement) per task", poi["low"][~over], poi["high"][~over], truth[~over])
-        )
-        parts.append(
-            _rows("P(improvement) over tasks", poi["low"][over], poi["high"][over], truth[over])
+        parts += _per_task_and_over(
+            "P(improvement)", poi, sc, lambda a, k, n: sc.truth_poi(a, k, n, noise)
         )
         eff = effective_data(scores, base, settings, value="score")
         d_e = np.array(
