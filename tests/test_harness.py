@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from fewshot.stats.harness import QUANTITIES, coverage_table
+from fewshot.stats.harness import QUANTITIES, WITHOUT_INTERVAL, coverage_table
 from fewshot.stats.simulate import default_scenario
 
 
@@ -27,9 +27,13 @@ def test_every_printed_interval_covers_at_three_normal_seeds(table):
     normal, _ = table
     assert set(normal["quantity"]) == set(QUANTITIES)
     for _, r in normal.iterrows():
+        if r["quantity"] in WITHOUT_INTERVAL:  # printed bare, with the reason
+            assert r["intervals"] == 0 and r["no_interval"] == 1.0, r["quantity"]
+            continue
         assert r["intervals"] > 0, r["quantity"]
-        # nominal 95%; the old percentile aggregates (77-86%) and P(improvement) (36%) fail this
-        assert 0.87 <= r["coverage"] <= 1.0, (r["quantity"], r["coverage"])
+        # nominal 95%; the old percentile aggregates (77-86%) and P(improvement) (36%) fail this,
+        # and so does an interval far too wide (the old fraction of tasks above held 99-100%)
+        assert 0.87 <= r["coverage"] <= 0.995, (r["quantity"], r["coverage"])
 
 
 def test_no_degenerate_probability_of_improvement(table):
@@ -41,7 +45,7 @@ def test_no_degenerate_probability_of_improvement(table):
 
 def test_two_mode_noise_at_five_seeds_stays_near_nominal(table):
     _, skewed = table
-    for _, r in skewed.iterrows():
+    for _, r in skewed[~skewed["quantity"].isin(WITHOUT_INTERVAL)].iterrows():
         assert r["coverage"] >= 0.82, (r["quantity"], r["coverage"])
 
 

@@ -13,17 +13,17 @@ SIZES = np.array([1.0, 3.0, 10.0, 30.0, 100.0])
 
 def brute_force(curve, level, sizes, confidence, points=20_001):
     """Accept every log size on a fine grid where scipy's one-sample t test of the interpolated
-    per-seed differences does not reject zero; add the regions beyond the ladder by the same test
-    at its ends (monotone curve)."""
+    per-seed differences does not reject zero; add the regions beyond the ladder by scipy's
+    one-sided test at its ends (monotone curve: only one direction can reject there)."""
     x = np.log(sizes)
     grid = np.linspace(x[0], x[-1], points)
     g = curve - level[:, None]
     per_seed = np.stack([np.interp(grid, x, row) for row in g])  # seeds × grid
     p = stats.ttest_1samp(per_seed, 0.0, axis=0).pvalue
     kept = grid[p >= 1 - confidence]
-    end_lo, end_hi = (stats.ttest_1samp(g[:, i], 0.0) for i in (0, -1))
-    below_kept = not (end_lo.pvalue < 1 - confidence and g[:, 0].mean() < 0)
-    above_kept = not (end_hi.pvalue < 1 - confidence and g[:, -1].mean() > 0)
+    # beyond the ends the test rejects in one direction only: scipy's one-sided t test
+    below_kept = stats.ttest_1samp(g[:, 0], 0.0, alternative="less").pvalue >= 1 - confidence
+    above_kept = stats.ttest_1samp(g[:, -1], 0.0, alternative="greater").pvalue >= 1 - confidence
     low = 0.0 if below_kept else (np.exp(kept.min()) if kept.size else sizes[-1])
     high = np.inf if above_kept else (np.exp(kept.max()) if kept.size else sizes[0])
     return low, high, (grid[1] - grid[0])

@@ -12,7 +12,7 @@ from fewshot.errors import InvalidInput
 from fewshot.stats import CurveSettings
 from fewshot.stats.isotonic import isotonic_rows
 from fewshot.stats.power import seeds_needed, seeds_table, welch_power
-from fewshot.stats.profiles import performance_profile, scaling_view
+from fewshot.stats.profiles import NO_TASK_INTERVAL, performance_profile, scaling_view
 from fewshot.stats.transfer import (
     curve_areas,
     effective_data,
@@ -203,7 +203,7 @@ def test_seeds_table_from_a_pilot():
     frame = curves_frame(lambda arm, n: 0.5, sizes=(10,), seeds=6, noise=0.1)
     table = seeds_table(frame, "scratch", effect=0.1, value="score")
     assert table["pilot_seeds"].tolist() == [6] and table["seeds_needed"].iloc[0] > 6
-    with pytest.raises(InvalidInput, match="^effect must be"):
+    with pytest.raises(InvalidInput, match="^`effect` must be"):
         seeds_table(frame, "scratch", effect=0, value="score")
 
 
@@ -216,6 +216,9 @@ def test_performance_profile_and_headline():
     )
     got = prof.set_index("arm")["fraction"]
     assert got["wide"] == 1.0 and got["scratch"] == 0.0
+    # a fraction of tasks is printed without an interval, and says why
+    assert prof["low"].isna().all() and prof["high"].isna().all()
+    assert (prof["note"] == NO_TASK_INTERVAL).all()
     runs = performance_profile(frame, CurveSettings(resamples=200), taus=np.array([0.0, 0.5, 1.0]))
     wide = runs[runs.arm == "wide"].set_index("tau")["fraction"]
     assert wide[0.0] == 1.0 and wide[0.5] == 1.0 and wide[1.0] == 0.0

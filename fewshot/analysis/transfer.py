@@ -181,6 +181,7 @@ def compare_scores(
         thresholds = threshold_sizes(normed, threshold, settings)
         areas = curve_areas(normed, settings)
         headline = performance_profile(normed, settings, taus=np.array([threshold]), over="tasks")
+        notes.extend(dict.fromkeys(n for n in headline["note"] if n))  # why no interval there
         if arm_table is not None and _has_scaling_attribute(arm_table):
             # the scaling view reads the IQM only: the other aggregates are not computed (or
             # not again, when the caller computed them over the same scores)
@@ -235,7 +236,8 @@ def compare_scores(
             "comparison has 1 seed: at least 2 needed (estimates shown without intervals)"
         )
     notes.append(
-        "intervals: P(improvement) by Newcombe's score method; effective data and episodes to the "
+        "intervals: P(improvement) by Newcombe's score method per task, MOVER over tasks; "
+        "effective data and episodes to the "
         "threshold by inverting a paired t test over sizes; areas by Student's t over seeds "
         "(coverage measured by simulation: see the README)"
     )

@@ -174,7 +174,9 @@ def _comparison(rep: StudyReports, cmp: Any) -> dict[str, str]:
     out["measures"] = (
         "Effective data transferred is read off an isotonic fit of the baseline's curve on log size "
         "(Hernandez et al. 2021); probability of improvement counts ties as one half (Agarwal et al. "
-        "2021) and gets Newcombe's (2006) score interval. Intervals of effective data and of "
+        "2021) and gets Newcombe's (2006) score interval per task (one-sided where one side cannot "
+        "reject), combined over tasks by MOVER (Zou and Donner 2008); the fraction of tasks above "
+        "the threshold is an estimate without an interval. Intervals of effective data and of "
         "episodes to the threshold are the sizes at which a paired t test over seeds does not tell "
         "the two curves (or the curve and the threshold) apart; areas get Student's t over seeds' "
         "areas (none of these resample). Words such as 'hurts', 'helps', '>=', 'already there' and "

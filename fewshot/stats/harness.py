@@ -28,7 +28,7 @@ from fewshot.stats.transfer import (
     threshold_sizes,
 )
 
-__all__ = ["QUANTITIES", "study_intervals", "coverage_table"]
+__all__ = ["QUANTITIES", "WITHOUT_INTERVAL", "study_intervals", "coverage_table"]
 
 QUANTITIES = (
     "cell mean",
@@ -44,13 +44,14 @@ QUANTITIES = (
     "difference over tasks",
     "P(improvement) per task",
     "P(improvement) over tasks",
-    "effective data",
-    "data transferred",
+    "effective data",  # and D_T = D_E - n: the same interval shifted by n, so the same coverage
     "data multiplier",
     "episodes to threshold",
     "area under curve",
     "fraction of tasks above",
 )
+# printed as an estimate only, with the reason (fewshot.stats.profiles.NO_TASK_INTERVAL)
+WITHOUT_INTERVAL = ("fraction of tasks above",)
 
 
 def _rows(quantity: str, low, high, truth) -> pd.DataFrame:  # type: ignore[no-untyped-def]
@@ -62,6 +63,22 @@ def _rows(quantity: str, low, high, truth) -> pd.DataFrame:  # type: ignore[no-u
             "truth": np.asarray(truth, dtype=float),
         }
     )
+
+
+def _per_task_and_over(name: str, table: pd.DataFrame, sc: Scenario, truth) -> list[pd.DataFrame]:  # type: ignore[no-untyped-def]
+    """Rows "<name> per task" and "<name> over tasks" (task "all": the mean of the tasks' truths)."""
+    truths = np.array(
+        [
+            np.mean([truth(a, k, int(n)) for k in (list(sc.tasks) if t == "all" else [t])])
+            for a, t, n in zip(table["arm"], table["task"], table["size"], strict=True)
+        ]
+    )
+    over = (table["task"] == "all").to_numpy()
+    low, high = table["low"].to_numpy(), table["high"].to_numpy()
+    return [
+        _rows(f"{name} per task", low[~over], high[~over], truths[~over]),
+        _rows(f"{name} over tasks", low[over], high[over], truths[over]),
+    ]
 
 
 def study_intervals(
@@ -106,32 +123,15 @@ def study_intervals(
                     )
                 )
         diff = paired_differences(scores, base, settings, value="normalised")
-        truth_list = []
-        for a, t, n in zip(diff["arm"], diff["task"], diff["size"], strict=True):
-            tasks = list(sc.tasks) if t == "all" else [t]
-            truth_list.append(
-                np.mean([sc.mean(a, k, [n])[0] - sc.mean(base, k, [n])[0] for k in tasks])
-            )
-        over = (diff["task"] == "all").to_numpy()
-        truth = np.array(truth_list)
-        parts.append(
-            _rows("difference per task", diff["low"][~over], diff["high"][~over], truth[~over])
-        )
-        parts.append(
-            _rows("difference over tasks", diff["low"][over], diff["high"][over], truth[over])
+        parts += _per_task_and_over(
+            "difference",
+            diff,
+            sc,
+            lambda a, k, n: sc.mean(a, k, [n])[0] - sc.mean(base, k, [n])[0],
         )
         poi = probability_of_improvement_table(scores, base, settings, value="normalised")
-        truth_list = []
-        for a, t, n in zip(poi["arm"], poi["task"], poi["size"], strict=True):
-            tasks = list(sc.tasks) if t == "all" else [t]
-            truth_list.append(np.mean([sc.truth_poi(a, k, int(n), noise) for k in tasks]))
-        over = (poi["task"] == "all").to_numpy()
-        truth = np.array(truth_list)
-        parts.append(
-            _rows("P(improvement) per task", poi["low"][~over], poi["high"][~over], truth[~over])
-        )
-        parts.append(
-            _rows("P(improvement) over tasks", poi["low"][over], poi["high"][over], truth[over])
+        parts += _per_task_and_over(
+            "P(improvement)", poi, sc, lambda a, k, n: sc.truth_poi(a, k, n, noise)
         )
         eff = effective_data(scores, base, settings, value="score")
         d_e = np.array(
@@ -142,9 +142,6 @@ def study_intervals(
         )
         n = eff["size"].to_numpy(dtype=float)
         parts.append(_rows("effective data", eff["effective_low"], eff["effective_high"], d_e))
-        parts.append(
-            _rows("data transferred", eff["transferred_low"], eff["transferred_high"], d_e - n)
-        )
         parts.append(
             _rows("data multiplier", eff["multiplier_low"], eff["multiplier_high"], d_e / n)
         )
@@ -182,7 +179,8 @@ def study_intervals(
 
 
 def summarise(rows: pd.DataFrame) -> dict[str, float]:
-    """Coverage, mean finite width, degenerate share and no-interval share of interval rows."""
+    """Coverage (overall and where the truth is finite), share of infinite truths, mean finite
+    width, degenerate share and no-interval share of interval rows."""
     printed = rows["low"].notna() & rows["high"].notna()
     p = rows[printed]
     tol = 1e-9 * np.maximum(1.0, np.abs(p["truth"].where(np.isfinite(p["truth"]), 0.0)))
@@ -190,8 +188,13 @@ def summarise(rows: pd.DataFrame) -> dict[str, float]:
         np.isinf(p["truth"]) & (p["high"] == p["truth"])
     )
     width = (p["high"] - p["low"]).to_numpy()
+    finite = np.isfinite(p["truth"]).to_numpy()
     return {
         "coverage": float(inside.mean()) if len(p) else float("nan"),
+        # sizes whose truth lies beyond the ladder (inf) are held by every interval reaching it:
+        # the coverage where the truth is finite shows how the rest fare
+        "finite_coverage": float(inside[finite].mean()) if finite.any() else float("nan"),
+        "infinite_truth": float(np.mean(~finite)) if len(p) else float("nan"),
         "width": float(np.mean(width[np.isfinite(width)]))
         if np.isfinite(width).any()
         else float("nan"),
@@ -213,7 +216,8 @@ def coverage_table(
 ) -> pd.DataFrame:
     """Coverage of every printed quantity per (seeds, noise) over ``studies`` synthetic studies.
 
-    Columns: quantity, seeds, noise, coverage, width, degenerate, no_interval, intervals, studies.
+    Columns: quantity, seeds, noise, coverage, finite_coverage, infinite_truth, width, degenerate,
+    no_interval, intervals, studies.
     """
     sc = scenario or default_scenario()
     rng = np.random.default_rng(rng_seed)

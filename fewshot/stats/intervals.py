@@ -17,6 +17,11 @@ Newcombe score interval (probability of improvement)
     inverted as a score interval: all theta with ``(A - theta)^2 <= z^2 V(theta)``. Never a single
     point, also when every run of one arm beats every run of the other. At theta = 1/2 the variance is
     the null variance of U, ``(m + n + 1) / (12 m n)`` (checked against ``scipy.stats.mannwhitneyu``).
+MOVER (means over tasks of per-task intervals, e.g. P(improvement) over tasks)
+    Zou & Donner (2008): the limits of a sum of independent estimates from each one's own
+    limits, square-and-add (Newcombe 1998, method 10, for a difference of two proportions).
+    Chosen over a common-theta Newcombe variance summed over tasks, which covered 97-98% at 5
+    seeds (too wide); the same width placed by each task's own skew covers near 95%.
 """
 
 from __future__ import annotations
@@ -31,7 +36,7 @@ __all__ = [
     "stratified_mean_t",
     "newcombe_variance",
     "newcombe_interval",
-    "newcombe_mean_interval",
+    "mover_mean_interval",
     "huge_scale",
     "cell_scale",
     "row_scale",
@@ -186,23 +191,41 @@ def newcombe_variance(theta: np.ndarray, m: np.ndarray, n: np.ndarray) -> np.nda
 
 
 def _score_roots(
-    estimate: np.ndarray, variance, z: float, iterations: int = 60
+    estimate: np.ndarray, variance, confidence: float, iterations: int = 60
 ) -> tuple[np.ndarray, np.ndarray]:  # type: ignore[no-untyped-def]
-    """All theta in [0, 1] with (estimate - theta)^2 <= z^2 variance(theta), by bisection on each
-    side of the estimate (the score function is zero at 0 and 1, so each side has one crossing)."""
-    est = np.clip(np.asarray(estimate, dtype=float), 0.0, 1.0)
+    """The theta in [0, 1] that a score test of "P = theta" does not reject, by bisection on each
+    side of the estimate.
 
-    def inside(t: np.ndarray) -> np.ndarray:
-        return (est - t) ** 2 <= z**2 * variance(t)
+    The test rejects when ``(estimate - theta)^2 > z^2 variance(theta)``, z the two-sided normal
+    quantile, except where one of its sides can reject no attainable estimate (near theta = 1 even
+    an estimate of 1 lies within ``theta + z sqrt(variance)``; near 0 likewise for 0): the test is
+    then one-sided, with the whole error rate 1 - confidence on the side that can reject. An
+    equal-tailed test there spends half its error rate where no outcome lies, and near 0 and 1
+    covers 97.5% instead of 95% (measured by the harness); a test whose tails follow the
+    outcomes that can occur is the principle of Sterne (1954) and Blaker (2000) for discrete
+    statistics. Each test keeps its level, so the set keeps its confidence."""
+    est = np.clip(np.asarray(estimate, dtype=float), 0.0, 1.0)
+    z2 = float(special.ndtri(0.5 + confidence / 2))
+    z1 = float(special.ndtri(confidence))
+
+    def inside(t: np.ndarray, upper: bool) -> np.ndarray:
+        """Is theta = t (above the estimate when ``upper``) not rejected?"""
+        v = variance(t)
+        # theta above the estimate is rejected by the test's lower tail (estimates too low); it
+        # takes the whole error rate when the upper tail is empty (an estimate of 1 is accepted)
+        far = (1 - t if upper else t) ** 2 <= z2 * z2 * v  # the other tail holds no outcome
+        near = (t if upper else 1 - t) ** 2 > z2 * z2 * v  # this tail holds some
+        z = np.where(far & near, z1, z2)
+        return (est - t) ** 2 <= z * z * v
 
     lo_a, lo_b = np.zeros_like(est), est.copy()  # lo_a outside (or 0), lo_b inside
     hi_a, hi_b = est.copy(), np.ones_like(est)  # hi_a inside, hi_b outside (or 1)
     for _ in range(iterations):
         mid = (lo_a + lo_b) / 2
-        ok = inside(mid)
+        ok = inside(mid, upper=False)
         lo_b, lo_a = np.where(ok, mid, lo_b), np.where(ok, lo_a, mid)
         mid = (hi_a + hi_b) / 2
-        ok = inside(mid)
+        ok = inside(mid, upper=True)
         hi_a, hi_b = np.where(ok, mid, hi_a), np.where(ok, hi_b, mid)
     low = np.where(est <= 0, 0.0, lo_b)
     high = np.where(est >= 1, 1.0, hi_a)
@@ -212,29 +235,34 @@ def _score_roots(
 def newcombe_interval(
     estimate: np.ndarray, m: np.ndarray, n: np.ndarray, confidence: float
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Newcombe's (2006) method-5 score interval for P(X > Y) from ``m`` and ``n`` runs."""
-    z = float(special.ndtri(0.5 + confidence / 2))
+    """Newcombe's (2006) method-5 score interval for P(X > Y) from ``m`` and ``n`` runs, one-sided
+    where only one side of the test can reject (see :func:`_score_roots`)."""
     m_, n_ = np.asarray(m, float), np.asarray(n, float)
-    return _score_roots(np.asarray(estimate, float), lambda t: newcombe_variance(t, m_, n_), z)
+    return _score_roots(
+        np.asarray(estimate, float), lambda t: newcombe_variance(t, m_, n_), confidence
+    )
 
 
-def newcombe_mean_interval(
-    estimates: np.ndarray, m: np.ndarray, n: np.ndarray, confidence: float
+def mover_mean_interval(
+    estimates: np.ndarray, lows: np.ndarray, highs: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Score intervals for means of independent per-task Mann-Whitney estimates.
+    """MOVER limits for means of independent estimates that each carry their own interval.
 
-    Each row of ``estimates`` (rows × tasks, NaN where a task is absent; ``m``, ``n`` alike) is one
-    mean. The variance of a mean at a common theta is ``sum_t V_t(theta) / T^2``; at unequal
-    per-task values this common-theta variance is the larger one, so the interval errs wide.
+    Each row of ``estimates`` (rows × parts, NaN where a part is absent; ``lows``, ``highs``
+    alike) is one mean of k parts: ``L = mean - sqrt(sum (est - l)^2) / k``,
+    ``U = mean + sqrt(sum (u - est)^2) / k`` (Zou & Donner 2008, "Construction of confidence
+    limits about effect measures: a general approach", Statistics in Medicine 27:1693-1702; the
+    "square-and-add" of Newcombe 1998 for a difference). Each side uses the parts' own
+    distances to their limits, so skewed parts (e.g. P(improvement) near 1) keep their skew. NaN
+    when a present part has no interval.
     """
     est = np.atleast_2d(np.asarray(estimates, float))
-    m_, n_ = np.atleast_2d(np.asarray(m, float)), np.atleast_2d(np.asarray(n, float))
+    lo, hi = np.atleast_2d(np.asarray(lows, float)), np.atleast_2d(np.asarray(highs, float))
     present = np.isfinite(est)
     k = present.sum(axis=1)
-    z = float(special.ndtri(0.5 + confidence / 2))
-
-    def var(t: np.ndarray) -> np.ndarray:
-        v = newcombe_variance(t[:, None], np.where(present, m_, 1), np.where(present, n_, 1))
-        return np.where(present, v, 0.0).sum(axis=1) / k**2
-
-    return _score_roots(np.nanmean(est, axis=1), var, z)
+    missing = (present & ~(np.isfinite(lo) & np.isfinite(hi))).any(axis=1) | (k == 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.nansum(est, axis=1) / k
+        down = np.sqrt(np.where(present, (est - lo) ** 2, 0.0).sum(axis=1)) / k
+        up = np.sqrt(np.where(present, (hi - est) ** 2, 0.0).sum(axis=1)) / k
+    return np.where(missing, np.nan, mean - down), np.where(missing, np.nan, mean + up)

@@ -13,8 +13,13 @@ correlation enter through ``var(g)``. With normal seed noise the set covers the 
 exactly at the nominal level whenever the true curve is monotone.
 
 Beyond the ladder the curve is unknown but, being monotone, no lower than at the largest size:
-sizes above the ladder are kept unless the curve is significantly above the level at the
-largest size (the interval's high end is then infinite); sizes below the ladder likewise.
+a size D above the ladder is rejected only when the curve is significantly above the level at
+the largest size. Under "curve(D) = level" the curve at the largest size is at most the level,
+so this test can reject in one direction only and takes the whole error rate on that side: a
+one-sided t test at level 1 - confidence (each D is tested at the nominal level, so the set
+still covers at the nominal rate; Casella & Berger sec. 9.2). Sizes below the ladder likewise.
+When the test at the largest size does not reject, the high end is infinite; at the smallest,
+the low end is 0.
 The interval reported is the hull of the set: [low, high] in episodes (0 for "at or below
 the smallest", inf for "beyond the ladder").
 """
@@ -88,25 +93,36 @@ def level_crossing_set(
     if n < 2:
         return float("nan"), float("nan")
     q = float(stats.t.ppf(0.5 + confidence / 2, n - 1))
+    # beyond the ladder's ends only one direction can reject: one-sided at the nominal level
+    q_end = float(stats.t.ppf(confidence, n - 1))
     mean = g.mean(axis=0)
     se = g.std(axis=0, ddof=1) / np.sqrt(n)
-    above = mean > q * se  # significantly above the level at a ladder point
-    below = mean < -q * se
-    x = np.log(np.asarray(sizes, float))
+    above = mean > q_end * se  # significantly above the level at a ladder point (one-sided)
+    below = mean < -q_end * se
+    sizes = np.asarray(sizes, float)
     lows, highs = [], []
     for j in range(k - 1):
         w_lo, w_hi = _segment_hull(g[:, j], g[:, j + 1], q)
         if np.isfinite(w_lo):
-            lows.append(x[j] + w_lo * (x[j + 1] - x[j]))
-            highs.append(x[j] + w_hi * (x[j + 1] - x[j]))
+            lows.append(_at(sizes, j, w_lo))
+            highs.append(_at(sizes, j, w_hi))
     if k == 1 and not (above[0] or below[0]):
-        lows.append(x[0])
-        highs.append(x[0])
-    low = 0.0 if not below[0] else (float(np.exp(min(lows))) if lows else float(sizes[-1]))
-    high = (
-        float("inf") if not above[-1] else (float(np.exp(max(highs))) if highs else float(sizes[0]))
-    )
+        lows.append(float(sizes[0]))
+        highs.append(float(sizes[0]))
+    low = 0.0 if not below[0] else (min(lows) if lows else float(sizes[-1]))
+    high = float("inf") if not above[-1] else (max(highs) if highs else float(sizes[0]))
     return low, high
+
+
+def _at(sizes: np.ndarray, j: int, w: float) -> float:
+    """The size a fraction ``w`` of the way from ladder point j to j + 1 on log size (the ladder
+    point itself, exactly, at w = 0 or 1)."""
+    if w <= 0.0:
+        return float(sizes[j])
+    if w >= 1.0:
+        return float(sizes[j + 1])
+    x0, x1 = np.log(sizes[j]), np.log(sizes[j + 1])
+    return float(np.exp(x0 + w * (x1 - x0)))
 
 
 def seed_t_interval(values: np.ndarray, confidence: float) -> tuple[float, float]:

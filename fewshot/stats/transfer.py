@@ -11,9 +11,10 @@
 Intervals, chosen by measured coverage (``tests/benchmarks/coverage.py --printed``): differences
 per task use the interval method of the settings, their mean over tasks a stratified t
 (:mod:`fewshot.stats.intervals`; other estimators than the mean a stratified expanded percentile);
-P(improvement) Newcombe's score interval; effective data and episodes to a threshold test
-inversion over sizes (:mod:`fewshot.stats.inversion`; inf = beyond the ladder); areas Student's t
-over the seeds' areas. Labels follow the intervals (:mod:`fewshot.stats.labels`).
+P(improvement) Newcombe's score interval per task and MOVER from those over tasks; effective data
+and episodes to a threshold test inversion over sizes (:mod:`fewshot.stats.inversion`; inf =
+beyond the ladder); areas Student's t over the seeds' areas. Labels follow the intervals
+(:mod:`fewshot.stats.labels`).
 
 Every function here reads higher-is-better values (:func:`fewshot.stats.scores.orient` turns a
 lower-is-better metric once, where scores are read), so none needs the metric's direction and a
@@ -31,11 +32,7 @@ from fewshot.stats.baseline import check_baseline
 from fewshot.stats.bootstrap import DegenerateCells, bootstrap_cells
 from fewshot.stats.curves import FEW_SEEDS, CurveSettings
 from fewshot.stats.estimators import estimator as get_estimator
-from fewshot.stats.intervals import (
-    newcombe_interval,
-    newcombe_mean_interval,
-    stratified_mean_t,
-)
+from fewshot.stats.intervals import mover_mean_interval, newcombe_interval, stratified_mean_t
 from fewshot.stats.progress import advance
 from fewshot.stats.resample import CurveResampler, interval
 from fewshot.stats.transfer_sizes import (  # the sizes half, re-exported here
@@ -95,8 +92,6 @@ def paired_differences(
     """
     settings.check()
     chosen = check_baseline(scores, baseline, arms)
-    est_name = settings.estimator
-    est = get_estimator(est_name)
     rows = []
     rng_root = np.random.SeedSequence(settings.seed)
     level = scores.dropna(subset=[value]).groupby(["arm", "task", "size", "seed"])[value].mean()
@@ -116,64 +111,15 @@ def paired_differences(
                 note = "; ".join(
                     filter(None, [note, f"paired on {n} common seeds of {nx} and {ny}"])
                 )
-            if n == 0:
-                rows.append(
-                    {
-                        "arm": arm,
-                        "task": task,
-                        "size": size,
-                        "difference": np.nan,
-                        "low": np.nan,
-                        "high": np.nan,
-                        "n_seeds": 0,
-                        "method": settings.method,
-                        "note": note,
-                    }
-                )
-                continue
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", DegenerateCells)
-                if (
-                    est_name == "mean"
-                ):  # a difference of means is the mean of the paired differences
-                    res = bootstrap_cells(
-                        (x - y)[None, :],
-                        est,
-                        method=settings.method,
-                        confidence=settings.confidence,
-                        resamples=settings.resamples,
-                        rng=rng,
-                        is_mean=True,
-                        want_se=False,
-                    )
-                    method = settings.method
-                else:  # resample seed positions, then difference the two estimates
-
-                    def diff(idx: np.ndarray, x=x, y=y) -> np.ndarray:
-                        i = idx.astype(int)
-                        return est(x[i]) - est(y[i])
-
-                    closed = settings.method in ("percentile", "basic", "bca", "expanded")
-                    use = (
-                        settings.method if closed else "t"
-                    )  # t and Hall need the mean: bootstrap SE
-                    res = bootstrap_cells(
-                        np.arange(n, dtype=float)[None, :],
-                        diff,
-                        method=use,
-                        confidence=settings.confidence,
-                        resamples=settings.resamples,
-                        rng=rng,
-                    )
-                    method = use if closed else "t (bootstrap SE)"
+            estimate, low, high, method = _difference_cell(x, y, settings, rng)
             rows.append(
                 {
                     "arm": arm,
                     "task": task,
                     "size": size,
-                    "difference": float(res.estimate[0]),
-                    "low": float(res.low[0]),
-                    "high": float(res.high[0]),
+                    "difference": estimate,
+                    "low": low,
+                    "high": high,
                     "n_seeds": n,
                     "method": method,
                     "note": note,
@@ -187,6 +133,40 @@ def paired_differences(
     pool = scores if over is None else scores[scores["task"].isin(over)]
     across = _across_tasks(pool, baseline, chosen, settings, value)
     return pd.concat([frame, across], ignore_index=True) if len(across) else frame
+
+
+def _difference_cell(
+    x: np.ndarray, y: np.ndarray, settings: CurveSettings, rng: np.random.Generator
+) -> tuple[float, float, float, str]:
+    """Estimate, interval and method name of arm minus baseline on paired seed values."""
+    if len(x) == 0:
+        return np.nan, np.nan, np.nan, settings.method
+    est = get_estimator(settings.estimator)
+    if settings.estimator == "mean":  # a difference of means is the mean of the paired differences
+        data, stat, use, name = (x - y)[None, :], est, settings.method, settings.method
+    else:  # resample seed positions, then difference the two estimates
+
+        def stat(idx: np.ndarray) -> np.ndarray:
+            i = idx.astype(int)
+            return est(x[i]) - est(y[i])
+
+        closed = settings.method in ("percentile", "basic", "bca", "expanded")
+        use = settings.method if closed else "t"  # t and Hall need the mean: bootstrap SE
+        data, name = np.arange(len(x), dtype=float)[None, :], use if closed else "t (bootstrap SE)"
+    mean = settings.estimator == "mean"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DegenerateCells)
+        res = bootstrap_cells(
+            data,
+            stat,
+            method=use,
+            confidence=settings.confidence,
+            resamples=settings.resamples,
+            rng=rng,
+            is_mean=mean,
+            want_se=not mean,
+        )
+    return float(res.estimate[0]), float(res.low[0]), float(res.high[0]), name
 
 
 def _across_tasks(scores, baseline, chosen, settings, value) -> pd.DataFrame:  # type: ignore[no-untyped-def]
@@ -296,41 +276,40 @@ def probability_of_improvement_table(
             settings.confidence,
         )
     per["low"], per["high"] = low, high
-    means = []
     pooled = per[per["n_seeds"] > 0]
     if over is not None:  # only tasks in one unit may be averaged
         pooled = pooled[pooled["task"].isin(over)]
-    for (arm, size), g in pooled.groupby(["arm", "size"], sort=False):
-        if len(g) < 2:
-            continue
-        means.append((arm, size, g))
-    frames = [per]
-    if means:
-        width = max(len(g) for *_, g in means)
-        pad = lambda col: np.array(  # noqa: E731
+    means = _poi_over_tasks(pooled)
+    out = pd.concat([per, means], ignore_index=True) if len(means) else per
+    return out[["arm", "task", "size", "probability", "low", "high", "n_seeds"]]
+
+
+def _poi_over_tasks(per: pd.DataFrame) -> pd.DataFrame:
+    """Mean P(improvement) over the tasks of each (arm, size) with two tasks or more, with MOVER
+    limits from the per-task Newcombe intervals (:func:`fewshot.stats.intervals.mover_mean_interval`;
+    tasks hold different seeds' runs, so their estimates are independent)."""
+    groups = [(key, g) for key, g in per.groupby(["arm", "size"], sort=False) if len(g) >= 2]
+    if not groups:
+        return pd.DataFrame()
+    width = max(len(g) for _, g in groups)
+
+    def pad(col: str) -> np.ndarray:
+        return np.array(
             [
                 np.pad(g[col].to_numpy(float), (0, width - len(g)), constant_values=np.nan)
-                for *_, g in means
+                for _, g in groups
             ]
         )
-        lo_all, hi_all = newcombe_mean_interval(
-            pad("probability"), pad("m"), pad("n"), settings.confidence
-        )
-        n_all = np.array([int(g["n_seeds"].min()) for *_, g in means])
-        lo_all = np.where(n_all >= 2, lo_all, np.nan)
-        hi_all = np.where(n_all >= 2, hi_all, np.nan)
-        frames.append(
-            pd.DataFrame(
-                {
-                    "arm": [m[0] for m in means],
-                    "task": "all",
-                    "size": [int(m[1]) for m in means],
-                    "probability": [float(g["probability"].mean()) for *_, g in means],
-                    "low": lo_all,
-                    "high": hi_all,
-                    "n_seeds": n_all,
-                }
-            )
-        )
-    out = pd.concat(frames, ignore_index=True)
-    return out[["arm", "task", "size", "probability", "low", "high", "n_seeds"]]
+
+    low, high = mover_mean_interval(pad("probability"), pad("low"), pad("high"))
+    return pd.DataFrame(
+        {
+            "arm": [arm for (arm, _), _ in groups],
+            "task": "all",
+            "size": [int(size) for (_, size), _ in groups],
+            "probability": [float(g["probability"].mean()) for _, g in groups],
+            "low": low,
+            "high": high,
+            "n_seeds": [int(g["n_seeds"].min()) for _, g in groups],
+        }
+    )

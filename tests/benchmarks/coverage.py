@@ -1,7 +1,12 @@
 """Coverage of every interval the tool prints, and of every cell interval method, by simulation.
 
-Run: python tests/benchmarks/coverage.py --printed 200 [--csv out.csv]   (every printed interval)
+Run: python tests/benchmarks/coverage.py --printed 200 [--csv out.csv] [--write]   (every printed interval)
+     python tests/benchmarks/coverage.py --from-csv out.csv --write   (write a saved run again)
      python tests/benchmarks/coverage.py --methods [--studies 4000] [--resamples 2000]
+
+--write puts the harness's table where the project quotes it, never typed by hand: the module
+fewshot/stats/coverage_printed.py (read by reports) and the table between the README's
+``printed-coverage`` markers.
 
 --printed N runs N synthetic studies per (seeds, noise) through the functions behind ``curves``
 and ``compare`` (fewshot.stats.harness; truths in fewshot.stats.simulate and the README) and
@@ -94,30 +99,58 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__)
     parser.add_argument("--printed", type=int, default=0, help="studies per cell for the harness")
     parser.add_argument("--csv", default=None, help="also write the harness table as CSV")
+    parser.add_argument(
+        "--from-csv", default=None, help="saved harness tables (--csv), comma-separated, to print"
+    )
+    parser.add_argument(
+        "--seeds", default="3,5,10", help="seed counts for --printed (split a run over processes)"
+    )
+    parser.add_argument(
+        "--write", action="store_true", help="write the table into the package and the README"
+    )
     parser.add_argument("--methods", action="store_true", help="compare the cell interval methods")
     parser.add_argument("--studies", type=int, default=4000)
     parser.add_argument("--resamples", type=int, default=2000)
     args = parser.parse_args()
-    if args.printed:
-        printed(args.printed, args.csv)
-    if args.methods or not args.printed:
+    if args.printed or args.from_csv:
+        seeds = tuple(int(n) for n in args.seeds.split(","))
+        printed(args.printed, args.csv, args.from_csv, args.write, seeds)
+    if args.methods or not (args.printed or args.from_csv):
         methods(args.studies, args.resamples)
 
 
-def printed(studies: int, csv: str | None) -> None:
+def printed(
+    studies: int, csv: str | None, saved: str | None, write: bool, seeds: tuple[int, ...]
+) -> None:
     import time
 
-    from fewshot.stats.harness import coverage_table
+    import pandas as pd
+
+    from fewshot.stats.harness import QUANTITIES, coverage_table
 
     start = time.perf_counter()
-    table = coverage_table(studies, resamples=1000)
+    if saved:  # a run saved by an older harness may hold quantities it no longer reports
+        table = pd.concat([pd.read_csv(f) for f in saved.split(",")], ignore_index=True)
+        table = table[table["quantity"].isin(QUANTITIES)]
+        studies = int(table["studies"].iloc[0])
+    else:  # each seed count from its own random stream, so a run split by --seeds is the same
+        table = pd.concat(
+            [coverage_table(studies, seeds=(n,), resamples=1000, rng_seed=2026 + n) for n in seeds],
+            ignore_index=True,
+        )
     if csv:
         table.to_csv(csv, index=False)
     print(
         f"every printed nominal 95% interval; {studies} synthetic studies per seeds x noise "
         f"({time.perf_counter() - start:.0f} s)"
     )
-    cols = [(n, d) for n in (3, 5, 10) for d in ("normal", "lognormal", "two-mode")]
+    if write:
+        from coverage_write import write_module, write_readme
+
+        print("wrote", write_module(table), "and", write_readme(table))
+    cols = [
+        (n, d) for n in sorted(set(table["seeds"])) for d in ("normal", "lognormal", "two-mode")
+    ]
     print(f"{'quantity':26}" + "".join(f"{f'{d[:5]} {n}':>19}" for n, d in cols))
     for q in dict.fromkeys(table["quantity"]):
         cells = []
@@ -125,7 +158,11 @@ def printed(studies: int, csv: str | None) -> None:
             r = table[
                 (table["quantity"] == q) & (table["seeds"] == n) & (table["noise"] == d)
             ].iloc[0]
-            cells.append(f"{r['coverage']:6.1%} w{r['width']:6.3g} d{r['degenerate']:4.0%}")
+            cells.append(
+                f"{r['coverage']:6.1%} w{r['width']:6.3g} d{r['degenerate']:4.0%}"
+                if r["intervals"]
+                else "no interval"
+            )
         print(f"{q:26}" + "".join(f"{c:>19}" for c in cells))
     print("cells: coverage, mean width (w), share of zero-width intervals (d)")
 
