@@ -15,7 +15,7 @@ from typer.testing import CliRunner
 
 from fewshot.cli import app
 from fewshot.ledger import Ledger
-from tests.conftest import write_study
+from tests.conftest import STUDY_TOML, write_study
 
 runner = CliRunner()
 ROOT = Path(__file__).resolve().parent.parent
@@ -26,8 +26,8 @@ import json, os, zlib
 key = os.environ["FEWSHOT_RUN"]
 device = os.environ.get("CUDA_VISIBLE_DEVICES", "")
 with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
-    f.write(json.dumps({"run": key, "metric": "return", "value": zlib.crc32(key.encode()) % 997}) + "\\n")
-    f.write(json.dumps({"run": key, "metric": "device", "value": int(device) if device else -1}) + "\\n")
+    f.write(json.dumps({"run": key, "metric": "return", "value": zlib.crc32(key.encode()) % 997, "final": True}) + "\\n")
+    f.write(json.dumps({"run": key, "metric": "device", "value": int(device) if device else -1, "final": True}) + "\\n")
 """
 
 # Marks that it started, then waits until it is stopped.
@@ -40,7 +40,12 @@ while True:
 
 
 def _init(tmp_path: Path, ledger: str) -> None:
-    study = write_study(tmp_path)
+    study = write_study(
+        tmp_path,
+        STUDY_TOML.replace(
+            "higher_is_better = true", 'higher_is_better = true\nmetrics = ["device"]'
+        ),
+    )
     res = runner.invoke(app, ["init", str(study), "--ledger", ledger])
     assert res.exit_code == 0, res.output
 
