@@ -1,8 +1,10 @@
 """Result lines and files from any trainer, parsed and checked; no database.
 
 A result line is one JSON object (JSONL) or one CSV row with ``run``, ``metric`` and ``value``,
-and optionally ``step``, ``values`` (per-episode scores), ``subset_digest`` and ``budget``. Values
-must be finite; a refusal names the file, the line and the field. Storing the checked lines is
+either a ``step`` or ``"final": true`` (the final evaluation is always marked as such: a line with
+neither is refused), and optionally ``values`` (per-episode scores), ``subset_digest``, ``budget``
+and ``attempt`` (the claim's ``FEWSHOT_ATTEMPT``). Values must be finite; a refusal names the file,
+the line and the field. Storing the checked lines is
 :mod:`fewshot.ledger.results`.
 """
 
@@ -35,7 +37,17 @@ __all__ = [
     "parse_result_file",
 ]
 
-LINE_KEYS = {"run", "metric", "value", "step", "values", "subset_digest", "budget"}
+LINE_KEYS = {
+    "run",
+    "metric",
+    "value",
+    "step",
+    "final",
+    "values",
+    "subset_digest",
+    "budget",
+    "attempt",
+}
 MAX_LINE = 1 << 20  # a result line over 1 MiB is refused as damaged
 
 
@@ -56,7 +68,8 @@ class ResultLine:
     run, metric : str
     value : float
     step : int or None
-        None means the final evaluation.
+        None means the final evaluation (which a trainer marks with ``final``: see
+        :func:`check_line`).
     values : tuple of float
         Per-episode values behind ``value`` (may be empty).
     subset_digest : str or None
@@ -64,6 +77,8 @@ class ResultLine:
         e.g. ``{"steps": 5000}``.
     where : str
         Where it came from (``file:line`` or ``"call"``), for messages.
+    attempt : int or None
+        The attempt of the run's claim that wrote it, when the line says so.
     """
 
     run: str
@@ -74,6 +89,12 @@ class ResultLine:
     subset_digest: str | None = None
     budget: dict[str, Any] | None = field(default=None, compare=False)
     where: str = field(default="call", compare=False)
+    attempt: int | None = field(default=None, compare=False)
+
+    @property
+    def final(self) -> bool:
+        """Whether this is the run's final evaluation."""
+        return self.step is None
 
     @property
     def at(self) -> str:
@@ -109,12 +130,18 @@ def check_line(
     value: object,
     *,
     step: object = None,
+    final: object = False,
     values: object = None,
     subset_digest: object = None,
     budget: object = None,
+    attempt: object = None,
     where: str = "call",
 ) -> ResultLine:
-    """Check one result's fields and return it as a :class:`ResultLine`."""
+    """Check one result's fields and return it as a :class:`ResultLine`.
+
+    Every result is either an evaluation at a training ``step`` or the run's final evaluation,
+    marked ``final=True`` (with no step); a result with neither is refused, so that a stray
+    number can never pass for a run's score."""
     at = "" if where == "call" else f"{where}: "
     if type(value) is float and math.isfinite(value):  # the common case, without a call
         v = value
@@ -130,6 +157,26 @@ def check_line(
         raise ResultRefused(
             f"{at}'step' must be a whole number from 0 to 2**63-1 (what the ledger's column "
             f"holds), or null. Got {step!r}."
+        )
+    if not isinstance(final, bool):
+        raise ResultRefused(f"{at}'final' must be true or false. Got {final!r}.")
+    if step is None and not final:
+        raise ResultRefused(
+            f"{at}{metric!r} = {v!r} has no step and is not marked final. Give the training "
+            "step of this evaluation (`step`), or mark the run's final evaluation with "
+            '`final` ("final": true in a results file).'
+        )
+    if step is not None and final:
+        raise ResultRefused(
+            f"{at}{metric!r} is marked `final` and also has `step` {step!r}: the final "
+            "evaluation has no step. Drop one of them."
+        )
+    if attempt is not None and (
+        isinstance(attempt, bool) or not isinstance(attempt, int) or not 1 <= attempt <= INT64_MAX
+    ):
+        raise ResultRefused(
+            f"{at}'attempt' must be a whole number of 1 or more (the claim's FEWSHOT_ATTEMPT). "
+            f"Got {attempt!r}."
         )
     vals: tuple[float, ...] = ()
     if values is not None:
@@ -153,7 +200,7 @@ def check_line(
             for k, b in budget.items()
         ):
             raise ResultRefused(f"{at}'budget' must map names to finite numbers. Got {budget!r}.")
-    return ResultLine(run, metric, v, step, vals, subset_digest, budget, where)  # type: ignore[arg-type]
+    return ResultLine(run, metric, v, step, vals, subset_digest, budget, where, attempt)  # type: ignore[arg-type]
 
 
 # --------------------------------------------------------------------------- files
@@ -212,9 +259,11 @@ def _from_mapping(obj: object, where: str) -> ResultLine:
         obj["metric"],
         obj["value"],
         step=obj.get("step"),
+        final=obj.get("final", False),
         values=obj.get("values"),
         subset_digest=obj.get("subset_digest"),
         budget=obj.get("budget"),
+        attempt=obj.get("attempt"),
         where=where,
     )
 
@@ -247,6 +296,10 @@ def _parse_csv(path: Path, text: str) -> list[ResultLine]:
             }
             if row.get("step"):
                 obj["step"] = int(row["step"])
+            if row.get("attempt"):
+                obj["attempt"] = int(row["attempt"])
+            if row.get("final"):
+                obj["final"] = _flag(row["final"])
             for key in ("values", "budget"):
                 if row.get(key):
                     obj[key] = json.loads(row[key])
@@ -256,6 +309,15 @@ def _parse_csv(path: Path, text: str) -> list[ResultLine]:
             raise ResultFileError(f"{where}: {exc}.") from None
         out.append(_from_mapping(obj, where))
     return out
+
+
+def _flag(text: str) -> bool:
+    word = text.strip().lower()
+    if word in ("true", "1", "yes"):
+        return True
+    if word in ("false", "0", "no", ""):
+        return False
+    raise ValueError(f"'final' must be true or false. Got {text!r}")
 
 
 def _num(text: str | None) -> float:

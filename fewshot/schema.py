@@ -1,7 +1,8 @@
 """The tidy results table: the columns the ledger writes and the statistics read.
 
 :meth:`fewshot.Ledger.results` returns one row per stored result with exactly
-:data:`RESULT_COLUMNS`, in that order; :func:`fewshot.stats.scores.run_scores` and everything
+:data:`RESULT_COLUMNS`, in that order (by default only live results of done runs; ``run_status``
+and ``void`` say what a wider read holds); :func:`fewshot.stats.scores.run_scores` and everything
 after it read this table (and nothing of the ledger). A results table built another way (a CSV
 export read back, a table from another tool) works with the statistics when it has these columns.
 
@@ -38,6 +39,15 @@ RESULT_COLUMN_DOCS: dict[str, str] = {
     "subset_digest": "the digest of the subset the run trained on (text)",
     "budget": "the trainer's budget record as JSON text, or None",
     "recorded_at": "when the result was stored (UTC timestamp)",
+    "run_status": "the run's status when read: done, running, failed or planned (text); the "
+    "statistics read results of done runs only",
+    "final_from_step": "for a final result taken from the run's last reported step when it was "
+    "marked done, that step; missing (<NA>) otherwise (Int64)",
+    "forced": "stored by hand on a run that no attempt held (`force`) (bool)",
+    "void": "voided: kept, but left out of every statistic (bool)",
+    "void_at": "when it was voided (UTC timestamp; missing unless void)",
+    "void_reason": "why it was voided (text; None unless void)",
+    "void_by": "who voided it, user@host (text; None unless void)",
 }
 
 #: The results table's columns, in order (a list, as pandas takes it).
@@ -62,6 +72,7 @@ RUN_COLUMNS: list[str] = [
     "message",
     "subset_file",
     "subset_digest",
+    "retries",
 ]
 
 #: Below this many seeds a cell's interval is not to be trusted, and outputs say so (a common

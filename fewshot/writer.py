@@ -16,8 +16,8 @@ Example::
 
     from writer import ResultWriter          # or: from fewshot.writer import ResultWriter
     out = ResultWriter.from_env()            # FEWSHOT_RESULTS, FEWSHOT_RUN, digest of FEWSHOT_SUBSET
-    out.write("return", 71.5, values=[70.1, 73.0, 71.4])
     out.write("return", 40.2, step=1000)
+    out.write("return", 71.5, final=True, values=[70.1, 73.0, 71.4])
 """
 
 from __future__ import annotations
@@ -103,10 +103,18 @@ class ResultWriter:
         value: float,
         *,
         step: int | None = None,
+        final: bool = False,
         values: list[float] | None = None,
         budget: dict[str, float] | None = None,
     ) -> None:
-        """Append one result; NaN or infinite values are refused here, before they reach a file."""
+        """Append one result: an evaluation at a training ``step``, or the run's final
+        evaluation (``final=True``, no step); NaN or infinite values are refused here, before
+        they reach a file."""
+        if (step is None) == (not final):
+            raise ValueError(
+                f"{metric!r}: give the training step of this evaluation (step=N) or mark the "
+                "final evaluation (final=True), not both or neither"
+            )
         if not isinstance(value, int | float) or not math.isfinite(value):
             raise ValueError(f"value of {metric!r} must be a finite number, got {value!r}")
         if values is not None and not all(math.isfinite(v) for v in values):
@@ -115,8 +123,11 @@ class ResultWriter:
             "run": self.run,
             "metric": metric,
             "value": float(value),
-            "step": step,
         }
+        if final:
+            line["final"] = True
+        else:
+            line["step"] = step
         if values is not None:
             line["values"] = [float(v) for v in values]
         if self.subset_digest:

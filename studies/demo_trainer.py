@@ -41,7 +41,9 @@ def main(argv: list[str]) -> int:
         print(f"{missing} is not set: run me through `fewshot exec`", file=sys.stderr)
         return 2
     mean, per_episode = train_run(argv[1], arm, task, size, seed, replicate, subset)
-    ResultWriter.from_env().write("return", mean, values=per_episode, budget={"episodes": size})
+    ResultWriter.from_env().write(
+        "return", mean, final=True, values=per_episode, budget={"episodes": size}
+    )
     return 0
 
 

@@ -56,7 +56,9 @@ def main() -> int:
     ]
     score, per_episode = train_and_evaluate(ids)
     out = ResultWriter.from_env()
-    out.write("return", score, values=per_episode or None, budget={"episodes": len(ids)})
+    out.write(
+        "return", score, final=True, values=per_episode or None, budget={"episodes": len(ids)}
+    )
     return 0
 
 

@@ -141,8 +141,9 @@ def ledger_url(request, tmp_path: Path) -> str:
 @pytest.fixture
 def filled_ledger(tmp_path: Path, ledger_url: str, study_file):
     """A ledger (SQLite, and PostgreSQL when FEWSHOT_TEST_PG is set) holding the small study,
-    planned, with one final ``return`` result for every run: arm wide scores 10 * size + seed,
-    scratch 5 * size + seed. Yields the open :class:`fewshot.Ledger`."""
+    planned, with one final ``return`` result for every run, every run done (results stored by
+    hand: ``force``): arm wide scores 10 * size + seed, scratch 5 * size + seed. Yields the open
+    :class:`fewshot.Ledger`."""
     from fewshot.ledger import Ledger
     from fewshot.study import load_study
 
@@ -153,7 +154,9 @@ def filled_ledger(tmp_path: Path, ledger_url: str, study_file):
         [
             _final_line(r.key, (10 if r.arm == "wide" else 5) * r.size + r.seed)
             for r in runs.itertuples()
-        ]
+        ],
+        force=True,
+        done=True,
     )
     yield led
     led.close()

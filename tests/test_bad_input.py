@@ -14,7 +14,7 @@ from fewshot.ledger import Ledger
 from fewshot.study import load_study
 
 runner = CliRunner()
-GOOD_LINE = '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1.5}\n'
+GOOD_LINE = '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1.5, "final": true}\n'
 
 
 @pytest.fixture
@@ -40,6 +40,8 @@ def _study(text: str | None = None, **edits: object):  # type: ignore[no-untyped
 def _bytes(name: str, data: bytes):  # type: ignore[no-untyped-def]
     return lambda d, _: (d / name).write_bytes(data)
 
+
+LEDGER = ["--ledger", "{ledger}", "--study", "mini"]
 
 # (id, how to make the input file, command arguments ({d} = the folder), fragment of the message)
 CASES = [
@@ -132,47 +134,37 @@ CASES = [
     (
         "record-nan",
         None,
-        ["record", "wide/reach/n1/s0", "return=nan", "--ledger", "{ledger}", "--study", "mini"],
+        ["record", "wide/reach/n1/s0", "return=nan", "--final", *LEDGER],
         "finite",
     ),
     (
         "record-inf",
         None,
-        ["record", "wide/reach/n1/s0", "return=-inf", "--ledger", "{ledger}", "--study", "mini"],
+        ["record", "wide/reach/n1/s0", "return=-inf", "--final", *LEDGER],
         "finite",
     ),
     (
         "record-unknown-run",
         None,
-        ["record", "wide/reach/n2/s0", "return=1", "--ledger", "{ledger}", "--study", "mini"],
+        ["record", "wide/reach/n2/s0", "return=1", "--final", *LEDGER],
         "has no run 'wide/reach/n2/s0'",
     ),
     (
         "record-wrong-digest",
         None,
-        [
-            "record",
-            "wide/reach/n1/s0",
-            "return=1",
-            "--subset-digest",
-            "b" * 64,
-            "--ledger",
-            "{ledger}",
-            "--study",
-            "mini",
-        ],
+        ["record", "wide/reach/n1/s0", "return=1", "--subset-digest", "b" * 64, "--final", *LEDGER],
         "other episodes",
     ),
     (
         "record-other-study",
         None,
-        ["record", "deep/reach/n1/s0", "return=1", "--ledger", "{ledger}", "--study", "mini"],
+        ["record", "deep/reach/n1/s0", "return=1", "--final", *LEDGER],
         "belongs to another study",
     ),
     (
         "record-no-study-choice",
         None,
-        ["record", "wide/reach/n1/s0", "return=1", "--ledger", "{ledger}"],
+        ["record", "wide/reach/n1/s0", "return=1", "--final", "--ledger", "{ledger}"],
         "several studies (mini, other)",
     ),
     (
@@ -183,7 +175,10 @@ CASES = [
     ),
     (
         "ingest-nan",
-        _bytes("r.jsonl", b'{"run": "wide/reach/n1/s0", "metric": "return", "value": NaN}\n'),
+        _bytes(
+            "r.jsonl",
+            b'{"run": "wide/reach/n1/s0", "metric": "return", "value": NaN, "final": true}\n',
+        ),
         ["ingest", "{d}/r.jsonl", "--ledger", "{ledger}", "--study", "mini"],
         "line 1: value of 'return' must be a finite",
     ),
@@ -284,7 +279,8 @@ CASES = [
     (
         "ingest-duplicate-key",
         _bytes(
-            "r.jsonl", b'{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "value": 2}\n'
+            "r.jsonl",
+            b'{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "value": 2, "final": true}\n',
         ),
         ["ingest", "{d}/r.jsonl", "--ledger", "{ledger}", "--study", "mini"],
         "r.jsonl, line 1: the field 'value' is given more than once",
@@ -323,7 +319,6 @@ def _foreign_sqlite(name: str):  # type: ignore[no-untyped-def]
 
 
 BIG = str(2**63)  # one more than a 64-bit column holds
-LEDGER = ["--ledger", "{ledger}", "--study", "mini"]
 
 # Faults of a long study: numbers beyond the ledger's columns, files that are not ledgers,
 # attempts that are no longer current, leases below the floor.
@@ -356,7 +351,7 @@ CASES += [
         "record-step-beyond-64-bits",
         None,
         ["record", "wide/reach/n1/s0", "return=1", "--step", BIG, *LEDGER],
-        "'step' must be a whole number from 0 to 2**63-1",
+        "'--step' must be a whole number from 0 to 2**63-1",
     ),
     (
         "ingest-step-beyond-64-bits",
@@ -380,9 +375,8 @@ CASES += [
         "ingest-budget-beyond-float",
         _bytes(
             "r.jsonl",
-            b'{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "budget": {"steps": '
-            + str(10**400).encode()
-            + b"}}\n",
+            b'{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "final": true, '
+            b'"budget": {"steps": ' + str(10**400).encode() + b"}}\n",
         ),
         ["ingest", "{d}/r.jsonl", *LEDGER],
         "'budget' must map names to finite numbers",
@@ -414,7 +408,7 @@ CASES += [
     (
         "record-attempt-never-handed-out",
         None,
-        ["record", "wide/reach/n1/s0", "return=1", "--attempt", "2", *LEDGER],
+        ["record", "wide/reach/n1/s0", "return=1", "--final", "--attempt", "2", *LEDGER],
         "has no attempt 2",
     ),
     (
@@ -438,7 +432,7 @@ CASES += [
     (
         "record-ledger-of-another-program",
         _foreign_sqlite("notes.sqlite"),
-        ["record", "wide/reach/n1/s0", "return=1", "--ledger", "{d}/notes.sqlite"],
+        ["record", "wide/reach/n1/s0", "return=1", "--final", "--ledger", "{d}/notes.sqlite"],
         "notes.sqlite is a SQLite database of another program",
     ),
     (

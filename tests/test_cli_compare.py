@@ -31,6 +31,9 @@ def _filled(tmp_path: Path, study_file, **edits: object) -> str:
             r.key,
             "return",
             float(min(100.0, 12 * np.log(k * max(r.size, 0.5)) + 20 + rng.normal(0, 3))),
+            final=True,
+            force=True,
+            done=True,
         )
     led.close()
     return ledger
@@ -127,7 +130,12 @@ def test_baseline_missing_a_size_is_named(tmp_path: Path, study_file):
         if r.arm == "scratch" and r.size == 3:
             continue  # the baseline never ran at size 3
         led.record(
-            r.key, "return", float(10 * np.log1p(r.size) + (5 if r.arm == "wide" else 0) + r.seed)
+            r.key,
+            "return",
+            float(10 * np.log1p(r.size) + (5 if r.arm == "wide" else 0) + r.seed),
+            final=True,
+            force=True,
+            done=True,
         )
     led.close()
     data = json.loads(

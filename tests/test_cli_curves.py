@@ -28,9 +28,16 @@ def filled(tmp_path: Path, study_file) -> str:
     rng = np.random.default_rng(0)
     for r in led.runs().itertuples():
         gain = 20 if r.arm == "wide" else 0
-        led.record(r.key, "return", float(10 * np.log1p(r.size) + gain + rng.normal(0, 2)))
-        led.record(r.key, "val_return", float(rng.normal()), step=5)
-        led.record(r.key, "return", float(rng.normal()), step=5)
+        led.record(
+            r.key,
+            "return",
+            float(10 * np.log1p(r.size) + gain + rng.normal(0, 2)),
+            final=True,
+            force=True,
+            done=True,
+        )
+        led.record(r.key, "val_return", float(rng.normal()), step=5, force=True, new_metric=True)
+        led.record(r.key, "return", float(rng.normal()), step=5, force=True, new_metric=True)
     led.close()
     return ledger
 

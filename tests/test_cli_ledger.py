@@ -74,11 +74,22 @@ def test_next_record_done_fail_status_export(ready, tmp_path: Path):
         values,
         "--subset-digest",
         claim["subset_digest"],
+        "--final",
         "--ledger",
         ledger,
     )
     assert rec.exit_code == 0 and "1 stored" in rec.output
-    rec2 = run("record", claim["key"], "success=1", "length=40", "--step", "5", "--ledger", ledger)
+    rec2 = run(
+        "record",
+        claim["key"],
+        "success=1",
+        "length=40",
+        "--step",
+        "5",
+        "--new-metric",
+        "--ledger",
+        ledger,
+    )
     assert "2 stored" in rec2.output
     assert run("done", claim["key"], "--ledger", ledger).exit_code == 0
     second = json.loads(
@@ -189,7 +200,8 @@ def test_exec_gives_the_environment(ready, tmp_path: Path):
     dump = tmp_path / "env.json"
     code = (
         "import json, os; json.dump({k: v for k, v in os.environ.items() if k.startswith('FEWSHOT_')}, "
-        f"open({str(dump)!r}, 'w'))"
+        f"open({str(dump)!r}, 'w')); from fewshot.writer import ResultWriter; "
+        "ResultWriter.from_env().write('return', 1.0, final=True)"
     )
     assert (
         run(
@@ -225,8 +237,14 @@ BAD_COMMANDS = [
     (["record", "wide/reach/n1/s0", "return"], "metric=value"),
     (["record", "wide/reach/n1/s0", "return=inf"], "finite"),
     (["record", "wide/reach/n1/s0", "return=nan"], "finite"),
-    (["record", "wide/reach/n1/s9", "return=1"], "has no run 'wide/reach/n1/s9'"),
-    (["record", "wide/reach/n1/s0", "return=1", "--subset-digest", "a" * 64], "other episodes"),
+    (["record", "wide/reach/n1/s9", "return=1", "--final"], "has no run 'wide/reach/n1/s9'"),
+    (
+        ["record", "wide/reach/n1/s0", "return=1", "--final", "--subset-digest", "a" * 64],
+        "other episodes",
+    ),
+    (["record", "wide/reach/n1/s0", "return=1"], "not marked final"),
+    (["record", "wide/reach/n1/s0", "return=1", "--final"], "--force"),
+    (["record", "wide/reach/n1/s0", "retrun=1", "--step", "3"], "--new-metric"),
     (["record", "wide/reach/n1/s0", "a=1", "b=2", "--values", "x.txt"], "exactly one metric"),
     (["done", "nope/reach/n1/s0"], "has no run"),
     (["fail", "wide/reach/n1/s77", "--message", "x"], "has no run"),
@@ -290,7 +308,9 @@ def test_refused_init_changes_nothing(ready, edits, fragment, dump, study_file):
 def test_ingest_bad_file_exits_2_naming_the_line(ready, tmp_path: Path, dump):
     _, ledger = ready
     bad = tmp_path / "r.jsonl"
-    bad.write_text('{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n{"run": "wide/re')
+    bad.write_text(
+        '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "final": true}\n{"run": "wide/re'
+    )
     before = dump(ledger)
     result = run("ingest", bad, "--ledger", ledger)
     assert result.exit_code == 2 and f"{bad}, line 2: not valid JSON" in result.output
@@ -332,6 +352,8 @@ while not pathlib.Path(sys.argv[2]).exists():
     if time.monotonic() > deadline:
         sys.exit("the gated trainer was never released (waited 120 s for the release file)")
     time.sleep(0.02)
+from fewshot.writer import ResultWriter
+ResultWriter.from_env().write("return", 1.0, final=True)
 """
 
 
@@ -392,7 +414,7 @@ def test_commands_other_than_init_never_create_a_ledger(tmp_path: Path):
         ["next", "--worker", "w"],
         ["export"],
         ["curves"],
-        ["record", "a/b/n1/s0", "x=1"],
+        ["record", "a/b/n1/s0", "x=1", "--final"],
     ):
         result = run(*args, "--ledger", missing)
         assert result.exit_code == 2, (args, result.output)

@@ -47,7 +47,14 @@ def ledger_of(
             continue
         k = 6.0 if r.arm == "wide" else 1.0
         v = float(min(100.0, 12 * np.log(k * r.size) + 20 + rng.normal(0, 3)))
-        led.record(r.key, "loss" if loss else "return", 100.0 - v if loss else v)
+        led.record(
+            r.key,
+            "loss" if loss else "return",
+            100.0 - v if loss else v,
+            final=True,
+            force=True,
+            done=True,
+        )
     led.close()
     return path
 
@@ -149,9 +156,10 @@ def test_status_says_has_results_not_marked_done(ledger_url, tmp_path: Path, stu
     led = _planned(ledger_url, study_file)
     try:
         keys = list(led.runs()["key"])
-        led.record(keys[0], "return", 50.0)  # final result, not marked done
-        led.record(keys[1], "return", 40.0, step=10)  # only a stepped evaluation: still planned
-        led.record(keys[2], "return", 60.0, done=True)  # the result and done in one call
+        # by hand, on planned runs: `force`
+        led.record(keys[0], "return", 50.0, final=True, force=True)  # final, not marked done
+        led.record(keys[1], "return", 40.0, step=10, force=True)  # only stepped: still planned
+        led.record(keys[2], "return", 60.0, final=True, force=True, done=True)  # both at once
         assert led.run_status(keys[2]) == "done"
         rep = led.status()
         assert rep.totals["has_results"] == 1 and list(rep.unmarked["key"]) == [keys[0]]
@@ -162,7 +170,7 @@ def test_status_says_has_results_not_marked_done(ledger_url, tmp_path: Path, stu
     assert out.exit_code == 0, out.output
     assert "1 run(s) have results, not marked done" in out.output
     assert "record RUN ... --done" in out.output and "done=True" in out.output
-    marked = run("record", keys[0], "return=50.0", "--done", "--ledger", ledger_url)
+    marked = run("record", keys[0], "return=50.0", "--final", "--done", "--ledger", ledger_url)
     assert marked.exit_code == 0 and "marked done" in marked.output
     data = json.loads(run("status", "--ledger", ledger_url, "--format", "json").stdout)
     assert data["totals"]["has_results"] == 0 and data["totals"]["done"] == 2
@@ -179,7 +187,7 @@ def test_record_done_refuses_whole_and_marks_nothing(tmp_path: Path, key, pair, 
     path = str(tmp_path / "l.sqlite")
     led = _planned(path, study_file)
     led.close()
-    result = run("record", key, pair, "--done", "--ledger", path)
+    result = run("record", key, pair, "--final", "--done", "--ledger", path)
     assert result.exit_code == 2 and says in result.output
     led = Ledger.open(path)
     try:

@@ -21,9 +21,11 @@ led = Ledger.open(sys.argv[1])
 name = sys.argv[2]
 n = 0
 while (c := led.claim(name, lease=600)) is not None:
-    led.record(c.key, "return", float(c.seed), values=[1.0, 2.0], subset_digest=c.subset_digest)
+    led.record(
+        c.key, "return", float(c.seed), final=True, values=[1.0, 2.0], subset_digest=c.subset_digest
+    )
     led.record(c.key, "return", 0.5, step=10)
-    led.record(c.key, "success", 1.0)
+    led.record(c.key, "success", 1.0, final=True)
     led.done(c.key)
     print(c.key, flush=True)
     n += 1
@@ -33,7 +35,10 @@ led.close()
 
 def _big_study(study_file) -> Path:
     return study_file(
-        sizes=[1, 2, 3, 4, 5], seeds=list(range(100)), arms={"wide": {"zero_shot": False}}
+        sizes=[1, 2, 3, 4, 5],
+        seeds=list(range(100)),
+        arms={"wide": {"zero_shot": False}},
+        metrics=["success"],
     )
 
 
@@ -93,7 +98,9 @@ def test_killed_ingest_then_rerun_stores_each_result_once(
         (results / f"part{part}.jsonl").write_text("\n".join(lines) + "\n")
         expected += len(lines)
     env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
-    cmd = [sys.executable, "-m", "fewshot.cli", "ingest", str(results), "--ledger", ledger_url]
+    # by hand, on planned runs: --force
+    cmd = [sys.executable, "-m", "fewshot.cli", "ingest", str(results), "--force"]
+    cmd += ["--ledger", ledger_url]
     rng = random.Random(7)
     for _ in range(20):  # kill at random points: during start-up, parsing, or inside a transaction
         proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
@@ -103,7 +110,7 @@ def test_killed_ingest_then_rerun_stores_each_result_once(
     done = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stderr
     led = Ledger.open(ledger_url)
-    frame = led.results()
+    frame = led.results(include_running=True)
     assert len(frame) == expected
     assert not frame.duplicated(["run", "metric", "step"]).any()
     assert (frame["n_values"] == 3).all()

@@ -106,7 +106,9 @@ def test_an_id_file_that_is_not_the_planned_subset_fails_the_run_unstarted(
     trainer = [
         sys.executable,
         "-c",
-        f"import os; open({str(started)!r}, 'a').write(os.environ['FEWSHOT_RUN'] + '\\n')",
+        f"import os; open({str(started)!r}, 'a').write(os.environ['FEWSHOT_RUN'] + '\\n'); "
+        "from fewshot.writer import ResultWriter; "
+        "ResultWriter.from_env().write('return', 1.0, final=True)",
     ]
     result = runner.invoke(
         app, ["exec", "--worker", "w", "--max-runs", "2", "--ledger", ledger, "--", *trainer]
@@ -124,7 +126,7 @@ def test_an_id_file_that_is_not_the_planned_subset_fails_the_run_unstarted(
 def test_a_results_file_with_another_runs_lines_fails_the_run(tmp_path: Path, ledger: str):
     write = (
         "import json, os\n"
-        "line = {'run': 'scratch/reach/n3/s2', 'metric': 'return', 'value': 1.0}\n"
+        "line = {'run': 'scratch/reach/n3/s2', 'metric': 'return', 'value': 1.0, 'final': True}\n"
         "open(os.environ['FEWSHOT_RESULTS'], 'a').write(json.dumps(line) + '\\n')\n"
     )
     result = runner.invoke(

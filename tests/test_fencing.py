@@ -26,7 +26,7 @@ runner = CliRunner()
 
 def _planned(study_file, folder: Path, url: str, seeds: int = 3) -> Ledger:
     led = Ledger.open(url)
-    led.plan(load_study(study_file(folder, seeds=list(range(seeds)))))
+    led.plan(load_study(study_file(folder, seeds=list(range(seeds)), metrics=["attempt"])))
     return led
 
 
@@ -43,16 +43,16 @@ def test_a_stale_attempt_cannot_mark_the_run_and_its_results_count_only_if_they_
     led = _planned(study_file, tmp_path, ledger_url)
     key, old, new = _two_attempts(led, wait_until)
     assert (old, new) == (1, 2)
-    led.record(key, "return", 5.0, attempt=new)
+    led.record(key, "return", 5.0, final=True, attempt=new)
     for call in (lambda: led.done(key, attempt=old), lambda: led.fail(key, "late", attempt=old)):
         with pytest.raises(StaleAttempt, match="attempt 2 took it over"):
             call()
     assert led.run_status(key) == "running"
-    agree = led.record(key, "return", 5.0, attempt=old)
-    differ = led.record(key, "return", 6.0, step=None, attempt=old)
-    unseen = led.record(key, "success", 1.0, attempt=old)
+    agree = led.record(key, "return", 5.0, final=True, attempt=old)
+    differ = led.record(key, "return", 6.0, step=None, final=True, attempt=old)
+    unseen = led.record(key, "attempt", 1.0, final=True, attempt=old)
     assert (agree.unchanged, differ.ignored, unseen.ignored) == (1, 1, 1)
-    res = led.results()
+    res = led.results(include_running=True)
     assert res[["metric", "value"]].values.tolist() == [["return", 5.0]]
     with pytest.raises(FewshotError, match="has no attempt 7"):
         led.done(key, attempt=7)
@@ -73,7 +73,7 @@ def test_the_current_attempt_replaces_what_an_older_attempt_stored(
     assert rep.replaced == 1
     with pytest.raises(FewshotError, match="refusing 3.0"):  # by hand: the usual rule
         led.record(key, "return", 3.0, step=100)
-    assert led.results()["value"].tolist() == [2.0]
+    assert led.results(include_running=True)["value"].tolist() == [2.0]
     led.close()
 
 
@@ -107,6 +107,7 @@ def test_done_from_a_worker_carries_its_attempt_from_the_environment(
     bad = runner.invoke(app, ["fail", key, "--message", "x", "--attempt", "0", "--ledger", ledger])
     assert bad.exit_code == 2 and "--attempt must be 1 or more" in bad.output
     monkeypatch.setenv("FEWSHOT_ATTEMPT", str(new))
+    led.record(key, "return", 1.0, final=True, attempt=new)
     assert runner.invoke(app, ["done", key, "--ledger", ledger]).exit_code == 0
     assert led.run_status(key) == "done"
     led.close()
@@ -122,11 +123,14 @@ def test_results_files_are_per_attempt_and_ingest_reads_the_attempt_from_the_nam
     key, old, new = _two_attempts(led, wait_until)
     a, b = results_file_for(tmp_path, key, old), results_file_for(tmp_path, key, new)
     assert a != b and (attempt_of_file(a), attempt_of_file(b)) == (old, new)
-    b.write_text(f'{{"run": "{key}", "metric": "return", "value": 2.0}}\n', encoding="utf-8")
-    a.write_text(f'{{"run": "{key}", "metric": "return", "value": 9.0}}\n', encoding="utf-8")
+    line = '{{"run": "{}", "metric": "return", "value": {}, "final": true}}\n'
+    b.write_text(line.format(key, 2.0), encoding="utf-8")
+    a.write_text(line.format(key, 9.0), encoding="utf-8")
     got = runner.invoke(app, ["ingest", str(b), str(a), "--ledger", ledger])
     assert got.exit_code == 0, got.output
-    assert "1 of an older attempt left out" in got.output
+    assert "1 of an attempt that no longer holds its run left out" in got.output
+    # the current attempt's file held the final result: its ingest marked the run done
+    assert "runs marked: 1 done, 0 failed" in got.output and led.run_status(key) == "done"
     assert led.results()["value"].tolist() == [2.0]
     led.close()
 
@@ -137,14 +141,14 @@ def test_a_stale_file_left_out_does_not_make_the_same_content_count_as_ingested(
     ledger = str(tmp_path / "l.sqlite")
     led = _planned(study_file, tmp_path, ledger)
     key, old, new = _two_attempts(led, wait_until)
-    line = f'{{"run": "{key}", "metric": "return", "value": 2.0}}\n'
+    line = f'{{"run": "{key}", "metric": "return", "value": 2.0, "final": true}}\n'
     a, b = results_file_for(tmp_path, key, old), results_file_for(tmp_path, key, new)
     a.write_text(line, encoding="utf-8")
     b.write_text(line, encoding="utf-8")  # the same bytes from both attempts
     assert led.ingest_file(a, run=key, attempt=old).ignored == 1  # the older one comes first
     got = led.ingest_file(b, run=key, attempt=new)
     assert not got.skipped and got.stored == 1
-    assert led.results()["value"].tolist() == [2.0]
+    assert led.results(include_running=True)["value"].tolist() == [2.0]
     led.close()
 
 
@@ -202,8 +206,8 @@ if attempt == 1 and zlib.crc32(key.encode()) % 3 == 0:
         os.kill(os.getppid(), signal.SIGCONT)
 with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
     value = zlib.crc32(key.encode()) % 1000 / 10
-    f.write(json.dumps({"run": key, "metric": "return", "value": value}) + "\n")
-    f.write(json.dumps({"run": key, "metric": "attempt", "value": attempt}) + "\n")
+    f.write(json.dumps({"run": key, "metric": "return", "value": value, "final": True}) + "\n")
+    f.write(json.dumps({"run": key, "metric": "attempt", "value": attempt, "final": True}) + "\n")
 """
 
 

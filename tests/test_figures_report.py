@@ -46,6 +46,9 @@ def ledger(tmp_path_factory, study_in) -> str:
             r.key,
             "return",
             float(min(100, 12 * np.log(gain[r.arm] * max(r.size, 0.5)) + 25 + rng.normal(0, 3))),
+            final=True,
+            force=True,
+            done=True,
         )
         led.done(r.key)
     led.fail(led.runs().iloc[-1]["key"], "the simulator crashed")

@@ -92,6 +92,7 @@ def test_claims_are_unique_and_leases_expire(planned, wait_until):
     assert again.key == first.key and again.attempt == 2  # the expired lease made it claimable
     assert not led.heartbeat(first.key, "w1")  # w1 no longer holds it
     assert led.heartbeat(again.key, "w3")
+    led.record(again.key, "return", 1.0, final=True, attempt=again.attempt)
     led.done(again.key)
     led.fail(second.key, "out of memory\n" * 1000)
     st = led.status()
@@ -122,9 +123,13 @@ def test_result_rules(planned, dump):
     led, _ = planned
     run = led.runs().iloc[3]
     key, digest = run["key"], run["subset_digest"]
-    assert led.record(key, "return", 50.0, values=[49.0, 51.0], subset_digest=digest).stored == 1
-    assert led.record(key, "return", 50.0, values=[49.0, 51.0]).unchanged == 1
-    assert led.record(key, "return", 10.0, step=100).stored == 1  # another step is another result
+    # by hand on a planned run: `force` (a claim's attempt would need none)
+    first = led.record(
+        key, "return", 50.0, final=True, values=[49.0, 51.0], subset_digest=digest, force=True
+    )
+    assert first.stored == first.forced == 1
+    assert led.record(key, "return", 50.0, final=True, values=[49.0, 51.0]).unchanged == 1
+    assert led.record(key, "return", 10.0, step=100, force=True).stored == 1  # another step
     before = dump(led._url)
     refusals = [
         (dict(metric="return", value=51.0), ResultRefused, "already has 'return' = 50.0"),
@@ -136,20 +141,31 @@ def test_result_rules(planned, dump):
             ResultRefused,
             "values\\[1\\]",
         ),
-        (dict(metric="x", value=1.0, subset_digest="0" * 64), ResultRefused, "other episodes"),
+        (
+            dict(metric="return", value=1.0, step=7, subset_digest="0" * 64),
+            ResultRefused,
+            "other episodes",
+        ),
         (dict(metric="x", value=1.0, subset_digest="xyz"), ResultRefused, "64 lowercase hex"),
         (dict(metric="x", value=1.0, step=-2), ResultRefused, "step"),
         (dict(metric="", value=1.0), ResultRefused, "metric"),
+        (dict(metric="retrun", value=1.0, step=7), ResultRefused, "Did you mean 'return'"),
+        (dict(metric="return", value=1.0), ResultRefused, "not marked final"),
+        (dict(metric="return", value=1.0, step=3, final=True), ResultRefused, "also has `step`"),
     ]
     for kwargs, error, fragment in refusals:
         with pytest.raises(error, match=fragment):
-            led.record(key, **kwargs)
+            call = {"final": "step" not in kwargs, "force": True, **kwargs}
+            if fragment == "not marked final":
+                call.pop("final")
+            led.record(key, **call)
         assert dump(led._url) == before
     with pytest.raises(
         UnknownRun, match="no run 'wide/rech/n10/s1'. Did you mean 'wide/reach/n10/s1'"
     ):
-        led.record("wide/rech/n10/s1", "return", 1.0)
-    assert led.record(key, "return", 51.0, replace=True).replaced == 1
+        led.record("wide/rech/n10/s1", "return", 1.0, final=True)
+    assert led.record(key, "return", 51.0, final=True, replace=True, force=True).replaced == 1
+    led.done(key)
     frame = led.results()
     final = frame[(frame["run"] == key) & frame["step"].isna()].iloc[0]
     assert final["value"] == 51.0 and final["n_values"] == 0
@@ -159,7 +175,16 @@ def test_results_table_columns(planned):
     led, _ = planned
     runs = led.runs()
     for r in runs.itertuples():
-        led.record(r.key, "return", float(r.size), values=[1.0, 2.0], budget={"steps": 10})
+        led.record(
+            r.key,
+            "return",
+            float(r.size),
+            final=True,
+            values=[1.0, 2.0],
+            budget={"steps": 10},
+            force=True,
+            done=True,
+        )
     frame = led.results()
     assert list(frame.columns) == [
         "study",
@@ -178,6 +203,13 @@ def test_results_table_columns(planned):
         "subset_digest",
         "budget",
         "recorded_at",
+        "run_status",
+        "final_from_step",
+        "forced",
+        "void",
+        "void_at",
+        "void_reason",
+        "void_by",
     ]
     assert len(frame) == 21 and set(frame["role"]) == {"pretrained", "baseline"}
     assert set(frame["group"]) == {"arm"} and (frame["n_values"] == 2).all()
@@ -185,7 +217,10 @@ def test_results_table_columns(planned):
 
 
 def _lines(keys: list[str], value: float = 1.0) -> str:
-    return "".join(json.dumps({"run": k, "metric": "return", "value": value}) + "\n" for k in keys)
+    return "".join(
+        json.dumps({"run": k, "metric": "return", "value": value, "final": True}) + "\n"
+        for k in keys
+    )
 
 
 def test_ingest_jsonl_and_csv_idempotent(planned, tmp_path: Path):
@@ -197,11 +232,16 @@ def test_ingest_jsonl_and_csv_idempotent(planned, tmp_path: Path):
     jl.write_text(_lines(keys[:10]) + "\n")
     csvf = tmp_path / "b.csv"
     csvf.write_text(
-        "run,metric,value,step,values\n"
-        + "".join(f'{k},success,0.5,,"[0.0, 1.0]"\n' for k in keys[10:15])
+        "run,metric,value,step,values,final\n"
+        + "".join(f'{k},success,0.5,,"[0.0, 1.0]",true\n' for k in keys[10:15])
     )
     seen = []
-    reports = led.ingest([tmp_path], progress=lambda done, total, r: seen.append((done, total)))
+    reports = led.ingest(
+        [tmp_path],
+        progress=lambda done, total, r: seen.append((done, total)),
+        force=True,  # by hand, on planned runs
+        new_metric=True,  # success is not declared
+    )
     assert seen == [(1, 2), (2, 2)]  # the progress callback sees every file, in order
     assert [(Path(r.path).name, r.stored, r.skipped) for r in reports] == [
         ("a.jsonl", 10, False),
@@ -211,32 +251,36 @@ def test_ingest_jsonl_and_csv_idempotent(planned, tmp_path: Path):
     # a new file repeating known results stores nothing new
     again = tmp_path / "again.jsonl"
     again.write_text(_lines(keys[:3]) + _lines(keys[15:16]))
-    rep = led.ingest_file(again)
+    rep = led.ingest_file(again, force=True)
     assert rep.stored == 1 and rep.unchanged == 3
-    assert len(led.results()) == 16
+    assert len(led.results(include_running=True)) == 16
+    assert len(led.results()) == 0  # no run is done
 
 
 @pytest.mark.parametrize(
     ("content", "fragment"),
     [
         (
-            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n{"run": "wide/reach/n1/s1", "metr',
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "final": true}\n{"run": "wide/reach/n1/s1", "metr',
             "line 2: not valid JSON",
         ),
-        ('{"run": "wide/reach/n1/s0", "metric": "return", "value": NaN}\n', "finite"),
-        ('{"run": "wide/reach/n1/s0", "metric": "return"}\n', "missing 'value'"),
         (
-            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "extra": 2}\n',
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": NaN, "final": true}\n',
+            "finite",
+        ),
+        ('{"run": "wide/reach/n1/s0", "metric": "return", "final": true}\n', "missing 'value'"),
+        (
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "final": true, "extra": 2}\n',
             "unknown field",
         ),
         (
-            '{"run": "nope/reach/n1/s0", "metric": "return", "value": 1}\n',
+            '{"run": "nope/reach/n1/s0", "metric": "return", "value": 1, "final": true}\n',
             "has no run 'nope/reach/n1/s0'",
         ),
         ("[1, 2]\n", "must be a JSON object"),
         (
-            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n'
-            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 2}\n',
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 1, "final": true}\n'
+            '{"run": "wide/reach/n1/s0", "metric": "return", "value": 2, "final": true}\n',
             "given twice with different values",
         ),
         (
@@ -249,7 +293,7 @@ def test_a_bad_file_writes_nothing(planned, tmp_path: Path, content, fragment, d
     led, _ = planned
     good = tmp_path / "good.jsonl"
     good.write_text(_lines(["wide/reach/n3/s0"]))
-    led.ingest_file(good)
+    led.ingest_file(good, force=True)
     before = dump(led._url)
     bad = tmp_path / "bad.jsonl"
     bad.write_text(content)
@@ -288,7 +332,7 @@ def test_several_studies_need_a_choice(tmp_path: Path, ledger_url: str, dump, st
     mini = Ledger.open(ledger_url, study="mini")
     before = dump(ledger_url)
     with pytest.raises(UnknownRun, match="belongs to another study in this ledger, not to 'mini'"):
-        mini.record("deep/reach/n1/s0", "return", 1.0)
+        mini.record("deep/reach/n1/s0", "return", 1.0, final=True)
     assert dump(ledger_url) == before
     with pytest.raises(LedgerError, match="no study 'third'"):
         Ledger.open(ledger_url, study="third").claim("w")

@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 from typer.testing import CliRunner
 
-import fewshot.ledger.write_side as write_side
+import fewshot.ledger.ingest_side as ingest_side
 from fewshot.cli import app
 from fewshot.errors import FewshotError
 from fewshot.ledger import Ledger
@@ -178,16 +178,17 @@ def test_a_known_file_is_skipped_before_it_is_parsed(ready, tmp_path: Path, monk
     _, ledger = ready
     path = tmp_path / "r.jsonl"
     path.write_text(
-        json.dumps({"run": "wide/reach/n1/s0", "metric": "return", "value": 1.0}) + "\n"
+        json.dumps({"run": "wide/reach/n1/s0", "metric": "return", "value": 1.0, "final": True})
+        + "\n"
     )
     with Ledger.open(ledger) as led:
-        assert led.ingest_file(path).stored == 1
+        assert led.ingest_file(path, force=True).stored == 1
         before = dump(ledger)
 
         def no_parsing(*_a: object, **_k: object):
             raise AssertionError("a file ingested before was parsed again")
 
-        monkeypatch.setattr(write_side, "parse_result_file", no_parsing)
+        monkeypatch.setattr(ingest_side, "parse_result_file", no_parsing)
         again = led.ingest_file(path)
     assert again.skipped and again.lines == 1 and again.stored == 0
     assert dump(ledger) == before

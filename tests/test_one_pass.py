@@ -36,7 +36,7 @@ def ledger(tmp_path_factory: pytest.TempPathFactory) -> str:
         for r in led.runs().itertuples():
             gain = 2.0 if r.arm == "broad-mix" else 1.0
             score = 20 + 15 * np.log1p(gain * r.size) + rng.normal(0, 4)
-            led.record(r.key, "return", float(score))
+            led.record(r.key, "return", float(score), final=True, force=True, done=True)
             led.done(r.key)
     finally:
         led.close()

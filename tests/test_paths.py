@@ -49,7 +49,7 @@ def test_odd_paths_work_or_give_a_message(tmp_path: Path, name: str, study_file)
         sys.executable,
         "-c",
         "import json, os; open(os.environ['FEWSHOT_RESULTS'], 'w').write(json.dumps("
-        "{'run': os.environ['FEWSHOT_RUN'], 'metric': 'return', 'value': 1.5}) + '\\n')",
+        "{'run': os.environ['FEWSHOT_RUN'], 'metric': 'return', 'value': 1.5, 'final': True}) + '\\n')",
     )
     assert code == 0, out
     assert len(list(res.glob("*.attempt1.jsonl"))) == 2

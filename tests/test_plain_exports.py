@@ -27,7 +27,15 @@ def ledger(tmp_path: Path, study_file) -> str:
     led.plan(load_study(study_file(tmp_path, sizes=SIZES)))
     keys = list(led.runs()["key"])
     for k in keys[:12]:
-        led.record(k, "return", 40.0, budget={"episodes": 3, "gpu_hours": 0.5})
+        led.record(
+            k,
+            "return",
+            40.0,
+            budget={"episodes": 3, "gpu_hours": 0.5},
+            final=True,
+            force=True,
+            done=True,
+        )
         led.done(k)
     led.close()
     return path

@@ -22,7 +22,7 @@ while (c := led.claim(sys.argv[2], lease=600)) is not None:
     for step in (100, 200):
         led.record(c.key, "return", float(step + c.seed), step=step)
         led.record(c.key, "success", 0.5, step=step)
-    led.record(c.key, "return", float(c.size), values=[1.0, 2.0, 3.0], subset_digest=c.subset_digest)
+    led.record(c.key, "return", float(c.size), final=True, values=[1.0, 2.0, 3.0], subset_digest=c.subset_digest)
     led.done(c.key)
     print(c.key, flush=True)
 """
@@ -30,7 +30,10 @@ while (c := led.claim(sys.argv[2], lease=600)) is not None:
 
 def _study(study_file, seeds: int) -> Path:
     return study_file(
-        sizes=[1, 2, 3, 4], seeds=list(range(seeds)), arms={"wide": {"zero_shot": False}}
+        sizes=[1, 2, 3, 4],
+        seeds=list(range(seeds)),
+        arms={"wide": {"zero_shot": False}},
+        metrics=["success"],
     )
 
 
@@ -130,7 +133,11 @@ def test_exec_never_goes_through_a_shell(tmp_path: Path, study_file):
     ledger = str(tmp_path / "l.sqlite")
     Ledger.open(ledger).plan(load_study(_study(study_file, 1)))
     seen = tmp_path / "argv.json"
-    code = f"import json, sys; json.dump(sys.argv[1:], open({str(seen)!r}, 'w'))"
+    code = (
+        f"import json, sys; json.dump(sys.argv[1:], open({str(seen)!r}, 'w')); "
+        "from fewshot.writer import ResultWriter; "
+        "ResultWriter.from_env().write('return', 1.0, final=True)"
+    )
     tricky = ["$HOME", "; touch pwned", "`id`", "a && b", "*"]
     result = CliRunner().invoke(
         app,

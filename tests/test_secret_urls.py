@@ -90,7 +90,7 @@ def test_the_report_shows_the_masked_url(tmp_path: Path, pg_scratch: str, study_
     assert runner.invoke(app, ["init", str(study), "--ledger", url]).exit_code == 0
     with Ledger.open(url) as led:
         for k, key in enumerate(led.runs()["key"]):
-            led.record(key, "return", float(k % 7))
+            led.record(key, "return", float(k % 7), final=True, force=True, done=True)
     out = tmp_path / "report.html"
     got = runner.invoke(app, ["report", "--ledger", url, "--out", str(out)])
     assert got.exit_code == 0, got.output

@@ -29,7 +29,7 @@ if key == os.environ.get("BROKEN"):
     sys.stderr.write("out of memory on purpose\\n")
     sys.exit(3)
 with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
-    f.write(json.dumps({"run": key, "metric": "return", "value": zlib.crc32(key.encode()) % 997}) + "\\n")
+    f.write(json.dumps({"run": key, "metric": "return", "value": zlib.crc32(key.encode()) % 997, "final": True}) + "\\n")
 """
 
 
@@ -144,8 +144,9 @@ def test_bad_input_exits_2_submits_nothing_and_changes_nothing(
 
 def test_pinned_with_nothing_pending_exits_2(tmp_path: Path, ledger: str, fake_path: Path, dump):
     _fake(fake_path, "sbatch", f"touch {tmp_path / 'submitted'}; echo 1")
+    writes = "from fewshot.writer import ResultWriter; ResultWriter.from_env().write('return', 1.0, final=True)"
     res = runner.invoke(
-        app, ["work", "--worker", "w", "--ledger", ledger, "--", sys.executable, "-c", ""]
+        app, ["work", "--worker", "w", "--ledger", ledger, "--", sys.executable, "-c", writes]
     )
     assert res.exit_code == 0, res.output
     before = dump(ledger)

@@ -24,8 +24,8 @@ import json, os, zlib
 key = os.environ["FEWSHOT_RUN"]
 device = os.environ.get("CUDA_VISIBLE_DEVICES", "")
 with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
-    f.write(json.dumps({"run": key, "metric": "return", "value": zlib.crc32(key.encode()) % 997}) + "\\n")
-    f.write(json.dumps({"run": key, "metric": "device", "value": int(device) if device else -1}) + "\\n")
+    f.write(json.dumps({"run": key, "metric": "return", "value": zlib.crc32(key.encode()) % 997, "final": True}) + "\\n")
+    f.write(json.dumps({"run": key, "metric": "device", "value": int(device) if device else -1, "final": True}) + "\\n")
 """
 
 # Marks that it started, then waits until it is stopped.
@@ -38,7 +38,7 @@ while True:
 
 
 def _init(study_file, ledger: str) -> None:
-    study = study_file()
+    study = study_file(metrics=["device"])
     res = runner.invoke(app, ["init", str(study), "--ledger", ledger])
     assert res.exit_code == 0, res.output
 

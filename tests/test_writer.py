@@ -32,14 +32,14 @@ def test_imports_only_the_standard_library():
 def test_lines_are_result_lines(tmp_path: Path):
     path = tmp_path / "r.jsonl"
     w = ResultWriter(str(path), "a/t/n1/s0", subset_digest="f" * 64)
-    w.write("return", 71.5, values=[70.0, 73.0], budget={"steps": 5000})
+    w.write("return", 71.5, final=True, values=[70.0, 73.0], budget={"steps": 5000})
     w.write("return", 40, step=100)
     lines = [json.loads(x) for x in path.read_text().splitlines()]
     assert lines[0] == {
         "run": "a/t/n1/s0",
         "metric": "return",
         "value": 71.5,
-        "step": None,
+        "final": True,
         "values": [70.0, 73.0],
         "subset_digest": "f" * 64,
         "budget": {"steps": 5000},
@@ -51,7 +51,7 @@ def test_lines_are_result_lines(tmp_path: Path):
 def test_non_finite_values_never_reach_the_file(tmp_path: Path, bad):
     path = tmp_path / "r.jsonl"
     with pytest.raises(ValueError):
-        ResultWriter(str(path), "a/t/n1/s0").write("return", bad)
+        ResultWriter(str(path), "a/t/n1/s0").write("return", bad, final=True)
     assert not path.exists()
 
 
@@ -101,7 +101,7 @@ def test_from_env_digests_the_id_file_it_was_given(monkeypatch, tmp_path: Path):
 def _append_many(path: str, k: int) -> None:
     w = ResultWriter(path, f"a/t/n1/s{k}")
     for i in range(300):
-        w.write("return", float(i), values=[float(i)] * 50)
+        w.write("return", float(i), step=i, values=[float(i)] * 50)
 
 
 def test_processes_appending_at_once_never_interleave(tmp_path: Path):

@@ -31,7 +31,8 @@ class StudyData:
     study : dict
         The study's stored settings (name, metric, higher_is_better, baseline, replicates, ...).
     arms, tasks, runs, results : DataFrame
-        :meth:`Ledger.arms`, :meth:`Ledger.tasks`, :meth:`Ledger.runs` and :meth:`Ledger.results`.
+        :meth:`Ledger.arms`, :meth:`Ledger.tasks`, :meth:`Ledger.runs` and :meth:`Ledger.results`
+        (results of done runs only, unless read with ``include_running``; column ``run_status``).
     status : object or None
         :meth:`Ledger.status` (the completion), when read with ``with_status=True``.
     url : str
@@ -57,14 +58,22 @@ class StudyData:
         return dict(zip(self.arms["arm"], self.arms["role"], strict=True))
 
 
-def read_study(ledger: Ledger, *, with_status: bool = False) -> StudyData:
-    """Read a study's data from ``ledger`` once (its result table once, twice ``with_status``)."""
+def read_study(
+    ledger: Ledger, *, with_status: bool = False, include_running: bool = False
+) -> StudyData:
+    """Read a study's data from ``ledger`` once (its result table once, twice ``with_status``).
+
+    A run's score comes only from a finished run: ``results`` holds the results of done runs,
+    never a void one. With ``include_running`` it also holds those of runs not done (planned,
+    running or failed), and its ``run_status`` column says which, so that they can be shown
+    marked as such.
+    """
     return StudyData(
         study=ledger.study_row(),
         arms=ledger.arms(),
         tasks=ledger.tasks(),
         runs=ledger.runs(),
-        results=ledger.results(),
+        results=ledger.results(include_running=include_running),
         status=ledger.status() if with_status else None,
         url=str(ledger.url),
     )

@@ -10,6 +10,7 @@ import typer
 
 from fewshot.cli import runs_cmd
 from fewshot.cli.common import (
+    AttemptOpt,
     LedgerOpt,
     StudyOpt,
     err,
@@ -19,7 +20,7 @@ from fewshot.cli.common import (
     reporting,
     styled,
 )
-from fewshot.cli.runs_cmd import LeaseOpt, WorkerOpt
+from fewshot.cli.runs_cmd import LeaseOpt, RunOpt, WorkerOpt
 from fewshot.errors import InvalidInput
 
 CommandArg = Annotated[list[str], typer.Argument(help="The trainer command, after '--'.")]
@@ -30,7 +31,8 @@ ResultsOpt = Annotated[
     Path | None,
     typer.Option(
         "--results",
-        help="Folder for per-run results files (FEWSHOT_RESULTS); ingested after each run.",
+        help="Folder for per-attempt results files (FEWSHOT_RESULTS); ingested after each run "
+        "(default: fewshot-results/ beside a SQLite ledger, else here).",
     ),
 ]
 AllowNetOpt = Annotated[
@@ -75,11 +77,15 @@ def work(
         ),
     ] = None,
     allow_network_fs: AllowNetOpt = False,
+    run: RunOpt = None,
+    attempt: AttemptOpt = None,
 ) -> None:
-    """Claim runs and run COMMAND for each with FEWSHOT_* set; mark each done or failed by its exit status (--parallel, --gpus: several loops)."""
+    """Claim runs and run COMMAND for each with FEWSHOT_* set; mark each done or failed by its exit status (--parallel, --gpus: several loops; --run: exactly one run)."""
     from fewshot.cluster.parallel import loop_plan
 
     with reporting():
+        if run is not None and (parallel is not None or gpus is not None):
+            raise InvalidInput("--run runs one run in one loop: drop --parallel and --gpus.")
         devices = None if gpus is None else int_list(gpus, option="--gpus")
         loops = loop_plan(worker, parallel, devices)
         if not command:
@@ -99,6 +105,8 @@ def work(
             results=results,
             ledger=ledger,
             study=study,
+            run=run,
+            attempt=attempt,
         )
         return
     _work_parallel(url, study, loops, command, max_runs, seconds, results)
@@ -209,6 +217,8 @@ def exec_renamed(
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
     allow_network_fs: AllowNetOpt = False,
+    run: RunOpt = None,
+    attempt: AttemptOpt = None,
 ) -> None:
     """Renamed to `fewshot work`."""
     err.print("note: `fewshot exec` was renamed to `fewshot work`; exec still works for now")
@@ -221,4 +231,6 @@ def exec_renamed(
         ledger=ledger,
         study=study,
         allow_network_fs=allow_network_fs,
+        run=run,
+        attempt=attempt,
     )

@@ -11,6 +11,7 @@ from fewshot.cli import (
     compare_cmd,
     demo_cmd,
     draw_cmd,
+    repair_cmd,
     results_cmd,
     runs_cmd,
     stats_cmd,
@@ -68,6 +69,8 @@ app.command("record")(results_cmd.record)
 app.command("ingest")(results_cmd.ingest)
 app.command("status")(results_cmd.status)
 app.command("export")(results_cmd.export)
+app.command("void")(repair_cmd.void)
+app.command("retry")(repair_cmd.retry)
 app.command("curves")(stats_cmd.curves_cmd)
 app.command("compare")(compare_cmd.compare)
 app.command("plot")(stats_cmd.plot)

@@ -70,6 +70,16 @@ def _values_file(path: Path) -> list[float]:
     return values
 
 
+# (only backticked names in messages that mention them: see cli.common.as_flags)
+RECORD_FLAGS = {
+    "replace": "--replace",
+    "step": "--step",
+    "final": "--final",
+    "force": "--force",
+    "new_metric": "--new-metric",
+}
+
+
 def record(
     run: Annotated[str, typer.Argument(help="The run key, e.g. arm/task/n10/s0.")],
     results: Annotated[
@@ -77,8 +87,12 @@ def record(
     ],
     *,
     step: Annotated[
-        int | None, typer.Option("--step", help="Training step of this evaluation (omit: final).")
+        int | None, typer.Option("--step", help="Training step of this evaluation.")
     ] = None,
+    final: Annotated[
+        bool,
+        typer.Option("--final", help="The run's final evaluation (instead of --step)."),
+    ] = False,
     values: Annotated[
         Path | None,
         typer.Option("--values", help="File of per-episode values behind the (single) metric."),
@@ -93,13 +107,26 @@ def record(
         bool, typer.Option("--done", help="Also mark the run done (its last results).")
     ] = False,
     attempt: AttemptOpt = None,
+    force: Annotated[
+        bool,
+        typer.Option(
+            "--force",
+            help="Record on a run that no attempt holds (a fix by hand; stored marked as forced).",
+        ),
+    ] = False,
+    new_metric: Annotated[
+        bool,
+        typer.Option(
+            "--new-metric", help="Accept a metric the study does not declare, and add it."
+        ),
+    ] = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
-    """Record results of a run: all of them or none."""
+    """Record results of a run (at --step N, or --final): all of them or none."""
     from fewshot.ledger.results import check_line
 
-    with reporting({"replace": "--replace"}):
+    with reporting(RECORD_FLAGS):
         pairs = _pairs(results)
         if values is not None and len(pairs) != 1:
             raise InvalidInput(
@@ -107,19 +134,38 @@ def record(
             )
         per_episode = _values_file(values) if values is not None else None
         lines = [
-            check_line(run, m, v, step=step, values=per_episode, subset_digest=subset_digest)
+            check_line(
+                run,
+                m,
+                v,
+                step=step,
+                final=final,
+                values=per_episode,
+                subset_digest=subset_digest,
+            )
             for m, v in pairs
         ]
         which = attempt_for(run, attempt)
         led = open_ledger(ledger, study)
         try:
-            rep = led.record_lines(lines, replace=replace, source="cli", done=done, attempt=which)
+            rep = led.record_lines(
+                lines,
+                replace=replace,
+                source="cli",
+                done=done,
+                attempt=which,
+                force=force,
+                new_metric=new_metric,
+            )
         finally:
             led.close()
-    ignored = f", {rep.ignored} left out (a newer attempt holds the run)" if rep.ignored else ""
+    ignored = (
+        f", {rep.ignored} left out (the attempt no longer holds the run)" if rep.ignored else ""
+    )
+    forced = f" ({rep.forced} marked forced)" if rep.forced else ""
     out.print(
-        f"{run}: {rep.stored} stored, {rep.unchanged} unchanged, {rep.replaced} replaced{ignored}"
-        + ("; marked done" if done else "")
+        f"{run}: {rep.stored} stored, {rep.unchanged} unchanged, {rep.replaced} replaced"
+        f"{forced}{ignored}" + ("; marked done" if done else "")
     )
 
 
@@ -131,13 +177,28 @@ def ingest(
     replace: Annotated[
         bool, typer.Option("--replace", help="Overwrite different earlier values.")
     ] = False,
+    force: Annotated[
+        bool,
+        typer.Option(
+            "--force",
+            help="Take results for runs that no attempt holds (stored marked as forced).",
+        ),
+    ] = False,
+    new_metric: Annotated[
+        bool,
+        typer.Option(
+            "--new-metric", help="Accept metrics the study does not declare, and add them."
+        ),
+    ] = False,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
-    """Ingest results files, one transaction each; a file ingested before is skipped."""
+    """Ingest results files, one transaction each; a file ingested before is skipped. A file of
+    an attempt (its name or its lines say which) ends that run: done with a final result of the
+    study's metric, failed without one once the claim's lease ran out."""
     from fewshot.ledger.write_side import expand_result_paths
 
-    with reporting({"replace": "--replace"}):
+    with reporting({"replace": "--replace", "force": "--force", "new_metric": "--new-metric"}):
         from fewshot.cli.slurm_cmd import ingest_pinned_folders
 
         paths = ingest_pinned_folders(paths, ledger, study)  # a pinned SLURM job's exit records
@@ -156,7 +217,13 @@ def ingest(
                 bar.advance(job)
 
             try:
-                led.ingest(files, replace=replace, progress=advance)
+                led.ingest(
+                    files,
+                    replace=replace,
+                    progress=advance,
+                    force=force,
+                    new_metric=new_metric,
+                )
             finally:
                 led.close()
                 if reports and len(reports) < total:
@@ -164,11 +231,17 @@ def ingest(
     stored = sum(r.stored for r in reports)
     skipped = sum(1 for r in reports if r.skipped)
     ignored = sum(r.ignored for r in reports)
-    late = f", {ignored} of an older attempt left out (they differ)" if ignored else ""
+    late = f", {ignored} of an attempt that no longer holds its run left out" if ignored else ""
+    marked = [r.marked for r in reports if r.marked]
+    ended = (
+        f"; runs marked: {marked.count('done')} done, {marked.count('failed')} failed"
+        if marked
+        else ""
+    )
     out.print(
         f"{len(reports)} file(s): {stored} results stored, "
         f"{sum(r.unchanged for r in reports)} already there, {skipped} file(s) ingested before"
-        f"{late}"
+        f"{late}{ended}"
     )
 
 
@@ -199,6 +272,10 @@ def status(
                 "expired": json.loads(rep.expired.to_json(orient="records")),
                 "failed": json.loads(rep.failed.to_json(orient="records")),
                 "has_results_not_done": json.loads(rep.unmarked.to_json(orient="records")),
+                "attempts": json.loads(rep.attempts.to_json(orient="records")),
+                "void_results": rep.voided,
+                "forced_results": rep.forced,
+                "finals_from_step": rep.from_step,
             }
         )
         return
@@ -260,6 +337,8 @@ def _print_status(rep) -> None:  # type: ignore[no-untyped-def]
             "  mark each with `fewshot done RUN`; report a run's last result with "
             "`fewshot record RUN ... --done` or `Ledger.record(..., done=True)` to do both at once"
         )
+    for line in _result_notes(rep):
+        out.print(line)
     t = rep.totals
     out.print(
         f"{t['done']} of {t['total']} runs done, {t['running']} running, {t['failed']} failed, "
@@ -267,6 +346,28 @@ def _print_status(rep) -> None:  # type: ignore[no-untyped-def]
         + (f", {t['has_results']} with results, not marked done" if t["has_results"] else "")
         + f"  ({rep.ledger})"
     )
+
+
+def _result_notes(rep) -> list[str]:  # type: ignore[no-untyped-def]
+    """Lines on attempts, void, forced and step-taken results (none when there are none)."""
+    lines = []
+    if rep.attempts_line():
+        lines.append(rep.attempts_line())
+    if rep.voided:
+        lines.append(
+            f"{rep.voided} result(s) void: kept, left out of every statistic "
+            "(`fewshot export` lists them with who voided them and why)"
+        )
+    if rep.forced:
+        lines.append(
+            f"{rep.forced} result(s) recorded by hand with --force on runs no attempt held"
+        )
+    if rep.from_step:
+        lines.append(
+            f"{rep.from_step} final result(s) taken from the run's last reported step when it was "
+            "marked done (column final_from_step of `fewshot export`)"
+        )
+    return lines
 
 
 def export(
@@ -278,10 +379,12 @@ def export(
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
-    """Write every result as a tidy table (one row per result), the input of the statistics."""
+    """Write every result as a tidy table (one row per result), void ones and those of runs not
+    done included (columns void and run_status say which; the statistics read live results of
+    done runs)."""
     with reporting():
         led = open_ledger(ledger, study)
-        frame = led.results()
+        frame = led.results(include_running=True, include_void=True)
         led.close()
         text = export_text(frame, fmt.value)
         if out_file is not None:

@@ -23,6 +23,7 @@ from fewshot.cli.common import (
     reporting,
     styled,
 )
+from fewshot.errors import InvalidInput
 
 WorkerOpt = Annotated[
     str, typer.Option("--worker", help="A name for this worker, e.g. the host name.")
@@ -71,6 +72,25 @@ def next_run(
         out.print(f"{label:10} {value}")
 
 
+RunOpt = Annotated[
+    str | None,
+    typer.Option(
+        "--run",
+        help="Run exactly this run (a scheduler job): claimed anew, or under the claim of "
+        "--attempt (FEWSHOT_ATTEMPT), e.g. one that `fewshot jobs` made.",
+    ),
+]
+WORK_FLAGS = {
+    "max_runs": "--max-runs",
+    "results_dir": "--results",
+    "command": "the command after --",
+    "run": "--run",
+    "attempt": "--attempt",
+    "void": "fewshot void",
+    "retry": "fewshot retry",
+}
+
+
 def exec_runs(
     command: Annotated[list[str], typer.Argument(help="The trainer command, after '--'.")],
     *,
@@ -83,19 +103,23 @@ def exec_runs(
         Path | None,
         typer.Option(
             "--results",
-            help="Folder for per-run results files (FEWSHOT_RESULTS); ingested after each run.",
+            help="Folder for per-attempt results files (FEWSHOT_RESULTS); ingested after each "
+            "run (default: fewshot-results/ beside a SQLite ledger, else here).",
         ),
     ] = None,
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
+    run: RunOpt = None,
+    attempt: AttemptOpt = None,
 ) -> None:
     """Claim runs and run COMMAND for each with FEWSHOT_* set; mark each done or failed by its exit status."""
     from fewshot.worker.loop import run_claims
 
-    with reporting(
-        {"max_runs": "--max-runs", "results_dir": "--results", "command": "the command after --"}
-    ):
+    with reporting(WORK_FLAGS):
         seconds = lease_seconds(lease)
+        which = None if run is None else attempt_for(run, attempt)
+        if attempt is not None and run is None:
+            raise InvalidInput("--attempt belongs to one run: give --run KEY with it.")
         led = open_ledger(ledger, study)
         try:
             outcomes = run_claims(
@@ -106,6 +130,8 @@ def exec_runs(
                 lease=seconds,
                 results_dir=results,
                 ledger_url=led.connect_url,
+                run=run,
+                attempt=which,
                 on_start=lambda c: err.print(
                     styled("[dim]start[/] {} (attempt {})", c.key, c.attempt)
                 ),
@@ -161,19 +187,29 @@ def jobs(
         str, typer.Option("--template", help="A command line with {run}, {subset}, {seed}, ...")
     ],
     include_failed: Annotated[
-        bool, typer.Option("--include-failed", help="Also list failed runs.")
+        bool, typer.Option("--include-failed", help="Also list (and claim) failed runs.")
     ] = False,
+    lease: Annotated[
+        str,
+        typer.Option(
+            "--lease",
+            help="How long each listed run stays claimed for its job (90s, 15m, 2h); it is not "
+            "listed again meanwhile.",
+        ),
+    ] = "2h",
     ledger: LedgerOpt = None,
     study: StudyOpt = None,
 ) -> None:
-    """Print one command line per planned run, for any scheduler (values are shell-quoted for
-    where they stand: bare, in '...' or in "...")."""
+    """Print one command line per planned run, for any scheduler, and claim each for its job
+    (values are shell-quoted for where they stand: bare, in '...' or in "..."). The job reports
+    with `fewshot work --run {run} --attempt {attempt} -- COMMAND`."""
     from fewshot.worker.jobs import job_lines
 
-    with reporting({"template": "--template"}):
+    with reporting({"template": "--template", "lease": "--lease"}):
+        seconds = lease_seconds(lease)
         led = open_ledger(ledger, study)
         try:
-            lines = job_lines(led, template, include_failed=include_failed)
+            lines = job_lines(led, template, include_failed=include_failed, lease=seconds)
         finally:
             led.close()
     for line in lines:

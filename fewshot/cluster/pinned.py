@@ -12,7 +12,9 @@ the unfinished results file and writes no exit record: the run stays not done, a
 submission covers it.
 
 On the login node, :func:`ingest_pinned` takes a results folder: each exit record of a run not
-yet done stores its results and marks it done (status 0) or failed with the log tail.
+yet done is recorded as an attempt of the run (claimed there and then, since the node could not
+claim it), its results stored under that attempt, and the run marked done (status 0 and a final
+result of the study's metric) or failed with the log tail.
 """
 
 from __future__ import annotations
@@ -32,6 +34,7 @@ from fewshot.errors import FewshotError, InvalidInput
 __all__ = ["PinnedReport", "exit_record_for", "frozen_runs", "ingest_pinned", "is_pinned_folder"]
 
 EXIT_SUFFIX = ".exit.json"
+CLAIM_LEASE = 3600.0  # held only while the login node records one exit record
 TAIL_LINES = 40
 
 
@@ -97,21 +100,25 @@ def ingest_pinned(ledger: Any, folder: Path) -> PinnedReport:
             report.already += 1  # recorded before
             continue
         results = results_for(folder, key)
+        # the node ran the run outside the ledger's claims: its work becomes an attempt now
+        claim = ledger.claim(f"pinned {job}"[:200], CLAIM_LEASE, run=key, include_failed=True)
         refused = None
         if rc == 0 and results.exists():
             try:
-                rep = ledger.ingest_file(results, run=key)
+                rep = ledger.ingest_file(results, run=key, attempt=claim.attempt)
                 report.stored += rep.stored + rep.replaced
             except FewshotError as exc:
                 rc, refused = 1, f"results file {results} was refused: {exc}"
         if rc == 0:
-            ledger.done(key)
-            report.done += 1
+            marked = ledger.settle(key, claim.attempt, "done")
         else:
             text = refused or str(rec.get("tail") or "").strip() or f"exited with status {rc}"
-            ledger.fail(key, f"exit status {rc} {job}: {text}", unclaimed=True)
+            marked = ledger.settle(key, claim.attempt, "failed", f"exit status {rc} {job}: {text}")
+        if marked == "done":
+            report.done += 1
+        else:
             report.failed += 1
-        status[key] = "done" if rc == 0 else "failed"
+        status[key] = marked
     return report
 
 

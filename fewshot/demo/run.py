@@ -76,6 +76,7 @@ def worker_loop(folder: str, ledger: str, name: str, lease: float = 600.0) -> in
                     claim.key,
                     "return",
                     mean,
+                    final=True,
                     values=values,
                     subset_digest=claim.subset_digest,
                     budget={"episodes": claim.size},

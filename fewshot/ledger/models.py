@@ -20,6 +20,7 @@ from sqlalchemy import (
     String,
     Text,
     UniqueConstraint,
+    false,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
@@ -114,11 +115,14 @@ class RunRow(Base):
     created_at: Mapped[float] = mapped_column(Float)
     started_at: Mapped[float | None] = mapped_column(Float, nullable=True)
     finished_at: Mapped[float | None] = mapped_column(Float, nullable=True)
+    # how many times the run was put back to the plan by `retry` (its attempts are kept)
+    retries: Mapped[int] = mapped_column(BigInteger, default=0, server_default="0")
 
 
-class ResultRow(Base):
-    __tablename__ = "result"
-    __table_args__ = (UniqueConstraint("run_id", "metric", "step"),)
+class _ResultFields:
+    """The columns a live result (:class:`ResultRow`) and a void one (:class:`VoidResultRow`)
+    share."""
+
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     run_id: Mapped[int] = mapped_column(ForeignKey("run.id"))
     metric: Mapped[str] = mapped_column(String(200))
@@ -131,6 +135,26 @@ class ResultRow(Base):
     source: Mapped[str | None] = mapped_column(String(80), nullable=True)
     # the attempt of the run that wrote this result (None: written by hand, without an attempt)
     attempt: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
+    # stored by hand on a run no attempt held (`force`), so a reader can tell
+    forced: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
+    # a final result taken from the run's last reported step when it was marked done: that step
+    final_from_step: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
+
+
+class ResultRow(_ResultFields, Base):
+    __tablename__ = "result"
+    __table_args__ = (UniqueConstraint("run_id", "metric", "step"),)
+
+
+class VoidResultRow(_ResultFields, Base):
+    """A result taken out of the statistics by ``void``: kept, with who voided it, when and why
+    (its per-episode values as a JSON list)."""
+
+    __tablename__ = "void_result"
+    values_json: Mapped[str] = mapped_column(Text)
+    void_at: Mapped[float] = mapped_column(Float)
+    void_reason: Mapped[str] = mapped_column(Text)
+    void_by: Mapped[str] = mapped_column(String(200))
 
 
 class ResultValueRow(Base):

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -51,14 +52,16 @@ class PlanReport:
     new_seeds: tuple[int, ...]
 
 
-def _spec_json(study: Study) -> str:
+def _spec_json(study: Study, added: Sequence[str] = ()) -> str:
+    """The stored spec; ``added``: metrics taken in later with ``new_metric`` (kept on re-plan)."""
+    metrics = list(dict.fromkeys([*study.metrics, *added]))
     return json.dumps(
         {
             "sizes": list(study.sizes),
             "seeds": list(study.seeds),
             "replicates": study.replicates,
             "file": str(study.path.resolve()),  # trainers resolve checkpoints against it
-            "metrics": list(study.metrics),
+            "metrics": metrics,
             "bounds": None if study.bounds is None else list(study.bounds),
             "caution": study.caution,
         },
@@ -99,7 +102,10 @@ def plan_study(conn: Connection, study: Study, draws: dict[str, TaskDraw]) -> Pl
         conn.execute(
             update(StudyRow)
             .where(StudyRow.id == sid)
-            .values(baseline=study.baseline, spec_json=_spec_json(study))
+            .values(
+                baseline=study.baseline,
+                spec_json=_spec_json(study, spec.get("metrics") or ()),
+            )
         )
     arm_ids, new_arms = _sync_arms(conn, sid, study)
     task_ids, new_tasks = _sync_tasks(conn, sid, study, draws)

@@ -5,10 +5,11 @@ from __future__ import annotations
 
 import json
 from collections.abc import Sequence
+from dataclasses import replace
 from typing import Any
 
 import pandas as pd
-from sqlalchemy import Connection, func, select
+from sqlalchemy import Connection, and_, case, func, literal, null, select
 
 from fewshot.ledger.connection import LedgerConnection
 from fewshot.ledger.models import (
@@ -19,6 +20,7 @@ from fewshot.ledger.models import (
     StudyRow,
     SubsetRow,
     TaskRow,
+    VoidResultRow,
 )
 from fewshot.ledger.status import StatusReport, summarise
 from fewshot.schema import RESULT_COLUMNS, RUN_COLUMNS
@@ -31,7 +33,8 @@ class LedgerReads(LedgerConnection):
 
     def runs(self, statuses: Sequence[str] | None = None) -> pd.DataFrame:
         """Runs of the study with their subset: columns key, arm, role, task, size, seed,
-        replicate, status, worker, lease_expires, attempts, message, subset_file, subset_digest."""
+        replicate, status, worker, lease_expires, attempts, message, subset_file, subset_digest,
+        retries (times ``retry`` put the run back to the plan)."""
 
         def go(c: Connection) -> pd.DataFrame:
             sid, _ = self._sid(c)
@@ -51,6 +54,7 @@ class LedgerReads(LedgerConnection):
                     RunRow.message,
                     SubsetRow.ids_path,
                     SubsetRow.digest,
+                    RunRow.retries,
                 )
                 .join(ArmRow, ArmRow.id == RunRow.arm_id)
                 .join(TaskRow, TaskRow.id == RunRow.task_id)
@@ -67,44 +71,75 @@ class LedgerReads(LedgerConnection):
 
         return self._tx(go)
 
-    def results(self) -> pd.DataFrame:
-        """One row per result. Columns: study, run, arm, role, task, group, size, seed,
-        replicate, metric, step (NaN for the final evaluation), value, n_values,
-        subset_digest, budget (JSON text or None), recorded_at (UTC timestamp)."""
+    def results(self, *, include_running: bool = False, include_void: bool = False) -> pd.DataFrame:
+        """One row per result, with :data:`fewshot.RESULT_COLUMNS` (step NaN for the final
+        evaluation).
+
+        By default only what a run's score may come from: results of done runs, not void. With
+        ``include_running`` also results of runs not done (planned, running, failed; the
+        ``run_status`` column says which); with ``include_void`` also voided results (``void``,
+        with who voided them, when and why).
+        """
 
         def go(c: Connection) -> pd.DataFrame:
             sid, name = self._sid(c)
-            rows = c.execute(
-                select(
-                    RunRow.key,
-                    ArmRow.name,
-                    ArmRow.role,
-                    TaskRow.name,
-                    TaskRow.grp,
-                    RunRow.size,
-                    RunRow.seed,
-                    RunRow.replicate,
-                    ResultRow.metric,
-                    ResultRow.step,
-                    ResultRow.value,
-                    ResultRow.n_values,
-                    ResultRow.subset_digest,
-                    ResultRow.budget_json,
-                    ResultRow.recorded_at,
-                )
-                .join(RunRow, RunRow.id == ResultRow.run_id)
-                .join(ArmRow, ArmRow.id == RunRow.arm_id)
-                .join(TaskRow, TaskRow.id == RunRow.task_id)
-                .where(RunRow.study_id == sid)
-                .order_by(RunRow.id, ResultRow.metric, ResultRow.step)
-            ).all()
-            frame = pd.DataFrame(rows, columns=RESULT_COLUMNS[1:])
+            frames = [self._result_rows(c, sid, ResultRow, include_running)]
+            if include_void:
+                frames.append(self._result_rows(c, sid, VoidResultRow, include_running))
+            frame = pd.concat(frames, ignore_index=True) if len(frames) > 1 else frames[0]
+            frame = frame.sort_values(["_order", "metric", "step", "void"], kind="stable")
+            frame = frame.drop(columns="_order").reset_index(drop=True)
             frame.insert(0, "study", name)
             frame["step"] = frame["step"].astype("Int64").mask(frame["step"] == FINAL_STEP)
-            frame["recorded_at"] = pd.to_datetime(frame["recorded_at"], unit="s", utc=True)
-            return frame
+            frame["final_from_step"] = frame["final_from_step"].astype("Int64")
+            frame["forced"] = frame["forced"].astype(bool)
+            frame["void"] = frame["void"].astype(bool)
+            for col in ("recorded_at", "void_at"):
+                frame[col] = pd.to_datetime(frame[col], unit="s", utc=True)
+            return frame[RESULT_COLUMNS]
 
         return self._tx(go)
+
+    @staticmethod
+    def _result_rows(
+        c: Connection, sid: int, table: type[ResultRow] | type[VoidResultRow], running: bool
+    ) -> pd.DataFrame:
+        void = table is VoidResultRow
+        cols = [
+            RunRow.key,
+            ArmRow.name,
+            ArmRow.role,
+            TaskRow.name,
+            TaskRow.grp,
+            RunRow.size,
+            RunRow.seed,
+            RunRow.replicate,
+            table.metric,
+            table.step,
+            table.value,
+            table.n_values,
+            table.subset_digest,
+            table.budget_json,
+            table.recorded_at,
+            RunRow.status,
+            table.final_from_step,
+            table.forced,
+            literal(void),
+            VoidResultRow.void_at if void else null(),
+            VoidResultRow.void_reason if void else null(),
+            VoidResultRow.void_by if void else null(),
+            RunRow.id,
+        ]
+        q = (
+            select(*cols)
+            .join(RunRow, RunRow.id == table.run_id)
+            .join(ArmRow, ArmRow.id == RunRow.arm_id)
+            .join(TaskRow, TaskRow.id == RunRow.task_id)
+            .where(RunRow.study_id == sid)
+        )
+        if not running:
+            q = q.where(RunRow.status == "done")
+        return pd.DataFrame(c.execute(q).all(), columns=[*RESULT_COLUMNS[1:], "_order"])
 
     def counts(self) -> dict[str, int]:
         """How many runs have each status."""
@@ -123,27 +158,51 @@ class LedgerReads(LedgerConnection):
         return self._tx(go)
 
     def status(self) -> StatusReport:
-        """The study's completion: runs per arm and size by status, expired leases, failures."""
+        """The study's completion: runs per arm and size by status, expired leases, failures,
+        attempts and retries, and counts of void, forced and step-taken results."""
         runs = self.runs()
-        return summarise(self.study, self.url, runs, with_results=self._final_result_runs())
+        unmarked, counts = self._result_facts()
+        rep = summarise(self.study, self.url, runs, with_results=unmarked)
+        return replace(
+            rep, voided=counts["voided"], forced=counts["forced"], from_step=counts["from_step"]
+        )
 
-    def _final_result_runs(self) -> set[str]:
-        """Keys of runs that are not done yet hold a final result of the study's metric."""
+    def _result_facts(self) -> tuple[set[str], dict[str, int]]:
+        """In one read of the result table: keys of runs not done that hold a final result of
+        the study's metric, and the counts of forced and step-taken results (and, from the void
+        table, of void ones)."""
 
-        def go(c: Connection) -> set[str]:
+        def go(c: Connection) -> tuple[set[str], dict[str, int]]:
             sid, _ = self._sid(c)
             metric = c.execute(select(StudyRow.metric).where(StudyRow.id == sid)).scalar_one()
-            q = (
-                select(RunRow.key)
-                .join(ResultRow, ResultRow.run_id == RunRow.id)
-                .where(
-                    RunRow.study_id == sid,
-                    RunRow.status.in_(["planned", "running"]),
-                    ResultRow.metric == metric,
-                    ResultRow.step == FINAL_STEP,
-                )
+            final_unmarked = and_(
+                RunRow.status.in_(["planned", "running"]),
+                ResultRow.metric == metric,
+                ResultRow.step == FINAL_STEP,
             )
-            return set(c.execute(q).scalars())
+            rows = c.execute(
+                select(
+                    RunRow.key,
+                    func.max(case((final_unmarked, 1), else_=0)),
+                    func.sum(case((ResultRow.forced.is_(True), 1), else_=0)),
+                    func.sum(case((ResultRow.final_from_step.is_not(None), 1), else_=0)),
+                )
+                .join(RunRow, RunRow.id == ResultRow.run_id)
+                .where(RunRow.study_id == sid)
+                .group_by(RunRow.key)
+            ).all()
+            voided = c.execute(
+                select(func.count())
+                .select_from(VoidResultRow)
+                .join(RunRow, RunRow.id == VoidResultRow.run_id)
+                .where(RunRow.study_id == sid)
+            ).scalar_one()
+            counts = {
+                "voided": int(voided),
+                "forced": int(sum(r[2] or 0 for r in rows)),
+                "from_step": int(sum(r[3] or 0 for r in rows)),
+            }
+            return {str(r[0]) for r in rows if r[1]}, counts
 
         return self._tx(go)
 

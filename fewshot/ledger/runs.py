@@ -12,12 +12,14 @@ from typing import Any
 from sqlalchemy import Connection, Row, and_, or_, select, update
 
 from fewshot.errors import FewshotError
+from fewshot.ledger.finals import Incomplete, ensure_final, primary_metric
 from fewshot.ledger.models import ArmRow, RunRow, SubsetRow, TaskRow
 
 __all__ = [
     "Claim",
     "StaleAttempt",
     "UnknownRun",
+    "claim_key",
     "claim_run",
     "extend_lease",
     "finish_run",
@@ -37,11 +39,17 @@ class StaleAttempt(FewshotError, RuntimeError):
     """A write from an attempt of a run that is no longer its current one (its lease ran out and
     the run was handed out again): its status change is refused."""
 
-    def __init__(self, key: str, attempt: int, current: int, what: str) -> None:
+    def __init__(
+        self, key: str, attempt: int, current: int, what: str, *, replanned: bool = False
+    ) -> None:
         super().__init__(
-            f"run {key!r}: attempt {attempt} is no longer the run's current one (attempt {current} "
-            f"took it over after attempt {attempt}'s lease ran out), so its {what} was not recorded. "
-            "Results of the older attempt are kept only where they agree with what is stored."
+            f"run {key!r}: attempt {attempt} no longer holds the run (it was put back to the "
+            f"plan, by `void` or `retry`), so its {what} was not recorded."
+            if replanned
+            else f"run {key!r}: attempt {attempt} is no longer the run's current one (attempt "
+            f"{current} took it over after attempt {attempt}'s lease ran out), so its {what} was "
+            "not recorded. Results of the older attempt are kept only where they agree with what "
+            "is stored."
         )
         self.key = key
         self.attempt = attempt
@@ -133,36 +141,26 @@ def claim_run(
     PostgreSQL the row is locked with ``FOR UPDATE SKIP LOCKED``.
     """
     now = time.time()
-    q = (
-        select(RunRow.id)
-        .where(
-            RunRow.study_id == sid,
-            or_(
-                RunRow.status == "planned",
-                and_(RunRow.status == "running", RunRow.lease_expires < now),
-            ),
-        )
-        .order_by(RunRow.id)
-        .limit(1)
-    )
+    q = select(RunRow.id).where(claimable(sid, now)).order_by(RunRow.id).limit(1)
     if skip_locked:
         q = q.with_for_update(skip_locked=True)
     rid = conn.execute(q).scalar()
     if rid is None:
         return None
+    return take_run(conn, rid, worker, lease, now)
+
+
+def take_run(
+    conn: Connection, rid: int, worker: str, lease: float, now: float, *, new_attempt: bool = True
+) -> Claim:
+    """Give run ``rid`` to ``worker`` as a new attempt, with a lease (caller's transaction); with
+    ``new_attempt=False`` the worker takes over the run's current attempt (a claim that
+    ``jobs`` made for a scheduler job)."""
     expires = now + lease
-    conn.execute(
-        update(RunRow)
-        .where(RunRow.id == rid)
-        .values(
-            status="running",
-            worker=worker,
-            lease_expires=expires,
-            attempts=RunRow.attempts + 1,
-            started_at=now,
-            message=None,
-        )
-    )
+    values: dict[str, Any] = {"status": "running", "worker": worker, "lease_expires": expires}
+    if new_attempt:
+        values.update(attempts=RunRow.attempts + 1, started_at=now, message=None)
+    conn.execute(update(RunRow).where(RunRow.id == rid).values(**values))
     r = conn.execute(
         select(
             RunRow.key,
@@ -195,6 +193,55 @@ def claim_run(
     )
 
 
+def claimable(sid: int, now: float, statuses: tuple[str, ...] = ("planned",)) -> Any:
+    """The condition of the runs of study ``sid`` a worker may claim: ``statuses`` (planned),
+    and running runs whose lease ran out."""
+    return and_(
+        RunRow.study_id == sid,
+        or_(
+            RunRow.status.in_(statuses),
+            and_(RunRow.status == "running", RunRow.lease_expires < now),
+        ),
+    )
+
+
+def claim_key(
+    conn: Connection,
+    run: Row[Any],
+    worker: str,
+    lease: float,
+    attempt: int | None,
+    *,
+    include_failed: bool = False,
+) -> Claim:
+    """Claim the run ``run`` itself for ``worker``.
+
+    Without ``attempt`` the run must be claimable (planned, or its lease ran out; or failed, with
+    ``include_failed``) and is taken as a new attempt. With ``attempt`` the worker takes over that attempt's claim (made by ``jobs``
+    for a scheduler job): the run must be running under that attempt.
+    """
+    run = lock_run(conn, run)
+    now = time.time()
+    expired = run.status == "running" and (run.lease_expires or 0) < now
+    again = run.status == "planned" or (include_failed and run.status == "failed")
+    if attempt is None and (again or expired):
+        return take_run(conn, run.id, worker, lease, now)
+    if attempt is not None and run.status == "running" and attempt == run.attempts:
+        return take_run(conn, run.id, worker, lease, now, new_attempt=False)
+    if attempt is not None and run.status == "running" and 1 <= attempt < run.attempts:
+        raise StaleAttempt(run.key, attempt, run.attempts, "claim")
+    held = f"attempt {run.attempts} of worker {run.worker!r} holds it"
+    why = {
+        "running": f"{held}; pass that `attempt` to take over its claim, or wait for its lease "
+        "to run out",
+        "done": "it is done; `void` its result or `retry` it to run it again",
+        "failed": "it failed; put it back to the plan with `retry` first",
+        "planned": "it is planned, with no claim; leave out `attempt` to claim it as a new one",
+    }[str(run.status)]
+    asked = "" if attempt is None else f" for attempt {attempt}"
+    raise FewshotError(f"run {run.key!r} cannot be claimed{asked}: {why}.")
+
+
 def extend_lease(
     conn: Connection, run: Row[Any], worker: str, lease: float, attempt: int | None = None
 ) -> bool:
@@ -221,11 +268,17 @@ def finish_run(
     """Mark a run ``done`` or ``failed`` (with the tail of a message) and drop its lease.
 
     With ``attempt``, only the run's current attempt may do so: an older one raises
-    :class:`StaleAttempt` and changes nothing.
+    :class:`StaleAttempt` and changes nothing. ``done`` needs the final result of the study's
+    primary metric (taken from the last reported step when none is marked final): without it
+    :class:`~fewshot.ledger.finals.Incomplete` is raised and nothing changes.
     """
     run = lock_run(conn, run) if attempt is not None else run
     if not check_attempt(run, attempt, f"'{status}'"):
         raise StaleAttempt(run.key, int(attempt), run.attempts, f"'{status}'")  # type: ignore[arg-type]
+    if attempt is not None and run.status == "planned":
+        raise StaleAttempt(run.key, attempt, run.attempts, f"'{status}'", replanned=True)
+    if status == "done" and not ensure_final(conn, run):
+        raise Incomplete(run.key, primary_metric(conn, run.study_id))
     # NUL characters (a trainer's binary stderr) cannot be stored in PostgreSQL text: drop them.
     text = None if message is None else message.replace("\x00", "")[-MESSAGE_LIMIT:]
     conn.execute(
@@ -262,6 +315,9 @@ def settle_run(
         return "superseded"
     if run.status != "running":  # the trainer marked the run itself (or it was handed back)
         return str(run.status)
+    if status == "done" and not ensure_final(conn, run):
+        status = "failed"
+        message = f"trainer exited 0 but reported no final {primary_metric(conn, run.study_id)}"
     finish_run(conn, run, status, message)
     return status
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import pandas as pd
 
@@ -35,6 +35,14 @@ class StatusReport:
         Failed runs: key, attempts, message.
     unmarked : pandas.DataFrame
         Runs with results, not marked done: key, status.
+    attempts : pandas.DataFrame
+        Runs that needed more than one attempt or were retried: key, status, attempts, retries.
+    voided : int
+        Results voided (kept, left out of every statistic).
+    forced : int
+        Live results stored by hand on a run that no attempt held.
+    from_step : int
+        Final results taken from a run's last reported step when it was marked done.
     """
 
     study: str
@@ -44,6 +52,29 @@ class StatusReport:
     expired: pd.DataFrame
     failed: pd.DataFrame
     unmarked: pd.DataFrame
+    attempts: pd.DataFrame = field(default_factory=pd.DataFrame)
+    voided: int = 0
+    forced: int = 0
+    from_step: int = 0
+
+    def attempts_line(self) -> str | None:
+        """ "3 runs needed more than one attempt (max 3); 2 were retried", or None."""
+        a = self.attempts
+        if a.empty:
+            return None
+        many = a[a["attempts"] > 1]
+        parts = []
+        if len(many):
+            parts.append(
+                f"{len(many)} run(s) needed more than one attempt (max {int(many['attempts'].max())})"
+            )
+        retried = a[a["retries"] > 0]
+        if len(retried):
+            parts.append(
+                f"{len(retried)} run(s) were retried, taking {int(retried['attempts'].sum())} "
+                f"attempts in all (max {int(retried['attempts'].max())})"
+            )
+        return "; ".join(parts) or None
 
 
 def summarise(
@@ -97,4 +128,13 @@ def summarise(
         drop=True
     )
     unmarked = runs.loc[unmarked_mask, ["key", "status"]].reset_index(drop=True)
-    return StatusReport(study, ledger, cells, totals, expired, failed, unmarked)
+    again = (
+        (runs["attempts"] > 1) | (runs["retries"] > 0)
+        if "retries" in runs
+        else runs["attempts"] > 1
+    )
+    cols = [c for c in ("key", "status", "attempts", "retries") if c in runs]
+    attempts = runs.loc[again, cols].reset_index(drop=True)
+    if "retries" not in attempts:
+        attempts["retries"] = 0
+    return StatusReport(study, ledger, cells, totals, expired, failed, unmarked, attempts)

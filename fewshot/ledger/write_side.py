@@ -1,73 +1,46 @@
-"""The ledger's write side: planning, claims and leases, results recorded and ingested."""
+"""The ledger's write side: planning, claims and leases, results recorded (and ingested, through
+:class:`~fewshot.ledger.ingest_side.LedgerIngest`)."""
 
 from __future__ import annotations
 
 import errno
 import time
-from collections.abc import Callable, Iterable, Sequence
-from dataclasses import dataclass
-from pathlib import Path
+from collections.abc import Sequence
 
-from sqlalchemy import Connection, insert, select
+from sqlalchemy import Connection, select
 
 from fewshot.errors import InvalidInput
 from fewshot.ledger import draws_undo
-from fewshot.ledger.connection import LedgerConnection
 from fewshot.ledger.engine import LedgerError
-from fewshot.ledger.models import IngestedFileRow
+from fewshot.ledger.ingest_side import IngestReport, LedgerIngest, expand_result_paths
+from fewshot.ledger.models import RunRow
 from fewshot.ledger.planning import PlanReport, plan_study
 from fewshot.ledger.results import (
-    ResultFileError,
     ResultLine,
     StoreReport,
     check_line,
-    file_digest_bytes,
-    parse_result_file,
     store_results,
 )
 from fewshot.ledger.runs import (
     Claim,
     check_lease,
     check_worker,
+    claim_key,
     claim_run,
+    claimable,
     extend_lease,
     find_run,
     finish_run,
     release_run,
     settle_run,
+    take_run,
 )
-from fewshot.results_format import attempt_of_file
 from fewshot.study import Study, draw_study
 
 __all__ = ["IngestReport", "LedgerWrites", "expand_result_paths"]
 
 
-@dataclass(frozen=True)
-class IngestReport:
-    """What ingesting one file did.
-
-    Attributes
-    ----------
-    path : str
-    lines : int
-        Result lines in the file.
-    skipped : bool
-        True when a file with the same content was ingested before (nothing written).
-    stored, unchanged, replaced, ignored : int
-        ``ignored``: results of an attempt no longer current that were left out (see
-        :func:`fewshot.ledger.results.store_results`).
-    """
-
-    path: str
-    lines: int
-    skipped: bool
-    stored: int = 0
-    unchanged: int = 0
-    replaced: int = 0
-    ignored: int = 0
-
-
-class LedgerWrites(LedgerConnection):
+class LedgerWrites(LedgerIngest):
     """The methods of :class:`fewshot.ledger.Ledger` that write."""
 
     # ------------------------------------------------------------------ planning
@@ -98,14 +71,52 @@ class LedgerWrites(LedgerConnection):
 
     # ------------------------------------------------------------------ runs
 
-    def claim(self, worker: str, lease: float = 7200.0) -> Claim | None:
-        """Atomically claim one planned run (or one whose lease expired) for ``worker``."""
+    def claim(
+        self,
+        worker: str,
+        lease: float = 7200.0,
+        *,
+        run: str | None = None,
+        attempt: int | None = None,
+        include_failed: bool = False,
+    ) -> Claim | None:
+        """Atomically claim one planned run (or one whose lease expired) for ``worker``; None
+        when none is left.
+
+        With ``run``, claim that run: a new attempt when it is planned (or its lease ran out),
+        or, with ``attempt``, take over that attempt's claim (one that :meth:`claim_pending`
+        made for a scheduler job); anything else is an error saying why. ``include_failed``
+        lets a failed ``run`` be claimed anew too (a pinned job's exit record being recorded).
+        """
         check_worker(worker)
         check_lease(lease)
 
         def go(c: Connection) -> Claim | None:
-            sid, _ = self._sid(c)
+            sid, name = self._sid(c)
+            if run is not None:
+                row = find_run(c, sid, run, name)
+                return claim_key(c, row, worker, lease, attempt, include_failed=include_failed)
             return claim_run(c, sid, worker, lease, skip_locked=self._skip_locked)
+
+        return self._tx(go)
+
+    def claim_pending(
+        self, worker: str, lease: float = 7200.0, *, include_failed: bool = False
+    ) -> list[Claim]:
+        """Claim every claimable run at once (planned, lease run out, and failed with
+        ``include_failed``), each as a new attempt with its lease: what ``jobs`` does, so that
+        the runs it lists are never listed again while their lease holds."""
+        check_worker(worker)
+        check_lease(lease)
+        statuses = ("planned", "failed") if include_failed else ("planned",)
+
+        def go(c: Connection) -> list[Claim]:
+            sid, _ = self._sid(c)
+            now = time.time()
+            q = select(RunRow.id).where(claimable(sid, now, statuses)).order_by(RunRow.id)
+            if self._skip_locked:
+                q = q.with_for_update(skip_locked=True)
+            return [take_run(c, rid, worker, lease, now) for rid in c.execute(q).scalars().all()]
 
         return self._tx(go)
 
@@ -134,7 +145,11 @@ class LedgerWrites(LedgerConnection):
 
     def done(self, run: str, *, attempt: int | None = None) -> None:
         """Mark ``run`` done. With ``attempt`` (a worker's ``FEWSHOT_ATTEMPT``), only while that
-        attempt is the run's current one: else :class:`StaleAttempt` and nothing changes."""
+        attempt is the run's current one: else :class:`StaleAttempt` and nothing changes.
+
+        A run is done only with a final result of the study's primary metric: without one the
+        last reported step's result becomes the final one (the ledger records the step), and a
+        run with neither is refused (:class:`~fewshot.ledger.finals.Incomplete`)."""
         self._finish(run, "done", None, attempt)
 
     def fail(
@@ -198,28 +213,43 @@ class LedgerWrites(LedgerConnection):
         value: float,
         *,
         step: int | None = None,
+        final: bool = False,
         values: Sequence[float] | None = None,
         subset_digest: str | None = None,
         budget: dict[str, float] | None = None,
         replace: bool = False,
         done: bool = False,
         attempt: int | None = None,
+        force: bool = False,
+        new_metric: bool = False,
     ) -> StoreReport:
-        """Record one result of ``run``; see the module ``fewshot.ledger.results`` for the rules.
+        """Record one result of ``run``: at a training ``step``, or its final evaluation
+        (``final=True``); see the module ``fewshot.ledger.results`` for the rules.
 
         ``done=True`` also marks the run done, in the same transaction (for the last result a
         trainer reports): without it a run whose results are all in still counts as not done.
+        ``attempt``: the claim's ``FEWSHOT_ATTEMPT``; without one, a run that is not running
+        takes the result only with ``force`` (stored as forced). ``new_metric`` adds a metric
+        the study does not declare.
         """
         line = check_line(
             run,
             metric,
             value,
             step=step,
+            final=final,
             values=None if values is None else list(values),
             subset_digest=subset_digest,
             budget=budget,
         )
-        return self.record_lines([line], replace=replace, done=done, attempt=attempt)
+        return self.record_lines(
+            [line],
+            replace=replace,
+            done=done,
+            attempt=attempt,
+            force=force,
+            new_metric=new_metric,
+        )
 
     def record_lines(
         self,
@@ -229,15 +259,25 @@ class LedgerWrites(LedgerConnection):
         source: str = "api",
         done: bool = False,
         attempt: int | None = None,
+        force: bool = False,
+        new_metric: bool = False,
     ) -> StoreReport:
         """Record several checked results at once: all of them or none. ``done=True`` also marks
-        their runs done, in the same transaction; ``attempt``: see
+        their runs done, in the same transaction; ``attempt``, ``force``, ``new_metric``: see
         :func:`fewshot.ledger.results.store_results` (a stale attempt marks nothing done)."""
 
         def go(c: Connection) -> StoreReport:
             sid, name = self._sid(c)
             report = store_results(
-                c, sid, name, lines, replace=replace, source=source, attempt=attempt
+                c,
+                sid,
+                name,
+                lines,
+                replace=replace,
+                source=source,
+                attempt=attempt,
+                force=force,
+                new_metric=new_metric,
             )
             if done:
                 for key in dict.fromkeys(ln.run for ln in lines):
@@ -245,125 +285,3 @@ class LedgerWrites(LedgerConnection):
             return report
 
         return self._tx(go)
-
-    def ingest(
-        self,
-        paths: Iterable[str | Path],
-        *,
-        replace: bool = False,
-        progress: Callable[[int, int, IngestReport], None] | None = None,
-    ) -> list[IngestReport]:
-        """Ingest JSONL or CSV results files (or folders of them), one transaction a file.
-
-        A file whose content was ingested before is skipped, so re-running an ingest after a
-        crash never doubles a result. A work loop's results file names its attempt
-        (``run.attempt2.jsonl``), and its results count only while that attempt is current.
-        ``progress(done, total, report)`` is called after each file. A refused file raises;
-        the files before it stay ingested (``progress`` has seen them).
-        """
-        files = expand_result_paths(paths)
-        reports: list[IngestReport] = []
-        for f in files:
-            reports.append(self.ingest_file(f, replace=replace, attempt=attempt_of_file(f)))
-            if progress is not None:
-                progress(len(reports), len(files), reports[-1])
-        return reports
-
-    def ingest_file(
-        self,
-        path: str | Path,
-        *,
-        replace: bool = False,
-        run: str | None = None,
-        attempt: int | None = None,
-    ) -> IngestReport:
-        """Ingest one results file: all of it or none of it.
-
-        A file whose content was ingested before is skipped before it is parsed. With ``run``,
-        every line must belong to that run (what ``exec`` asks of the file of the run it ran).
-        """
-        p = Path(path)
-        try:
-            data = p.read_bytes()
-        except OSError as exc:
-            raise ResultFileError(f"{p}: cannot read the results file ({exc.strerror}).") from None
-        digest = file_digest_bytes(data)
-
-        def seen_rows(c: Connection) -> int | None:
-            sid, _ = self._sid(c)
-            return c.execute(
-                select(IngestedFileRow.rows).where(
-                    IngestedFileRow.study_id == sid, IngestedFileRow.digest == digest
-                )
-            ).scalar()
-
-        known = self._tx(seen_rows)
-        if known is not None:
-            return IngestReport(str(p), int(known), True)
-        lines = parse_result_file(p, data)
-        if run is not None:
-            for ln in lines:
-                if ln.run != run:
-                    raise ResultFileError(
-                        f"{ln.where}: a result of run {ln.run!r}, but this file belongs to run "
-                        f"{run!r}. A run's results file holds only that run's results; write "
-                        "other runs' results to their own files."
-                    )
-
-        def go(c: Connection) -> IngestReport:
-            sid, name = self._sid(c)
-            seen = c.execute(
-                select(IngestedFileRow.id).where(
-                    IngestedFileRow.study_id == sid, IngestedFileRow.digest == digest
-                )
-            ).scalar()
-            if seen is not None:
-                return IngestReport(str(p), len(lines), True)
-            rep = store_results(
-                c,
-                sid,
-                name,
-                lines,
-                replace=replace,
-                source=f"file:{digest[:16]}",
-                attempt=attempt,
-            )
-            if rep.ignored:
-                # an older attempt's lines were left out: the same content from the current
-                # attempt must not be skipped as "ingested before"
-                return IngestReport(
-                    str(p), len(lines), False, rep.stored, rep.unchanged, rep.replaced, rep.ignored
-                )
-            c.execute(
-                insert(IngestedFileRow).values(
-                    study_id=sid,
-                    digest=digest,
-                    path=str(p),
-                    rows=len(lines),
-                    ingested_at=time.time(),
-                )
-            )
-            return IngestReport(
-                str(p), len(lines), False, rep.stored, rep.unchanged, rep.replaced, rep.ignored
-            )
-
-        return self._tx(go)
-
-    # ------------------------------------------------------------------ reading
-
-
-def expand_result_paths(paths: Iterable[str | Path]) -> list[Path]:
-    """Files as given, and every .jsonl/.csv file below each folder (sorted)."""
-    out: list[Path] = []
-    for raw in paths:
-        p = Path(raw)
-        if p.is_dir():
-            found = sorted(
-                q for q in p.rglob("*") if q.is_file() and q.suffix.lower() in (".jsonl", ".csv")
-            )
-            out.extend(found)
-        elif p.exists():
-            out.append(p)
-        else:
-            raise ResultFileError(f"{p}: no such results file or folder. Check the path.")
-    return out

@@ -1,5 +1,11 @@
 """Job lines for any scheduler: one command line per pending run, from a template whose
-placeholders are the fields of :mod:`fewshot.worker.fields`, each value shell-quoted."""
+placeholders are the fields of :mod:`fewshot.worker.fields` and ``{attempt}``, each value
+shell-quoted.
+
+Listing a run claims it (a new attempt, with a lease), so a second listing never hands it out
+again while the lease holds. The job reports under that claim: ``fewshot work --run {run}
+--attempt {attempt} -- COMMAND`` runs exactly that run, or its results file carries the attempt
+and its ingest marks the run."""
 
 from __future__ import annotations
 
@@ -14,16 +20,27 @@ if TYPE_CHECKING:
 
 __all__ = ["PLACEHOLDERS", "job_lines"]
 
-PLACEHOLDERS = tuple(RUN_FIELDS)
+PLACEHOLDERS = (*RUN_FIELDS, "attempt")
+JOBS_WORKER = "jobs"
 
 
-def job_lines(ledger: Ledger, template: str, *, include_failed: bool = False) -> list[str]:
-    """One command line per planned run (and failed run, with ``include_failed``) of
-    ``ledger``'s study, ``template``'s placeholders (``{run}``, ``{subset}``, ...) replaced by
-    the run's values, quoted for where they stand.
+def job_lines(
+    ledger: Ledger,
+    template: str,
+    *,
+    include_failed: bool = False,
+    lease: float = 7200.0,
+    worker: str = JOBS_WORKER,
+) -> list[str]:
+    """One command line per claimable run (planned, or its lease ran out; failed too with
+    ``include_failed``) of ``ledger``'s study, ``template``'s placeholders (``{run}``,
+    ``{subset}``, ``{attempt}``, ...) replaced by the run's values, quoted for where they stand.
 
-    A ``{ledger}`` placeholder is refused when the ledger's URL holds a password, which it would
-    print into every line.
+    Each run listed is claimed for ``worker`` with a lease of ``lease`` seconds, so it is not
+    listed again while the lease holds; the job takes the claim over with
+    ``fewshot work --run {run} --attempt {attempt}`` (or reports in a results file that carries
+    the attempt). A ``{ledger}`` placeholder is refused when the ledger's URL holds a password,
+    which it would print into every line.
     """
     parsed = parse_template(template, PLACEHOLDERS, option="`template`")
     if "ledger" in parsed.fields and ledger.url != ledger.connect_url:
@@ -31,6 +48,6 @@ def job_lines(ledger: Ledger, template: str, *, include_failed: bool = False) ->
             "the ledger URL holds a password, which {ledger} would print into every job line. "
             "Drop {ledger} and give trainers the URL through FEWSHOT_LEDGER instead."
         )
-    runs = ledger.runs(["planned", "failed"] if include_failed else ["planned"])
     context, url = trainer_context(ledger), ledger.connect_url
-    return [parsed.render(run_values(r, url, context)) for r in runs.itertuples()]
+    claims = ledger.claim_pending(worker, lease, include_failed=include_failed)
+    return [parsed.render({**run_values(c, url, context), "attempt": c.attempt}) for c in claims]

@@ -38,6 +38,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from fewshot.errors import FewshotError, InvalidInput
+from fewshot.ledger.engine import sqlite_path
 from fewshot.ledger.ledger import Ledger
 from fewshot.ledger.runs import Claim
 from fewshot.results_format import attempt_of_file, results_file_for
@@ -46,7 +47,9 @@ from fewshot.sampling.pools import read_id_list
 from fewshot.worker.fields import TrainerContext, run_environment, trainer_context
 
 __all__ = [
+    "DEFAULT_RESULTS_DIR",
     "ExecOutcome",
+    "default_results_dir",
     "Stopped",
     "attempt_of_file",
     "run_claims",
@@ -55,6 +58,7 @@ __all__ = [
 ]
 
 STDERR_TAIL_LINES = 40
+DEFAULT_RESULTS_DIR = "fewshot-results"
 STOP_GRACE_SECONDS = 10.0
 STOP_SIGNALS = tuple(
     s for s in (signal.SIGINT, signal.SIGTERM, getattr(signal, "SIGHUP", None)) if s is not None
@@ -147,20 +151,35 @@ def run_claims(
     ledger_url: str,
     on_start: Callable[[Claim], None] | None = None,
     on_end: Callable[[ExecOutcome], None] | None = None,
+    run: str | None = None,
+    attempt: int | None = None,
 ) -> list[ExecOutcome]:
     """Claim runs one after another and run ``command`` for each, until none is left
-    or ``max_runs`` have run."""
+    or ``max_runs`` have run.
+
+    With ``run``, run exactly that run once: claimed anew when it is planned, or, with
+    ``attempt``, under the claim that attempt holds (what ``jobs`` made for a scheduler job).
+    ``results_dir``: where each attempt's results file goes (default:
+    :func:`default_results_dir`)."""
     _check_command(command)
     if max_runs is not None and max_runs < 1:
         raise InvalidInput(f"`max_runs` must be 1 or more. Got {max_runs}.")
-    if results_dir is not None:
-        _make_results_dir(results_dir)
+    if attempt is not None and run is None:
+        raise InvalidInput("`attempt` belongs to one run: give `run` with it.")
+    results_dir = default_results_dir(ledger) if results_dir is None else results_dir
+    _make_results_dir(results_dir)
     study = trainer_context(ledger)  # the study-level fields, read once per loop
     outcomes: list[ExecOutcome] = []
     with _Signals() as signals:
         while max_runs is None or len(outcomes) < max_runs:
             signals.check()
-            claim = ledger.claim(worker, lease)
+            if run is not None and outcomes:
+                break
+            claim = (
+                ledger.claim(worker, lease)
+                if run is None
+                else ledger.claim(worker, lease, run=run, attempt=attempt)
+            )
             if claim is None:
                 break
             try:
@@ -224,7 +243,7 @@ def _run_one(
     claim: Claim,
     command: Sequence[str],
     lease: float,
-    results_dir: Path | None,
+    results_dir: Path,
     ledger_url: str,
     study: TrainerContext,
     signals: _Signals,
@@ -234,9 +253,7 @@ def _run_one(
     if refused is not None:
         status = ledger.settle(claim.key, claim.attempt, "failed", refused)
         return ExecOutcome(claim.key, status, -1, time.monotonic() - start, 0)
-    results = (
-        None if results_dir is None else results_file_for(results_dir, claim.key, claim.attempt)
-    )
+    results = results_file_for(results_dir, claim.key, claim.attempt)
     env = {**os.environ, **run_environment(claim, ledger_url, study, results)}
     tail: collections.deque[str] = collections.deque(maxlen=STDERR_TAIL_LINES)
     signals.check()
@@ -293,7 +310,7 @@ def _run_one(
     threads[0].join()
     ingested = 0
     message = None
-    if results is not None and results.exists():
+    if results.exists():
         try:
             report = ledger.ingest_file(results, run=claim.key, attempt=claim.attempt)
             ingested = report.stored + report.replaced
@@ -307,6 +324,13 @@ def _run_one(
         text = message or "".join(tail).strip() or f"exited with status {rc}"
         status = ledger.settle(claim.key, claim.attempt, "failed", f"exit status {rc}: {text}")
     return ExecOutcome(claim.key, status, rc, time.monotonic() - start, ingested)
+
+
+def default_results_dir(ledger: Ledger) -> Path:
+    """Where the work loop puts results files when not told: ``fewshot-results/`` beside a
+    SQLite ledger, or in the working directory for a PostgreSQL ledger."""
+    path = sqlite_path(ledger.connect_url)
+    return (path.parent if path is not None else Path.cwd()) / DEFAULT_RESULTS_DIR
 
 
 def _make_results_dir(folder: Path) -> None:
