@@ -308,7 +308,8 @@ def settle_run(
     conn: Connection, run: Row[Any], attempt: int, status: str, message: str | None
 ) -> str:
     """What the work loop does when a trainer ends: mark the run ``status`` when ``attempt`` is
-    still current and the run still running. Returns the status the run is left in, or
+    still current and the run still running (``done`` without a final result of the study's
+    metric marks it failed, saying so). Returns the status the run is left in, or
     ``superseded`` when a newer attempt holds the run (nothing is changed then)."""
     run = lock_run(conn, run)
     if not check_attempt(run, attempt, f"'{status}'"):
@@ -316,9 +317,13 @@ def settle_run(
     if run.status != "running":  # the trainer marked the run itself (or it was handed back)
         return str(run.status)
     if status == "done" and not ensure_final(conn, run):
+        # ``message`` of a done run, if any, names where it ran (a pinned job), kept in the reason
+        where = "" if message is None else f" {message}"
         status = "failed"
-        message = f"trainer exited 0 but reported no final {primary_metric(conn, run.study_id)}"
-    finish_run(conn, run, status, message)
+        message = (
+            f"trainer exited 0 but reported no final {primary_metric(conn, run.study_id)}{where}"
+        )
+    finish_run(conn, run, status, None if status == "done" else message)
     return status
 
 
