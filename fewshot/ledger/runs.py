@@ -232,11 +232,11 @@ def claim_key(
         raise StaleAttempt(run.key, attempt, run.attempts, "claim")
     held = f"attempt {run.attempts} of worker {run.worker!r} holds it"
     why = {
-        "running": f"{held}; pass that `attempt` to take over its claim, or wait for its lease "
-        "to run out",
+        "running": f"{held}; give that attempt (FEWSHOT_ATTEMPT) to take over its claim, or "
+        "wait for its lease to run out",
         "done": "it is done; `void` its result or `retry` it to run it again",
         "failed": "it failed; put it back to the plan with `retry` first",
-        "planned": "it is planned, with no claim; leave out `attempt` to claim it as a new one",
+        "planned": "it is planned, with no claim; give no attempt to claim it as a new one",
     }[str(run.status)]
     asked = "" if attempt is None else f" for attempt {attempt}"
     raise FewshotError(f"run {run.key!r} cannot be claimed{asked}: {why}.")
