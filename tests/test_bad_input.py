@@ -479,6 +479,78 @@ CASES += [
     ),
 ]
 
+# what counts as a run's result (explicit finals, declared metrics, claims), void and retry
+CASES += [
+    (
+        "record-neither-step-nor-final",
+        None,
+        ["record", "wide/reach/n1/s0", "return=1", *LEDGER],
+        "has no step and is not marked final",
+    ),
+    (
+        "record-final-and-step",
+        None,
+        ["record", "wide/reach/n1/s0", "return=1", "--final", "--step", "3", *LEDGER],
+        "is marked --final and also has --step 3",
+    ),
+    (
+        "record-undeclared-metric",
+        None,
+        ["record", "wide/reach/n1/s0", "retrun=1", "--step", "3", "--force", *LEDGER],
+        "does not declare the metric 'retrun'",
+    ),
+    (
+        "record-unclaimed-run",
+        None,
+        ["record", "wide/reach/n1/s0", "return=1", "--final", *LEDGER],
+        "no claim of it is writing this result",
+    ),
+    (
+        "ingest-line-neither-step-nor-final",
+        _bytes("r.jsonl", b'{"run": "wide/reach/n1/s0", "metric": "return", "value": 1}\n'),
+        ["ingest", "{d}/r.jsonl", *LEDGER],
+        "r.jsonl, line 1: 'return' = 1.0 has no step and is not marked final",
+    ),
+    (
+        "done-without-a-final",
+        None,
+        ["done", "wide/reach/n1/s0", *LEDGER],
+        "cannot be marked done: it has no final 'return'",
+    ),
+    ("void-blank-reason", None, ["void", "wide/reach/n1/s0", "--reason", " ", *LEDGER], "--reason"),
+    (
+        "void-nothing-to-void",
+        None,
+        ["void", "wide/reach/n1/s0", "--reason", "x", *LEDGER],
+        "has no results to void",
+    ),
+    ("retry-no-failed-run", None, ["retry", "--failed", *LEDGER], "--failed finds none"),
+    ("retry-two-ways", None, ["retry", "wide/reach/n1/s0", "--failed", *LEDGER], "one way"),
+    (
+        "work-attempt-without-run",
+        None,
+        ["work", "--worker", "w", "--attempt", "2", *LEDGER, "--", "true"],
+        "--attempt belongs to one run",
+    ),
+    (
+        "work-run-not-claimable",
+        None,
+        [
+            "work",
+            "--worker",
+            "w",
+            "--run",
+            "wide/reach/n1/s0",
+            "--attempt",
+            "1",
+            *LEDGER,
+            "--",
+            "true",
+        ],
+        "it is planned, with no claim",
+    ),
+]
+
 
 @pytest.mark.parametrize(
     ("make", "args", "fragment"), [c[1:] for c in CASES], ids=[c[0] for c in CASES]

@@ -122,3 +122,36 @@ def test_mixed_attempts_in_one_file_are_refused(planned, tmp_path: Path, dump):
     with pytest.raises(FewshotError, match="results of attempts 1, 2 are mixed"):
         led.ingest([path])
     assert dump(led.connect_url) == before
+
+
+def test_pinned_tasks_without_a_final_result(tmp_path: Path, study_file, cli):
+    """Pinned array tasks that exit 0: one reported only steps (done, its last step the final),
+    one reported nothing (failed, naming the task); ingesting again records nothing twice."""
+    from fewshot.cluster.pinned import exit_record_for, results_for
+
+    url = str(tmp_path / "l.sqlite")
+    assert cli("init", study_file(seeds=[0], sizes=[1]), "--ledger", url).exit_code == 0
+    folder = tmp_path / "res"
+    folder.mkdir()
+    stepped, silent = "wide/reach/n1/s0", "scratch/reach/n1/s0"
+    results_for(folder, stepped).write_text(
+        _line(stepped, 2.0, step=1) + _line(stepped, 3.0, step=4)
+    )
+    for i, key in enumerate((stepped, silent)):
+        record = {"run": key, "returncode": 0, "job": f"77_{i}", "tail": ""}
+        exit_record_for(folder, key).write_text(json.dumps(record))
+    first = cli("ingest", folder, "--ledger", url)
+    assert first.exit_code == 0 and "1 runs done, 1 failed" in first.output, first.output
+    with Ledger.open(url) as led:
+        runs = led.runs().set_index("key")
+        finals = led.results().query("step.isna()", engine="python")
+    assert runs.loc[stepped, "status"] == "done"
+    assert finals[["run", "value", "final_from_step"]].values.tolist() == [[stepped, 3.0, 4]]
+    assert runs.loc[silent, "status"] == "failed"
+    assert runs.loc[silent, "message"] == (
+        "trainer exited 0 but reported no final return (SLURM job 77_1)"
+    )
+    again = cli("ingest", folder, "--ledger", url)
+    assert "0 runs done, 0 failed, 2 recorded before" in again.output, again.output
+    with Ledger.open(url) as led:
+        assert led.runs().set_index("key")["attempts"].tolist() == [1, 1]

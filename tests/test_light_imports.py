@@ -27,6 +27,7 @@ COMMAND_MODULES = [
     "fewshot.cli.common",
     "fewshot.cli.draw_cmd",
     "fewshot.cli.results_cmd",
+    "fewshot.cli.repair_cmd",
     "fewshot.cli.runs_cmd",
     "fewshot.cli.study_cmd",
     "fewshot.cli.demo_cmd",

@@ -7,6 +7,7 @@ follow the format of proc(5) (/proc/[pid]/mounts: device, mount point, type, opt
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 import pytest
@@ -122,7 +123,10 @@ def test_work_and_slurm_refuse_a_ledger_on_nfs_and_change_nothing(
             "--ledger",
             ledger,
             "--",
-            "true",
+            sys.executable,
+            "-c",
+            "from fewshot.writer import ResultWriter; "
+            "ResultWriter.from_env().write('return', 1.0, final=True)",
         ],
     )
     assert res.exit_code == 0, res.output

@@ -85,7 +85,8 @@ TRAINER = r"""
 import json, os, time
 time.sleep(0.2)
 with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
-    f.write(json.dumps({"run": os.environ["FEWSHOT_RUN"], "metric": "return", "value": 1.5}) + "\n")
+    line = {"run": os.environ["FEWSHOT_RUN"], "metric": "return", "value": 1.5, "final": True}
+    f.write(json.dumps(line) + "\n")
 """
 
 

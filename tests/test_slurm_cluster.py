@@ -44,7 +44,7 @@ if key == os.environ.get("GATE_RUN") and not mark.exists():
     while True:
         time.sleep(60)
 with open(os.environ["FEWSHOT_RESULTS"], "a", encoding="utf-8") as f:
-    f.write(json.dumps({"run": key, "metric": "return", "value": zlib.crc32(key.encode()) % 997}) + "\\n")
+    f.write(json.dumps({"run": key, "metric": "return", "value": zlib.crc32(key.encode()) % 997, "final": True}) + "\\n")
 """
 
 

@@ -84,8 +84,6 @@ WORK_FLAGS = {
     "max_runs": "--max-runs",
     "results_dir": "--results",
     "command": "the command after --",
-    "run": "--run",
-    "attempt": "--attempt",
     "void": "fewshot void",
     "retry": "fewshot retry",
 }

@@ -109,8 +109,8 @@ def ingest_pinned(ledger: Any, folder: Path) -> PinnedReport:
                 report.stored += rep.stored + rep.replaced
             except FewshotError as exc:
                 rc, refused = 1, f"results file {results} was refused: {exc}"
-        if rc == 0:
-            marked = ledger.settle(key, claim.attempt, "done")
+        if rc == 0:  # (job) names the task in the reason, should it fail for want of a final
+            marked = ledger.settle(key, claim.attempt, "done", job)
         else:
             text = refused or str(rec.get("tail") or "").strip() or f"exited with status {rc}"
             marked = ledger.settle(key, claim.attempt, "failed", f"exit status {rc} {job}: {text}")

@@ -232,11 +232,11 @@ def claim_key(
         raise StaleAttempt(run.key, attempt, run.attempts, "claim")
     held = f"attempt {run.attempts} of worker {run.worker!r} holds it"
     why = {
-        "running": f"{held}; pass that `attempt` to take over its claim, or wait for its lease "
-        "to run out",
+        "running": f"{held}; give that attempt (FEWSHOT_ATTEMPT) to take over its claim, or "
+        "wait for its lease to run out",
         "done": "it is done; `void` its result or `retry` it to run it again",
         "failed": "it failed; put it back to the plan with `retry` first",
-        "planned": "it is planned, with no claim; leave out `attempt` to claim it as a new one",
+        "planned": "it is planned, with no claim; give no attempt to claim it as a new one",
     }[str(run.status)]
     asked = "" if attempt is None else f" for attempt {attempt}"
     raise FewshotError(f"run {run.key!r} cannot be claimed{asked}: {why}.")
@@ -308,7 +308,8 @@ def settle_run(
     conn: Connection, run: Row[Any], attempt: int, status: str, message: str | None
 ) -> str:
     """What the work loop does when a trainer ends: mark the run ``status`` when ``attempt`` is
-    still current and the run still running. Returns the status the run is left in, or
+    still current and the run still running (``done`` without a final result of the study's
+    metric marks it failed, saying so). Returns the status the run is left in, or
     ``superseded`` when a newer attempt holds the run (nothing is changed then)."""
     run = lock_run(conn, run)
     if not check_attempt(run, attempt, f"'{status}'"):
@@ -316,9 +317,13 @@ def settle_run(
     if run.status != "running":  # the trainer marked the run itself (or it was handed back)
         return str(run.status)
     if status == "done" and not ensure_final(conn, run):
+        # ``message`` of a done run, if any, names where it ran (a pinned job), kept in the reason
+        where = "" if message is None else f" {message}"
         status = "failed"
-        message = f"trainer exited 0 but reported no final {primary_metric(conn, run.study_id)}"
-    finish_run(conn, run, status, message)
+        message = (
+            f"trainer exited 0 but reported no final {primary_metric(conn, run.study_id)}{where}"
+        )
+    finish_run(conn, run, status, None if status == "done" else message)
     return status
 
 
