@@ -126,7 +126,7 @@ def record(
     """Record results of a run (at --step N, or --final): all of them or none."""
     from fewshot.ledger.results import check_line
 
-    with reporting(RECORD_FLAGS):
+    with reporting(RECORD_FLAGS, bare=True):  # the line's fields in quotes are its flags
         pairs = _pairs(results)
         if values is not None and len(pairs) != 1:
             raise InvalidInput(
