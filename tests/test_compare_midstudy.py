@@ -27,7 +27,7 @@ def _ledger(tmp_path: Path, study: Path, keep) -> tuple[str, dict[str, float]]: 
     for r in led.runs().itertuples():
         if keep(r):
             values[r.key] = (10 * r.size + r.seed**2) if r.arm == "wide" else 5 * r.size + r.seed
-    led.record_lines([_line(k, v) for k, v in values.items()])
+    led.record_lines([_line(k, v) for k, v in values.items()], done=True, force=True)
     led.close()
     return url, values
 

@@ -57,7 +57,9 @@ def accuracy(tmp_path: Path, study_file):
         [
             ResultLine(run=r.key, metric="acc", value=_acc(r.arm, r.size, r.seed))
             for r in runs.itertuples()
-        ]
+        ],
+        done=True,
+        force=True,
     )
     yield led
     led.close()
@@ -229,7 +231,9 @@ def test_the_scaling_view_and_thresholds_are_qualified_too(tmp_path: Path, study
             [
                 ResultLine(run=r.key, metric="acc", value=_acc(r.arm, r.size, r.seed))
                 for r in led.runs().itertuples()
-            ]
+            ],
+            done=True,
+            force=True,
         )
         data = _with_status(read_study(led), {"wide/reach/n10/s1"})
     finally:
@@ -261,7 +265,9 @@ def test_a_lower_is_better_metric_is_clipped_as_its_mirror(accuracy, tmp_path: P
             [
                 ResultLine(run=r.key, metric="err", value=1 - _acc(r.arm, r.size, r.seed))
                 for r in led.runs().itertuples()
-            ]
+            ],
+            done=True,
+            force=True,
         )
         err = curve_report(led, SETTINGS, normalised=True)
         raw = curve_report(led, SETTINGS)

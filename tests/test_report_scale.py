@@ -109,7 +109,7 @@ def wide_ledger(tmp_path_factory) -> tuple[str, dict[str, float]]:
         r.key: float(30 + gain[r.arm] + 10 * np.log2(r.size) + rng.normal(0, 4))
         for r in led.runs().itertuples()
     }
-    led.record_lines([_line(k, v) for k, v in values.items()], done=True)
+    led.record_lines([_line(k, v) for k, v in values.items()], done=True, force=True)
     led.close()
     return url, values
 
@@ -327,7 +327,7 @@ def test_report_reuses_its_iqm_for_the_scaling_view(tmp_path, study_file):
         r.key: float((10 if r.arm == "wide" else 5) * r.size + rng.normal(0, 3))
         for r in led.runs().itertuples()
     }
-    led.record_lines([_line(k, v) for k, v in values.items()], done=True)
+    led.record_lines([_line(k, v) for k, v in values.items()], done=True, force=True)
     settings = CurveSettings(resamples=500)
     try:
         data = read_study(led, with_status=True)
