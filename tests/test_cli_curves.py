@@ -113,9 +113,23 @@ def test_bad_options_exit_2(filled, args, fragment):
 
 def test_no_results_yet(tmp_path: Path, study_file):
     ledger = str(tmp_path / "l.sqlite")
-    Ledger.open(ledger).plan(load_study(study_file(tmp_path)))
+    led = Ledger.open(ledger)
+    led.plan(load_study(study_file(tmp_path)))
     result = run("curves", "--ledger", ledger)
-    assert result.exit_code == 2 and "has no results yet" in result.output
+    assert result.exit_code == 2 and "has no results of done runs yet" in result.output
+    # a running run's stepped result: still none of a done run, and the message names the flag
+    claim = led.claim("w", lease=60)
+    assert claim is not None
+    led.record(claim.key, "return", 4.0, step=5, attempt=claim.attempt)
+    led.close()
+    result = run("curves", "--ledger", ledger)
+    assert result.exit_code == 2 and "has no results of done runs yet" in result.output
+    assert "--include-running shows the results of unfinished runs" in " ".join(
+        result.output.split()
+    )
+    shown = run("curves", "--ledger", ledger, "--include-running", "--format", "csv")
+    assert shown.exit_code == 0, shown.output
+    assert "4.0" in shown.output
 
 
 def test_latex_curves(filled):

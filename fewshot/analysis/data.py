@@ -115,7 +115,9 @@ def study_scores(
     rule = parse_rule(select)
     if data.results.empty:
         raise InvalidInput(
-            f"study {study['name']!r} has no results yet. Run trainers (fewshot exec) or ingest results first."
+            f"study {study['name']!r} has no results of done runs yet (statistics count only runs "
+            "marked done, with their final evaluation). Run trainers (fewshot work) or ingest "
+            "results; `include_running` shows the results of unfinished runs, marked."
         )
     return score_tables(
         data.results,

@@ -61,6 +61,7 @@ STATS_FLAGS = {
     "alpha": "--alpha",
     "workers": "--workers",
     "path": "--out",
+    "include_running": "--include-running",
 }
 
 ESTIMATOR_NAMES = ("mean", "median", "iqm")  # fewshot.stats.ESTIMATORS (a test holds them equal)

@@ -113,6 +113,8 @@ def run_scores(results: pd.DataFrame, metric: str, rule: ScoreRule | str = "fina
         picked = main.groupby(KEYS, sort=False, dropna=False).tail(1)
         out = picked.assign(score=picked["value"], step=picked["step"])
     elif r.kind == "last":
+        if "final_from_step" in main.columns:  # a final copied from the last step is that step
+            main = main[main["final_from_step"].isna()]
         tail = main.groupby(KEYS, sort=False, dropna=False).tail(r.k)
         out = tail.groupby(KEYS, sort=False, dropna=False)["value"].mean().reset_index(name="score")
         out["step"] = np.nan
