@@ -214,7 +214,6 @@ def test_work_accepts_every_option_of_exec():
     old, new = flags(runs_cmd.exec_runs), flags(cluster_cmd.work)
     assert old.items() <= new.items()
     assert {"parallel", "gpus", "allow_network_fs"} <= new.keys()
-    assert old.items() <= flags(cluster_cmd.exec_renamed).items()
     listed = runner.invoke(app, ["--help"]).output
     assert " work " in listed and " exec " not in listed  # hidden
     res = runner.invoke(app, ["exec", "--help"])

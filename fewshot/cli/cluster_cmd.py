@@ -56,6 +56,7 @@ def ledger_url_checked(ledger: str | None, allow_network_fs: bool) -> str:
 
 
 def work(
+    ctx: typer.Context,
     command: CommandArg,
     *,
     worker: WorkerOpt,
@@ -83,6 +84,8 @@ def work(
     """Claim runs and run COMMAND for each with FEWSHOT_* set; mark each done or failed by its exit status (--parallel, --gpus: several loops; --run: exactly one run)."""
     from fewshot.cluster.parallel import loop_plan
 
+    if ctx.info_name == "exec":  # the old name, registered as an alias
+        err.print("note: `fewshot exec` was renamed to `fewshot work`; exec still works for now")
     with reporting():
         if run is not None and (parallel is not None or gpus is not None):
             raise InvalidInput("--run runs one run in one loop: drop --parallel and --gpus.")
@@ -205,32 +208,3 @@ class _Display:
                 s.running or ("ended" if s.exit_code is not None else "-"),
             )
         self.live.update(table, refresh=True)
-
-
-def exec_renamed(
-    command: CommandArg,
-    *,
-    worker: WorkerOpt,
-    max_runs: MaxRunsOpt = None,
-    lease: LeaseOpt = "2h",
-    results: ResultsOpt = None,
-    ledger: LedgerOpt = None,
-    study: StudyOpt = None,
-    allow_network_fs: AllowNetOpt = False,
-    run: RunOpt = None,
-    attempt: AttemptOpt = None,
-) -> None:
-    """Renamed to `fewshot work`."""
-    err.print("note: `fewshot exec` was renamed to `fewshot work`; exec still works for now")
-    work(
-        command,
-        worker=worker,
-        max_runs=max_runs,
-        lease=lease,
-        results=results,
-        ledger=ledger,
-        study=study,
-        allow_network_fs=allow_network_fs,
-        run=run,
-        attempt=attempt,
-    )

@@ -18,7 +18,7 @@ from fewshot.cli import (
     study_cmd,
     summary_cmd,
 )
-from fewshot.cli.cluster_cmd import exec_renamed, work
+from fewshot.cli.cluster_cmd import work
 from fewshot.cli.common import STATE
 from fewshot.cli.slurm_cmd import slurm
 
@@ -60,7 +60,12 @@ app.command("init")(study_cmd.init)
 app.command("next")(runs_cmd.next_run)
 NO_MIX = {"allow_interspersed_args": False}
 app.command("work", context_settings=NO_MIX)(work)
-app.command("exec", context_settings=NO_MIX, hidden=True)(exec_renamed)
+app.command(
+    "exec",
+    context_settings=NO_MIX,
+    hidden=True,
+    help="Renamed to `fewshot work` (the same command, every option of it).",
+)(work)
 app.command("slurm", context_settings=NO_MIX)(slurm)
 app.command("jobs")(runs_cmd.jobs)
 app.command("done")(runs_cmd.done)
