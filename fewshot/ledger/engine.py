@@ -241,7 +241,14 @@ def upgrade_schema(engine: Engine, *, revision: str = "head") -> None:
             cfg.attributes["connection"] = conn
             command.upgrade(cfg, revision)
 
-    retry_locked(_do)  # errors are turned into messages by the caller (Ledger.open)
+    try:
+        retry_locked(_do)  # errors are turned into messages by the caller (Ledger.open)
+    except DBAPIError as exc:
+        if not is_server_restarting(exc):
+            raise
+        # a server that says it is starting up or shutting down is restarting: wait for it, as
+        # a work loop does for a lost connection, instead of failing the command that opens
+        retry_locked(_do, reconnect_seconds=RESTART_WAIT_SECONDS, url=str(engine.url))
 
 
 def retry_locked(
@@ -306,6 +313,23 @@ _LOST = (
     "broken pipe",
     "server conn crashed",
 )
+
+
+# What a PostgreSQL server says while it restarts (a moment later it refuses, then accepts).
+_RESTARTING = (
+    "the database system is starting up",
+    "the database system is shutting down",
+    "the database system is in recovery mode",
+    "the database system is not yet accepting connections",
+)
+#: How long opening a ledger waits for a server that is restarting.
+RESTART_WAIT_SECONDS = 120.0
+
+
+def is_server_restarting(exc: DBAPIError) -> bool:
+    """Whether ``exc`` says the database server is starting up or shutting down."""
+    text = str(exc.orig).lower()
+    return any(t in text for t in _RESTARTING)
 
 
 def is_connection_lost(exc: DBAPIError) -> bool:
