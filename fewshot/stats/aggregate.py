@@ -17,7 +17,7 @@ import pandas as pd
 from fewshot.errors import InvalidInput
 from fewshot.stats.curves import FEW_SEEDS, CurveSettings
 from fewshot.stats.estimators import AGGREGATES, nan_estimates
-from fewshot.stats.intervals import rescaled_strata, strata_df, stratified_t
+from fewshot.stats.intervals import pooled_indices, rescaled_strata, strata_df, stratified_t
 from fewshot.stats.progress import advance
 
 __all__ = ["AGGREGATE_COLUMNS", "METHOD", "aggregate_curves"]
@@ -86,6 +86,7 @@ def aggregate_curves(
     }
     keys = ["arm", "role", "size"] + (["group"] if by_group else [])
     rows = []
+    joined: dict[tuple, np.ndarray] = {}  # pooled index matrix per set of tasks, built once
     cells = seed_level.groupby(keys, sort=True, dropna=False)
     advance("aggregates over tasks", 0, cells.ngroups)
     for done, (key, cell) in enumerate(cells, start=1):
@@ -100,11 +101,15 @@ def aggregate_curves(
             n_seeds.append(int((~np.isnan(full)).sum()))
         # resamples × runs, each task's draw rescaled by sqrt(n/(n-1)) (see fewshot.stats.intervals)
         strata = [full for _, full in parts]
-        pooled_b = rescaled_strata(strata, [indices[t] for t, _ in parts])
+        names = tuple(t for t, _ in parts)
+        if names not in joined:
+            joined[names] = pooled_indices(
+                [indices[t] for t in names], [n_by_task[t] for t in names]
+            )
         df = strata_df(strata)
         pooled = np.concatenate([full for _, full in parts])
         ests = nan_estimates(aggregates, pooled[None, :])
-        thetas = nan_estimates(aggregates, pooled_b)  # one sort of the resamples for all
+        thetas = _resampled(aggregates, strata, joined[names])
         for name, est_row, theta in zip(aggregates, ests, thetas, strict=True):
             est = float(est_row[0])
             lo, hi, _ = stratified_t(est, theta, strata, settings.confidence, df)
@@ -131,3 +136,22 @@ def aggregate_curves(
             )
         advance("aggregates over tasks", done, cells.ngroups)
     return pd.DataFrame(rows, columns=AGGREGATE_COLUMNS)
+
+
+BLOCK = 2048  # resamples gathered and sorted at a time: a block of rows stays in the cache
+
+
+def _resampled(
+    aggregates: tuple[str, ...], strata: list[np.ndarray], pooled: np.ndarray
+) -> list[np.ndarray]:
+    """Each aggregate of each resample (row of ``pooled``, see
+    :func:`fewshot.stats.intervals.rescaled_strata`), a block of rows at a time: every row is
+    reduced on its own, so the numbers are those of the whole matrix at once, with one sort of
+    each block for all aggregates."""
+    parts = [
+        nan_estimates(aggregates, rescaled_strata(strata, [], pooled[start : start + BLOCK]))
+        for start in range(0, len(pooled), BLOCK)
+    ]
+    if not parts:
+        return [np.empty(0) for _ in aggregates]
+    return [np.concatenate(column) for column in zip(*parts, strict=True)]

@@ -1,0 +1,116 @@
+"""The block-wise, shared-buffer paths of the aggregates over tasks against the plain per-cell
+computations they replace: the same numbers, bit for bit (issue 16: the same seeds give the
+same intervals).
+
+References named beside each check: numpy's own mean / median per row, scipy.stats.trim_mean
+for the IQM (to rounding: it sums in another order), and the straightforward rescale-every-draw
+gather of each stratum.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+from fewshot.stats import CurveSettings, aggregate_curves
+from fewshot.stats.aggregate import BLOCK, _resampled
+from fewshot.stats.estimators import nan_estimate, nan_estimates
+from fewshot.stats.intervals import pooled_indices, rescaled_strata, strata_df, stratified_t
+
+ALL = ("iqm", "mean", "median", "optimality_gap")
+
+
+def _rescaled_every_draw(strata: list[np.ndarray], indices: list[np.ndarray]) -> np.ndarray:
+    """Each stratum's drawn values rescaled by sqrt(n/(n-1)) about its mean, then joined."""
+    parts = []
+    for x, idx in zip(strata, indices, strict=True):
+        n = int(np.isfinite(x).sum())
+        centre = np.nanmean(x)
+        parts.append(centre + np.sqrt(n / (n - 1)) * (x[idx] - centre))
+    return np.concatenate(parts, axis=1)
+
+
+@pytest.mark.parametrize("order", [ALL, ("median", "iqm"), ("iqm",), ("optimality_gap", "iqm")])
+def test_shared_estimates_equal_each_alone_and_numpy(order):
+    rng = np.random.default_rng(21)
+    x = np.round(rng.normal(0.6, 0.5, size=(300, 37)), 2)  # ties, as real scores have
+    got = dict(zip(order, nan_estimates(order, x), strict=True))
+    for name, values in got.items():
+        # the one-estimator path, which reads its own sort, is the plain computation
+        np.testing.assert_array_equal(values, nan_estimate(name, x))
+    if "median" in got:  # numpy's median per row, after the IQM trimmed the shared sort
+        np.testing.assert_array_equal(got["median"], np.median(x, axis=1))
+    if "mean" in got:
+        np.testing.assert_array_equal(got["mean"], np.mean(x, axis=1))
+    if "optimality_gap" in got:  # Agarwal et al. (2021): mean of max(0, 1 - x)
+        np.testing.assert_array_equal(got["optimality_gap"], np.mean(np.maximum(0, 1 - x), axis=1))
+    for row, value in zip(x, got["iqm"], strict=True):  # scipy's 25% trimmed mean
+        assert value == pytest.approx(stats.trim_mean(row, 0.25), rel=1e-12)
+
+
+def test_estimates_leave_their_input_alone():
+    x = np.random.default_rng(22).normal(size=(40, 9))
+    before = x.copy()
+    nan_estimates(ALL, x)
+    np.testing.assert_array_equal(x, before)
+
+
+@pytest.mark.parametrize("gaps", [False, True])
+def test_blockwise_resamples_equal_the_whole_matrix(gaps):
+    rng = np.random.default_rng(23)
+    strata = [rng.normal(0.5, 0.3, size=n) for n in (3, 5, 4, 6)]
+    if gaps:
+        strata[1][2] = np.nan  # a missing run: out of its stratum's mean, NaN in every draw
+    rows = 2 * BLOCK + 17  # two whole blocks and a part
+    indices = [rng.integers(0, len(x), size=(rows, len(x))) for x in strata]
+    pooled = pooled_indices(indices, [len(x) for x in strata])
+    plain = _rescaled_every_draw(strata, indices)
+    np.testing.assert_array_equal(rescaled_strata(strata, [], pooled), plain)
+    np.testing.assert_array_equal(rescaled_strata(strata, indices), plain)
+    blockwise = _resampled(ALL, strata, pooled)
+    for name, values in zip(ALL, blockwise, strict=True):
+        np.testing.assert_array_equal(values, nan_estimate(name, plain))
+        if not gaps and name in ("mean", "median"):  # numpy's own, per resample
+            np.testing.assert_array_equal(values, getattr(np, name)(plain, axis=1))
+
+
+def test_aggregate_interval_equals_a_plain_per_cell_computation():
+    # one cell over three tasks, recomputed from the documented recipe: one index matrix per
+    # task from SeedSequence(seed).spawn, every draw rescaled, scipy's trim_mean per resample
+    rng = np.random.default_rng(24)
+    seeds = {"t1": 4, "t2": 5, "t3": 3}
+    rows = [
+        {
+            "arm": "a",
+            "role": "pretrained",
+            "group": None,
+            "task": t,
+            "size": 4,
+            "seed": k,
+            "normalised": float(np.round(rng.normal(0.5, 0.3), 3)),
+        }
+        for t, n in seeds.items()
+        for k in range(n)
+    ]
+    settings = CurveSettings(resamples=3 * BLOCK // 2, seed=5)
+    got = aggregate_curves(pd.DataFrame(rows), settings).set_index("aggregate")
+    strata = [np.array([r["normalised"] for r in rows if r["task"] == t]) for t in seeds]
+    children = np.random.SeedSequence(5).spawn(3)
+    indices = [
+        np.random.default_rng(c).integers(0, n, size=(settings.resamples, n))
+        for c, n in zip(children, seeds.values(), strict=True)
+    ]
+    draws = _rescaled_every_draw(strata, indices)
+    pooled = np.concatenate(strata)
+    theta = np.array([stats.trim_mean(d, 0.25) for d in draws])
+    est = float(stats.trim_mean(pooled, 0.25))
+    lo, hi, _ = stratified_t(est, theta, strata, settings.confidence, strata_df(strata))
+    assert got.loc["iqm", "estimate"] == pytest.approx(est, rel=1e-12)
+    assert got.loc["iqm", "low"] == pytest.approx(lo, rel=1e-9)
+    assert got.loc["iqm", "high"] == pytest.approx(hi, rel=1e-9)
+    # numpy's median per resample: exactly the interval reported
+    theta = np.median(draws, axis=1)
+    lo, hi, _ = stratified_t(np.median(pooled), theta, strata, settings.confidence)
+    assert (got.loc["median", "low"], got.loc["median", "high"]) == (lo, hi)
