@@ -18,6 +18,7 @@ from fewshot.stats import CurveSettings, aggregate_curves
 from fewshot.stats.aggregate import BLOCK, _resampled
 from fewshot.stats.estimators import nan_estimate, nan_estimates
 from fewshot.stats.intervals import pooled_indices, rescaled_strata, strata_df, stratified_t
+from fewshot.stats.transfer import _paired_cells, _seed_cells
 
 ALL = ("iqm", "mean", "median", "optimality_gap")
 
@@ -114,3 +115,35 @@ def test_aggregate_interval_equals_a_plain_per_cell_computation():
     theta = np.median(draws, axis=1)
     lo, hi, _ = stratified_t(np.median(pooled), theta, strata, settings.confidence)
     assert (got.loc["median", "low"], got.loc["median", "high"]) == (lo, hi)
+
+
+def test_paired_cells_equal_pandas_grouping_and_intersection():
+    # the one-pass split of the seed-level values against pandas' own grouping per (task, size)
+    # and Index.intersection of the seeds, with seeds missing on either side
+    rng = np.random.default_rng(25)
+    rows = [
+        {"arm": a, "task": t, "size": s, "seed": k, "score": float(rng.normal())}
+        for a in ("base", "x", "y")
+        for t in ("t1", "t2")
+        for s in (0, 2, 8)
+        for k in range(5)
+        if not (a == "x" and t == "t2" and k in (1, 3))  # arm misses seeds
+        and not (a == "base" and s == 8 and k == 0)  # baseline misses a seed
+        and not (a == "y" and t == "t1" and s == 2)  # arm misses a whole cell
+    ]
+    level = pd.DataFrame(rows).groupby(["arm", "task", "size", "seed"])["score"].mean()
+    cells = _seed_cells(level)
+    for arm in ("x", "y"):
+        got = list(_paired_cells(cells, arm, "base"))
+        want = []
+        b = level.loc["base"]
+        for (task, size), g in level.loc[arm].groupby(level=["task", "size"]):
+            x = g.droplevel(["task", "size"])
+            y = b.loc[(task, size)]
+            common = x.index.intersection(y.index)
+            want.append((task, int(size), x.loc[common], y.loc[common], len(x), len(y)))
+        assert [w[:2] for w in want] == [g[:2] for g in got]
+        for (_, _, xs, ys, nx, ny), (_, _, wx, wy, mx, my) in zip(got, want, strict=True):
+            np.testing.assert_array_equal(xs, wx.to_numpy())
+            np.testing.assert_array_equal(ys, wy.to_numpy())
+            assert (nx, ny) == (mx, my)

@@ -26,6 +26,8 @@ the smallest", inf for "beyond the ladder").
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 from scipy import stats
 
@@ -92,9 +94,9 @@ def level_crossing_set(
     n, k = g.shape
     if n < 2:
         return float("nan"), float("nan")
-    q = float(stats.t.ppf(0.5 + confidence / 2, n - 1))
+    q = _t_quantile(0.5 + confidence / 2, n - 1)
     # beyond the ladder's ends only one direction can reject: one-sided at the nominal level
-    q_end = float(stats.t.ppf(confidence, n - 1))
+    q_end = _t_quantile(confidence, n - 1)
     mean = g.mean(axis=0)
     se = g.std(axis=0, ddof=1) / np.sqrt(n)
     above = mean > q_end * se  # significantly above the level at a ladder point (one-sided)
@@ -112,6 +114,13 @@ def level_crossing_set(
     low = 0.0 if not below[0] else (min(lows) if lows else float(sizes[-1]))
     high = float("inf") if not above[-1] else (max(highs) if highs else float(sizes[0]))
     return low, high
+
+
+@lru_cache(maxsize=256)
+def _t_quantile(p: float, df: int) -> float:
+    """Student's t quantile, computed once per (p, df): thousands of cells share a few seed
+    counts."""
+    return float(stats.t.ppf(p, df))
 
 
 def _at(sizes: np.ndarray, j: int, w: float) -> float:
