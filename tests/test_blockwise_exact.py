@@ -18,6 +18,7 @@ from fewshot.stats import CurveSettings, aggregate_curves
 from fewshot.stats.aggregate import BLOCK, _resampled
 from fewshot.stats.estimators import nan_estimate, nan_estimates
 from fewshot.stats.intervals import pooled_indices, rescaled_strata, strata_df, stratified_t
+from fewshot.stats.inversion import _column_moments, _covariance
 from fewshot.stats.transfer import _paired_cells, _seed_cells
 
 ALL = ("iqm", "mean", "median", "optimality_gap")
@@ -147,3 +148,17 @@ def test_paired_cells_equal_pandas_grouping_and_intersection():
             np.testing.assert_array_equal(xs, wx.to_numpy())
             np.testing.assert_array_equal(ys, wy.to_numpy())
             assert (nx, ny) == (mx, my)
+
+
+@pytest.mark.parametrize("seeds", [2, 3, 10, 17])
+def test_column_moments_equal_numpy_per_column(seeds):
+    # test inversion reads each ladder point's mean and variance and each segment's covariance
+    # once; numpy's own mean, var and cov per column are the reference, bit for bit
+    rng = np.random.default_rng(seeds)
+    g = np.round(rng.normal(size=(seeds, 6)) * 10.0 ** rng.integers(-3, 4, size=6), 3)
+    means, variances, centred = _column_moments(g)
+    for j in range(g.shape[1]):
+        assert means[j] == g[:, j].mean()
+        assert variances[j] == np.var(g[:, j], ddof=1)
+    for j in range(g.shape[1] - 1):
+        assert _covariance(centred, j) == np.cov(g[:, j], g[:, j + 1], ddof=1)[0, 1]
