@@ -149,7 +149,9 @@ def _resampled(
     reduced on its own, so the numbers are those of the whole matrix at once, with one sort of
     each block for all aggregates."""
     parts = [
-        nan_estimates(aggregates, rescaled_strata(strata, [], pooled[start : start + BLOCK]))
+        nan_estimates(
+            aggregates, rescaled_strata(strata, [], pooled[start : start + BLOCK]), overwrite=True
+        )
         for start in range(0, len(pooled), BLOCK)
     ]
     if not parts:
