@@ -17,7 +17,13 @@ from scipy import stats
 from fewshot.stats import CurveSettings, aggregate_curves
 from fewshot.stats.aggregate import BLOCK, _resampled
 from fewshot.stats.estimators import nan_estimate, nan_estimates
-from fewshot.stats.intervals import pooled_indices, rescaled_strata, strata_df, stratified_t
+from fewshot.stats.intervals import (
+    pooled_indices,
+    rescaled_strata,
+    strata_df,
+    stratified_t,
+    t_quantile,
+)
 from fewshot.stats.inversion import _column_moments, _covariance
 from fewshot.stats.transfer import _paired_cells, _seed_cells
 
@@ -173,3 +179,11 @@ def test_column_moments_equal_numpy_per_column(seeds):
         assert variances[j] == np.var(g[:, j], ddof=1)
     for j in range(g.shape[1] - 1):
         assert _covariance(centred, j) == np.cov(g[:, j], g[:, j + 1], ddof=1)[0, 1]
+
+
+def test_cached_t_quantile_equals_scipy():
+    # scipy.stats.t.ppf is the reference; the cache must hand back its value, not a neighbour's
+    for df in (1, 2, 4, 9, 29):
+        for p in (0.9, 0.95, 0.975, 0.995):
+            assert t_quantile(p, df) == float(stats.t.ppf(p, df))
+            assert t_quantile(p, df) == float(stats.t.ppf(p, df))  # again, from the cache

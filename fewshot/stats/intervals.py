@@ -26,6 +26,8 @@ MOVER (means over tasks of per-task intervals, e.g. P(improvement) over tasks)
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 from scipy import special, stats
 
@@ -40,12 +42,20 @@ __all__ = [
     "newcombe_interval",
     "mover_mean_interval",
     "huge_scale",
+    "t_quantile",
     "cell_scale",
     "row_scale",
 ]
 
 # beyond this, squares (variances), the skewness's cubes and sums of squares may overflow to inf
 HUGE = 2.0**300
+
+
+@lru_cache(maxsize=256)
+def t_quantile(p: float, df: int) -> float:
+    """Student's t quantile ``stats.t.ppf(p, df)``, computed once per (p, df): thousands of
+    cells share a few seed counts."""
+    return float(stats.t.ppf(p, df))
 
 
 def huge_scale(*arrays: np.ndarray) -> float:

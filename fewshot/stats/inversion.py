@@ -26,12 +26,9 @@ the smallest", inf for "beyond the ladder").
 
 from __future__ import annotations
 
-from functools import lru_cache
-
 import numpy as np
-from scipy import stats
 
-from fewshot.stats.intervals import huge_scale
+from fewshot.stats.intervals import huge_scale, t_quantile
 
 __all__ = ["level_crossing_set", "seed_t_interval"]
 
@@ -110,9 +107,9 @@ def level_crossing_set(
     n, k = g.shape
     if n < 2:
         return float("nan"), float("nan")
-    q = _t_quantile(0.5 + confidence / 2, n - 1)
+    q = t_quantile(0.5 + confidence / 2, n - 1)
     # beyond the ladder's ends only one direction can reject: one-sided at the nominal level
-    q_end = _t_quantile(confidence, n - 1)
+    q_end = t_quantile(confidence, n - 1)
     mean = g.mean(axis=0)
     se = g.std(axis=0, ddof=1) / np.sqrt(n)
     above = mean > q_end * se  # significantly above the level at a ladder point (one-sided)
@@ -141,13 +138,6 @@ def level_crossing_set(
     return low, high
 
 
-@lru_cache(maxsize=256)
-def _t_quantile(p: float, df: int) -> float:
-    """Student's t quantile, computed once per (p, df): thousands of cells share a few seed
-    counts."""
-    return float(stats.t.ppf(p, df))
-
-
 def _at(sizes: np.ndarray, j: int, w: float) -> float:
     """The size a fraction ``w`` of the way from ladder point j to j + 1 on log size (the ladder
     point itself, exactly, at w = 0 or 1)."""
@@ -168,6 +158,6 @@ def seed_t_interval(values: np.ndarray, confidence: float) -> tuple[float, float
         return float("nan"), float("nan")
     c = huge_scale(v)  # values near 1e200: exactly scaled, so the spread does not overflow
     v = v * c
-    q = float(stats.t.ppf(0.5 + confidence / 2, n - 1))
+    q = t_quantile(0.5 + confidence / 2, n - 1)
     half = q * v.std(ddof=1) / np.sqrt(n)
     return float(v.mean() - half) / c, float(v.mean() + half) / c
