@@ -84,6 +84,11 @@ def aggregate_curves(
         t: {s: k for k, s in enumerate(sorted(g["seed"].unique()))}
         for t, g in seed_level.groupby("task")
     }
+    # each seed-level row's place among its task's seeds, found once for every cell
+    places = np.array(
+        [seed_pos[t][s] for t, s in zip(seed_level["task"], seed_level["seed"], strict=True)],
+        dtype=np.int64,
+    )
     keys = ["arm", "role", "size"] + (["group"] if by_group else [])
     rows = []
     joined: dict[tuple, np.ndarray] = {}  # pooled index matrix per set of tasks, built once
@@ -91,10 +96,8 @@ def aggregate_curves(
     advance("aggregates over tasks", 0, cells.ngroups)
     for done, (key, cell) in enumerate(cells, start=1):
         parts, n_seeds, notes = [], [], []
-        for t, g in cell.groupby("task"):
-            full = np.full(n_by_task[t], np.nan)
-            for s, v in zip(g["seed"], g[value], strict=True):
-                full[seed_pos[t][s]] = v
+        at = cell.index.to_numpy()  # positions in seed_level (a fresh RangeIndex)
+        for t, full in _task_values(cell["task"].to_numpy(), places[at], cell[value], n_by_task):
             if np.isnan(full).any():
                 notes.append(f"{t}: {int(np.isnan(full).sum())} seed(s) missing")
             parts.append((t, full))
@@ -136,6 +139,24 @@ def aggregate_curves(
             )
         advance("aggregates over tasks", done, cells.ngroups)
     return pd.DataFrame(rows, columns=AGGREGATE_COLUMNS)
+
+
+def _task_values(
+    tasks: np.ndarray, places: np.ndarray, values: pd.Series, n_by_task: dict
+) -> list[tuple[str, np.ndarray]]:  # type: ignore[type-arg]
+    """Per task of one cell, in task order: the seed-level values at their seeds' places among
+    the task's seeds (NaN where a seed has no run), as a grouping by task would place them."""
+    rows_of: dict = {}  # type: ignore[type-arg]
+    for k, t in enumerate(tasks):
+        rows_of.setdefault(t, []).append(k)
+    v = values.to_numpy(dtype=float)
+    out = []
+    for t in sorted(rows_of):
+        at = np.array(rows_of[t], dtype=np.int64)
+        full = np.full(n_by_task[t], np.nan)
+        full[places[at]] = v[at]
+        out.append((t, full))
+    return out
 
 
 BLOCK = 2048  # resamples gathered and sorted at a time: a block of rows stays in the cache
