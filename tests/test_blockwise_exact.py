@@ -187,3 +187,48 @@ def test_cached_t_quantile_equals_scipy():
         for p in (0.9, 0.95, 0.975, 0.995):
             assert t_quantile(p, df) == float(stats.t.ppf(p, df))
             assert t_quantile(p, df) == float(stats.t.ppf(p, df))  # again, from the cache
+
+
+def test_aggregate_with_a_missing_seed_equals_a_plain_per_cell_computation():
+    # arm "a" lacks seed 2 of task t2 (arm "b" has it, so t2 has 5 seeds): the documented recipe
+    # with pandas' reindex over each task's seeds as the reference placement, numpy's nanmedian
+    # per resample (exact) and scipy's trim_mean of the present runs (to rounding)
+    rng = np.random.default_rng(26)
+    seeds = {"t1": 4, "t2": 5, "t3": 3}
+    rows = [
+        {
+            "arm": arm,
+            "role": "pretrained",
+            "group": None,
+            "task": t,
+            "size": 4,
+            "seed": k,
+            "normalised": float(np.round(rng.normal(0.5, 0.3), 3)),
+        }
+        for arm in ("a", "b")
+        for t, n in seeds.items()
+        for k in range(n)
+        if not (arm == "a" and t == "t2" and k == 2)
+    ]
+    scores = pd.DataFrame(rows)
+    settings = CurveSettings(resamples=BLOCK + 100, seed=8)
+    got = aggregate_curves(scores, settings)
+    got = got[got["arm"] == "a"].set_index("aggregate")
+    assert "t2: 1 seed(s) missing" in got.loc["median", "note"]
+    mine = scores[scores["arm"] == "a"].set_index(["task", "seed"])["normalised"]
+    strata = [mine.loc[t].reindex(range(n)).to_numpy() for t, n in seeds.items()]
+    children = np.random.SeedSequence(8).spawn(3)
+    indices = [
+        np.random.default_rng(c).integers(0, n, size=(settings.resamples, n))
+        for c, n in zip(children, seeds.values(), strict=True)
+    ]
+    draws = _rescaled_every_draw(strata, indices)
+    pooled = np.concatenate(strata)
+    theta = np.nanmedian(draws, axis=1)
+    lo, hi, _ = stratified_t(np.nanmedian(pooled), theta, strata, settings.confidence)
+    assert (got.loc["median", "low"], got.loc["median", "high"]) == (lo, hi)
+    theta = np.array([stats.trim_mean(d[np.isfinite(d)], 0.25) for d in draws])
+    est = float(stats.trim_mean(pooled[np.isfinite(pooled)], 0.25))
+    lo, hi, _ = stratified_t(est, theta, strata, settings.confidence)
+    assert got.loc["iqm", "estimate"] == pytest.approx(est, rel=1e-12)
+    assert (got.loc["iqm", "low"], got.loc["iqm", "high"]) == pytest.approx((lo, hi), rel=1e-9)
