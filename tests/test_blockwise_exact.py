@@ -40,6 +40,19 @@ def _rescaled_every_draw(strata: list[np.ndarray], indices: list[np.ndarray]) ->
     return np.concatenate(parts, axis=1)
 
 
+def _plain_draws(
+    strata: list[np.ndarray], counts: list[int], settings: CurveSettings
+) -> np.ndarray:
+    """The documented recipe's resamples: one index matrix per task (tasks in sorted order)
+    from SeedSequence(seed).spawn, every draw rescaled."""
+    children = np.random.SeedSequence(settings.seed).spawn(len(counts))
+    indices = [
+        np.random.default_rng(c).integers(0, n, size=(settings.resamples, n))
+        for c, n in zip(children, counts, strict=True)
+    ]
+    return _rescaled_every_draw(strata, indices)
+
+
 @pytest.mark.parametrize("order", [ALL, ("median", "iqm"), ("iqm",), ("optimality_gap", "iqm")])
 def test_shared_estimates_equal_each_alone_and_numpy(order):
     rng = np.random.default_rng(21)
@@ -116,12 +129,7 @@ def test_aggregate_interval_equals_a_plain_per_cell_computation():
     settings = CurveSettings(resamples=3 * BLOCK // 2, seed=5)
     got = aggregate_curves(pd.DataFrame(rows), settings).set_index("aggregate")
     strata = [np.array([r["normalised"] for r in rows if r["task"] == t]) for t in seeds]
-    children = np.random.SeedSequence(5).spawn(3)
-    indices = [
-        np.random.default_rng(c).integers(0, n, size=(settings.resamples, n))
-        for c, n in zip(children, seeds.values(), strict=True)
-    ]
-    draws = _rescaled_every_draw(strata, indices)
+    draws = _plain_draws(strata, list(seeds.values()), settings)
     pooled = np.concatenate(strata)
     theta = np.array([stats.trim_mean(d, 0.25) for d in draws])
     est = float(stats.trim_mean(pooled, 0.25))
@@ -217,12 +225,7 @@ def test_aggregate_with_a_missing_seed_equals_a_plain_per_cell_computation():
     assert "t2: 1 seed(s) missing" in got.loc["median", "note"]
     mine = scores[scores["arm"] == "a"].set_index(["task", "seed"])["normalised"]
     strata = [mine.loc[t].reindex(range(n)).to_numpy() for t, n in seeds.items()]
-    children = np.random.SeedSequence(8).spawn(3)
-    indices = [
-        np.random.default_rng(c).integers(0, n, size=(settings.resamples, n))
-        for c, n in zip(children, seeds.values(), strict=True)
-    ]
-    draws = _rescaled_every_draw(strata, indices)
+    draws = _plain_draws(strata, list(seeds.values()), settings)
     pooled = np.concatenate(strata)
     theta = np.nanmedian(draws, axis=1)
     lo, hi, _ = stratified_t(np.nanmedian(pooled), theta, strata, settings.confidence)
