@@ -33,11 +33,10 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
 
 from fewshot.errors import InvalidInput
 from fewshot.stats.cell_methods import bca_interval, expanded_half_alpha, hall_interval
-from fewshot.stats.intervals import cell_scale, row_scale
+from fewshot.stats.intervals import cell_scale, row_scale, t_quantile
 from fewshot.stats.methods import DEFAULT_METHOD, METHODS
 
 __all__ = ["METHODS", "DEFAULT_METHOD", "CellIntervals", "DegenerateCells", "bootstrap_cells"]
@@ -197,7 +196,8 @@ def bootstrap_cells(
         lo, hi = bca_interval(seed_level, estimator, estimate, dist, alpha)
     elif method == "t" or (method == "hall" and not is_mean):
         spread = seed_level.std(axis=1, ddof=1) / np.sqrt(n) if is_mean else se
-        q = stats.t.ppf(1 - alpha / 2, n - 1)
+        assert not callable(spread)  # a lazy SE is only ever the mean's, read above
+        q = t_quantile(1 - alpha / 2, n - 1)
         lo, hi = estimate - q * spread, estimate + q * spread
     elif method == "hall":
         lo, hi = hall_interval(seed_level, alpha)

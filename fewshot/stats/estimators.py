@@ -78,15 +78,51 @@ def nan_estimate(name: str, x: np.ndarray) -> np.ndarray:
             return _nan_estimate(name, x)
 
 
-def nan_estimates(names: tuple[str, ...] | list[str], x: np.ndarray) -> list[np.ndarray]:
+def nan_estimates(
+    names: tuple[str, ...] | list[str], x: np.ndarray, *, overwrite: bool = False
+) -> list[np.ndarray]:
     """:func:`nan_estimate` of each of ``names`` over the same ``x``, sorting ``x`` at most once
     (the median and the IQM share the sort): the same numbers, bit for bit, at the cost of one
-    sort for a resamples × runs matrix instead of one per estimator."""
+    sort for a resamples × runs matrix instead of one per estimator. Whether ``x`` is all finite
+    is found once for all, and the IQM trims the sorted copy in place, after the median.
+    ``overwrite``: ``x`` is the caller's scratch; when it is all finite it is sorted in place
+    (after the mean and the optimality gap have read it unsorted) instead of copied."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
         with np.errstate(invalid="ignore", divide="ignore"):
-            s = np.sort(x, axis=-1) if {"median", "iqm"} & set(names) else None
-            return [_nan_estimate(name, x, s) for name in names]
+            if not ({"median", "iqm"} & set(names)):
+                return [_nan_estimate(name, x) for name in names]
+            clean = bool(x.shape[-1]) and bool(np.isfinite(x).all())
+            out = {}
+            if clean:  # these read x unsorted (their sums run in x's order)
+                if "mean" in names:
+                    out["mean"] = np.mean(x, axis=-1)
+                if "optimality_gap" in names:
+                    gap = np.subtract(1.0, x)
+                    out["optimality_gap"] = np.mean(np.maximum(gap, 0.0, out=gap), axis=-1)
+            if clean and overwrite:
+                x.sort(axis=-1)
+                s = x
+            else:
+                s = np.sort(x, axis=-1)  # NaN last; a fresh array, this function's own
+            # the IQM last among those reading the sort: it may overwrite its ends
+            for name in sorted(set(names) - set(out), key=lambda n: n == "iqm"):
+                if clean and name == "iqm":
+                    out[name] = _clean_iqm(s, in_place=True)
+                else:
+                    out[name] = _nan_estimate(name, x, s)
+            return [out[name] for name in names]
+
+
+def _clean_iqm(s: np.ndarray, *, in_place: bool = False) -> np.ndarray:
+    """IQM over the last axis of sorted rows without NaN or infinity: ``int(0.25 n)`` values
+    zeroed at each end, the row summed (the same sum, element for element, for every caller)."""
+    n = s.shape[-1]
+    k = int(0.25 * n)
+    kept = s if in_place else s.copy()
+    kept[..., :k] = 0.0
+    kept[..., n - k :] = 0.0
+    return kept.sum(axis=-1) / (n - 2 * k)
 
 
 def _nan_estimate(name: str, x: np.ndarray, s: np.ndarray | None = None) -> np.ndarray:
@@ -103,12 +139,7 @@ def _nan_estimate(name: str, x: np.ndarray, s: np.ndarray | None = None) -> np.n
         return _sorted_nanmedian(s)
     finite = np.isfinite(s)
     if s.shape[-1] and finite.all():  # nothing missing: one cut for every row
-        n = s.shape[-1]
-        k = int(0.25 * n)
-        kept = s.copy()
-        kept[..., :k] = 0.0
-        kept[..., n - k :] = 0.0
-        return kept.sum(axis=-1) / (n - 2 * k)
+        return _clean_iqm(s)
     m = finite.sum(axis=-1)
     cut = (0.25 * m).astype(int)  # as scipy.stats.trim_mean(x, 0.25): int(0.25 n) from each end
     pos = np.arange(s.shape[-1])

@@ -26,24 +26,36 @@ MOVER (means over tasks of per-task intervals, e.g. P(improvement) over tasks)
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 from scipy import special, stats
 
 __all__ = [
     "satterthwaite_df",
     "strata_df",
+    "pooled_indices",
+    "rescaled_strata",
     "stratified_t",
     "stratified_mean_t",
     "newcombe_variance",
     "newcombe_interval",
     "mover_mean_interval",
     "huge_scale",
+    "t_quantile",
     "cell_scale",
     "row_scale",
 ]
 
 # beyond this, squares (variances), the skewness's cubes and sums of squares may overflow to inf
 HUGE = 2.0**300
+
+
+@lru_cache(maxsize=256)
+def t_quantile(p: float, df: int) -> float:
+    """Student's t quantile ``stats.t.ppf(p, df)``, computed once per (p, df): thousands of
+    cells share a few seed counts."""
+    return float(stats.t.ppf(p, df))
 
 
 def huge_scale(*arrays: np.ndarray) -> float:
@@ -98,23 +110,37 @@ def satterthwaite_df(variances: np.ndarray, counts: np.ndarray, weights: np.ndar
     return float(np.sum(a) ** 2 / den)
 
 
-def rescaled_strata(strata: list[np.ndarray], indices: list[np.ndarray]) -> np.ndarray:
+def rescaled_strata(
+    strata: list[np.ndarray], indices: list[np.ndarray], pooled: np.ndarray | None = None
+) -> np.ndarray:
     """Resamples (rows) of the pooled runs: each stratum's draw rescaled by sqrt(n/(n-1)) about
     its mean. ``strata`` hold each task's seed-level values (NaN = missing run, kept out of the
-    mean and left NaN); ``indices`` the task's resample × seeds index matrix."""
+    mean and left NaN); ``indices`` the task's resample × seeds index matrix. ``pooled``: the
+    strata's index matrices joined by :func:`pooled_indices`, when the caller reuses it for many
+    cells over the same strata (``indices`` is then not read)."""
     # each stratum's seeds are rescaled once, then gathered: the same numbers as rescaling every
     # drawn value, with one gather of the whole resamples × runs matrix
-    rescaled, offset, shifted = [], 0, []
-    for x, idx in zip(strata, indices, strict=True):
+    rescaled = []
+    for x in strata:
         n = int(np.isfinite(x).sum())
         centre = np.nanmean(x) if n else 0.0
         c = np.sqrt(n / (n - 1)) if n >= 2 else 1.0
         rescaled.append(centre + c * (x - centre))
-        shifted.append(idx + offset)
-        offset += len(x)
     if not rescaled:
         return np.empty((0, 0))
-    return np.concatenate(rescaled)[np.concatenate(shifted, axis=1)]
+    if pooled is None:
+        pooled = pooled_indices(indices, [len(x) for x in strata])
+    return np.concatenate(rescaled)[pooled]
+
+
+def pooled_indices(indices: list[np.ndarray], lengths: list[int]) -> np.ndarray:
+    """The strata's resample × seeds index matrices side by side, each shifted to index its own
+    stratum's runs (``lengths`` of them) in the strata joined end to end (one gather for all)."""
+    shifted, offset = [], 0
+    for idx, n in zip(indices, lengths, strict=True):
+        shifted.append(idx + offset)
+        offset += n
+    return np.concatenate(shifted, axis=1)
 
 
 def strata_df(strata: list[np.ndarray]) -> float:

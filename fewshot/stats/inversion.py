@@ -27,21 +27,36 @@ the smallest", inf for "beyond the ladder").
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
-from fewshot.stats.intervals import huge_scale
+from fewshot.stats.intervals import huge_scale, t_quantile
 
 __all__ = ["level_crossing_set", "seed_t_interval"]
 
 
-def _segment_hull(g0: np.ndarray, g1: np.ndarray, q: float) -> tuple[float, float]:
-    """Smallest and largest w in [0, 1] with n ḡ(w)^2 <= q^2 S(w), g(w) = (1-w) g0 + w g1 per seed
-    (NaN, NaN when none)."""
-    n = len(g0)
-    m0, m1 = g0.mean(), g1.mean()
+def _column_moments(g: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per ladder point (column of ``g``, seeds × sizes): mean, variance (ddof 1) and the seeds'
+    deviations from the mean, each column as one contiguous row, so that every row is reduced
+    exactly as ``g[:, j].mean()``, ``np.var(g[:, j], ddof=1)`` and ``np.cov`` reduce it."""
+    rows = np.array(g.T, dtype=float, order="C")
+    means = rows.mean(axis=1)
+    variances = np.var(rows, axis=1, ddof=1)
+    rows -= means[:, None]
+    return means, variances, rows
+
+
+def _covariance(centred: np.ndarray, j: int) -> float:
+    """``np.cov(g[:, j], g[:, j + 1], ddof=1)[0, 1]``, from the centred rows of
+    :func:`_column_moments`: the same product and scaling as numpy's, without its checks."""
+    pair = centred[j : j + 2]
+    return float(np.dot(pair, pair.T.conj())[0, 1] * np.true_divide(1, pair.shape[1] - 1))
+
+
+def _segment_hull(
+    n: int, m0: float, m1: float, s00: float, s11: float, s01: float, q: float
+) -> tuple[float, float]:
+    """Smallest and largest w in [0, 1] with n ḡ(w)^2 <= q^2 S(w), g(w) = (1-w) g0 + w g1 per seed,
+    from the seeds' means, variances and covariance at both ends (NaN, NaN when none)."""
     d = m1 - m0
-    s00, s11 = np.var(g0, ddof=1), np.var(g1, ddof=1)
-    s01 = np.cov(g0, g1, ddof=1)[0, 1]
     a = n * d * d - q * q * (s00 - 2 * s01 + s11)
     b = 2 * n * m0 * d - 2 * q * q * (s01 - s00)
     c = n * m0 * m0 - q * q * s00
@@ -92,17 +107,26 @@ def level_crossing_set(
     n, k = g.shape
     if n < 2:
         return float("nan"), float("nan")
-    q = float(stats.t.ppf(0.5 + confidence / 2, n - 1))
+    q = t_quantile(0.5 + confidence / 2, n - 1)
     # beyond the ladder's ends only one direction can reject: one-sided at the nominal level
-    q_end = float(stats.t.ppf(confidence, n - 1))
+    q_end = t_quantile(confidence, n - 1)
     mean = g.mean(axis=0)
     se = g.std(axis=0, ddof=1) / np.sqrt(n)
     above = mean > q_end * se  # significantly above the level at a ladder point (one-sided)
     below = mean < -q_end * se
     sizes = np.asarray(sizes, float)
     lows, highs = [], []
+    means, variances, centred = _column_moments(g)
     for j in range(k - 1):
-        w_lo, w_hi = _segment_hull(g[:, j], g[:, j + 1], q)
+        w_lo, w_hi = _segment_hull(
+            n,
+            means[j],
+            means[j + 1],
+            variances[j],
+            variances[j + 1],
+            _covariance(centred, j),
+            q,
+        )
         if np.isfinite(w_lo):
             lows.append(_at(sizes, j, w_lo))
             highs.append(_at(sizes, j, w_hi))
@@ -134,6 +158,6 @@ def seed_t_interval(values: np.ndarray, confidence: float) -> tuple[float, float
         return float("nan"), float("nan")
     c = huge_scale(v)  # values near 1e200: exactly scaled, so the spread does not overflow
     v = v * c
-    q = float(stats.t.ppf(0.5 + confidence / 2, n - 1))
+    q = t_quantile(0.5 + confidence / 2, n - 1)
     half = q * v.std(ddof=1) / np.sqrt(n)
     return float(v.mean() - half) / c, float(v.mean() + half) / c

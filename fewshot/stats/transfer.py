@@ -54,23 +54,48 @@ __all__ = [
 ]
 
 
-def _paired_cells(level: pd.Series, arm: str, baseline: str):  # type: ignore[no-untyped-def]
-    """Per (task, size): the seed-level values of arm and baseline on their common seeds.
+def _seed_cells(level: pd.Series) -> dict:  # type: ignore[type-arg]
+    """Per arm, per (task, size): the seeds and their seed-level values, in ``level``'s order.
 
     ``level``: seed-level values indexed by arm, task, size, seed (sorted), computed once for
-    every arm."""
-    a, b = level.loc[arm], level.loc[baseline]
-    theirs = {key: g.droplevel(["task", "size"]) for key, g in b.groupby(level=["task", "size"])}
-    for (task, size), g in a.groupby(level=["task", "size"]):
-        y = theirs.get((task, size))
-        if y is None:
+    every arm; split here in one pass over its index codes instead of a grouping per arm."""
+    index = level.index
+    codes = [np.asarray(c) for c in index.codes[:3]]
+    starts = (
+        np.flatnonzero(
+            np.r_[
+                True,
+                (codes[0][1:] != codes[0][:-1])
+                | (codes[1][1:] != codes[1][:-1])
+                | (codes[2][1:] != codes[2][:-1]),
+            ]
+        )
+        if len(level)
+        else np.empty(0, int)
+    )
+    ends = np.r_[starts[1:], len(level)]
+    arms, tasks, sizes = (index.levels[j][codes[j][starts]] for j in range(3))
+    seeds, values = np.asarray(index.get_level_values(3)), level.to_numpy()
+    cells: dict = {}  # type: ignore[type-arg]
+    for arm, task, size, start, end in zip(arms, tasks, sizes, starts, ends, strict=True):
+        cells.setdefault(arm, {})[(task, size)] = (seeds[start:end], values[start:end])
+    return cells
+
+
+def _paired_cells(cells: dict, arm: str, baseline: str):  # type: ignore[no-untyped-def,type-arg]
+    """Per (task, size): the seed-level values of arm and baseline on their common seeds (in
+    seed order), from :func:`_seed_cells`."""
+    theirs = cells.get(baseline, {})
+    for (task, size), (sx, x) in cells.get(arm, {}).items():
+        found = theirs.get((task, size))
+        if found is None:
             continue
-        x = g.droplevel(["task", "size"])
-        if x.index.equals(y.index):
-            xs, ys = x.to_numpy(), y.to_numpy()
+        sy, y = found
+        if len(sx) == len(sy) and np.array_equal(sx, sy):
+            xs, ys = x, y
         else:
-            common = x.index.intersection(y.index)
-            xs, ys = x.loc[common].to_numpy(), y.loc[common].to_numpy()
+            _, i, j = np.intersect1d(sx, sy, assume_unique=True, return_indices=True)
+            xs, ys = x[i], y[j]
         yield task, int(size), xs, ys, len(x), len(y)
 
 
@@ -95,12 +120,13 @@ def paired_differences(
     rows = []
     rng_root = np.random.SeedSequence(settings.seed)
     level = scores.dropna(subset=[value]).groupby(["arm", "task", "size", "seed"])[value].mean()
+    cells = _seed_cells(level)
     advance("paired differences", 0, len(chosen))
     for k, (arm, child) in enumerate(zip(chosen, rng_root.spawn(len(chosen)), strict=True)):
         if k:
             advance("paired differences", k, len(chosen))
         rng = np.random.default_rng(child)
-        for task, size, x, y, nx, ny in _paired_cells(level, arm, baseline):
+        for task, size, x, y, nx, ny in _paired_cells(cells, arm, baseline):
             n = len(x)
             note = (
                 ""
