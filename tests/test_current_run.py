@@ -157,17 +157,6 @@ def test_the_readme_trainer_is_ten_lines():
     compile(_readme_trainer(), "README trainer", "exec")
 
 
-def _ledger_takes_final_lines() -> bool:
-    from fewshot.results_format import LINE_KEYS
-
-    return {"final", "attempt"} <= LINE_KEYS
-
-
-@pytest.mark.skipif(
-    not _ledger_takes_final_lines(),
-    reason="the ledger's result lines do not yet carry `final` and `attempt` (the ledger part of "
-    "the same issue adds them); the lines the helper writes are checked above",
-)
 def test_the_readme_trainer_under_exec_has_its_lines_ingested(tmp_path: Path, study_file, cli):
     study = study_file(sizes=[1, 3], seeds=[0])
     ledger = str(tmp_path / "l.sqlite")

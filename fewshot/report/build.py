@@ -122,6 +122,17 @@ def _completion_section(data: StudyData) -> tuple[str, list[str]]:
         f"{t['done']} of {t['total']} runs done, {t['running']} running, {t['failed']} failed, "
         f"{t['planned']} not started. Cells: runs done / planned per arm and size."
     ) + table_html(cells, numeric=[f"n{n}" for n in sizes])
+    history = []
+    if st.voided:
+        history.append(
+            f"{st.voided} result(s) voided: kept in the ledger with who voided them, when and why "
+            "(fewshot export shows them), and left out of every statistic here."
+        )
+    attempts = st.attempts_line()
+    if attempts:
+        history.append(attempts + ".")
+    if history:
+        body += paragraph(" ".join(history))
     if len(st.failed):
         body += "<h3>Failed runs</h3>" + collapsed(
             [
