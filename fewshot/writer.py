@@ -110,26 +110,7 @@ class ResultWriter:
         """Append one result: an evaluation at a training ``step``, or the run's final
         evaluation (``final=True``, no step); NaN or infinite values are refused here, before
         they reach a file."""
-        if (step is None) == (not final):
-            raise ValueError(
-                f"{metric!r}: give the training step of this evaluation (step=N) or mark the "
-                "final evaluation (final=True), not both or neither"
-            )
-        if not isinstance(value, int | float) or not math.isfinite(value):
-            raise ValueError(f"value of {metric!r} must be a finite number, got {value!r}")
-        if values is not None and not all(math.isfinite(v) for v in values):
-            raise ValueError(f"values of {metric!r} must all be finite numbers")
-        line: dict[str, Any] = {
-            "run": self.run,
-            "metric": metric,
-            "value": float(value),
-        }
-        if final:
-            line["final"] = True
-        else:
-            line["step"] = step
-        if values is not None:
-            line["values"] = [float(v) for v in values]
+        line = _result_line(self.run, metric, value, step, final, values)
         if self.subset_digest:
             line["subset_digest"] = self.subset_digest
         if budget is not None:
@@ -261,29 +242,7 @@ class CurrentRun:
             raise ValueError(
                 f"metric must be a metric name such as {self.metric!r}. Got {metric!r}."
             )
-        if step is None and not final:
-            raise ValueError(
-                f"log({metric!r}, {value!r}): give the training step of this evaluation "
-                "(step=N), or mark the run's final evaluation (final=True)."
-            )
-        if step is not None and final:
-            raise ValueError(
-                f"log({metric!r}, {value!r}): a final evaluation has no step; drop step={step!r} "
-                "or final=True."
-            )
-        if step is not None and (isinstance(step, bool) or not isinstance(step, int) or step < 0):
-            raise ValueError(f"step must be a whole number of 0 or more. Got {step!r}.")
-        if (
-            isinstance(value, bool)
-            or not isinstance(value, int | float)
-            or not math.isfinite(value)
-        ):
-            raise ValueError(f"the value of {metric!r} must be a finite number. Got {value!r}.")
-        if values is not None and not all(
-            isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
-            for v in values
-        ):
-            raise ValueError(f"values of {metric!r} must all be finite numbers.")
+        line = _result_line(self.key, metric, value, step, final, values)
         if self.results is None:
             raise NotInARun(
                 f"{_OPTIONAL['results']} is not set, so there is no results file the work loop "
@@ -291,13 +250,6 @@ class CurrentRun:
             )
         if self._digest is None:
             self._digest = id_file_digest(self.subset)
-        line: dict[str, Any] = {"run": self.key, "metric": metric, "value": float(value)}
-        if final:
-            line["final"] = True
-        else:
-            line["step"] = step
-        if values is not None:
-            line["values"] = [float(v) for v in values]
         line["subset_digest"] = self._digest
         line["attempt"] = self.attempt
         _append(self.results, line)
@@ -313,3 +265,40 @@ def current_run(environ: Mapping[str, str] | None = None) -> CurrentRun:
         Outside such a run: the message names the first missing variable.
     """
     return CurrentRun(os.environ if environ is None else environ)
+
+
+def _result_line(
+    run: str,
+    metric: str,
+    value: float,
+    step: int | None,
+    final: bool,
+    values: Sequence[float] | None,
+) -> dict[str, Any]:
+    """One checked result line: at a training ``step`` or ``final``; finite numbers only."""
+    if step is None and not final:
+        raise ValueError(
+            f"{metric!r} = {value!r}: give the training step of this evaluation "
+            "(step=N), or mark the run's final evaluation (final=True)."
+        )
+    if step is not None and final:
+        raise ValueError(
+            f"{metric!r} = {value!r}: a final evaluation has no step; drop step={step!r} "
+            "or final=True."
+        )
+    if step is not None and (isinstance(step, bool) or not isinstance(step, int) or step < 0):
+        raise ValueError(f"step must be a whole number of 0 or more. Got {step!r}.")
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        raise ValueError(f"the value of {metric!r} must be a finite number. Got {value!r}.")
+    if values is not None and not all(
+        isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) for v in values
+    ):
+        raise ValueError(f"values of {metric!r} must all be finite numbers.")
+    line: dict[str, Any] = {"run": run, "metric": metric, "value": float(value)}
+    if final:
+        line["final"] = True
+    else:
+        line["step"] = step
+    if values is not None:
+        line["values"] = [float(v) for v in values]
+    return line
