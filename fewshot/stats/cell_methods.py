@@ -13,7 +13,7 @@ import numpy as np
 from scipy import special, stats
 
 if TYPE_CHECKING:
-    from fewshot.stats.bootstrap import _Dist
+    from fewshot.stats.distribution import SeedDistribution
 
 __all__ = ["hall_interval", "expanded_half_alpha", "bca_interval"]
 
@@ -59,7 +59,7 @@ def bca_interval(
     seed_level: np.ndarray,
     estimator: Callable[[np.ndarray], np.ndarray],
     estimate: np.ndarray,
-    dist: _Dist,
+    dist: SeedDistribution,
     alpha: float,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Efron & Tibshirani (1993) eq. 14.14 (z0) and 14.15 (acceleration by the jackknife)."""
