@@ -60,6 +60,7 @@ __all__ = [
 STDERR_TAIL_LINES = 40
 DEFAULT_RESULTS_DIR = "fewshot-results"
 STOP_GRACE_SECONDS = 10.0
+LEASE_THREAD_JOIN_SECONDS = 10.0  # a stopped worker waits this long for a renewal in flight
 STOP_SIGNALS = tuple(
     s for s in (signal.SIGINT, signal.SIGTERM, getattr(signal, "SIGHUP", None)) if s is not None
 )
@@ -305,9 +306,13 @@ def _run_one(
         signals.waiting = False
         stop.set()
         _stop_group(proc)
+        threads[1].join(timeout=LEASE_THREAD_JOIN_SECONDS)
         raise
     stop.set()
-    threads[0].join()
+    # Both threads end here: a renewal still running when the process exits would race the
+    # interpreter's shutdown (its finalizers), and one running during settle would be wasted.
+    for t in threads:
+        t.join()
     ingested = 0
     message = None
     if results.exists():
