@@ -19,6 +19,7 @@ __all__ = [
     "RESULT_COLUMN_DOCS",
     "RUN_COLUMNS",
     "RUN_KEY_COLUMNS",
+    "ARM_COLUMNS",
 ]
 
 #: One line per column of the results table: its meaning and type.
@@ -55,6 +56,10 @@ RESULT_COLUMNS: list[str] = list(RESULT_COLUMN_DOCS)
 
 #: The columns that identify one run within a study (a run's score is keyed by these).
 RUN_KEY_COLUMNS: tuple[str, ...] = ("arm", "role", "task", "group", "size", "seed", "replicate")
+
+#: :meth:`fewshot.Ledger.arms`: an arm's own columns; one more column per attribute of the arms,
+#: so no attribute may take one of these names (the study loader refuses it).
+ARM_COLUMNS: tuple[str, ...] = ("arm", "role", "checkpoint", "zero_shot")
 
 #: :meth:`fewshot.Ledger.runs`: one row per planned run.
 RUN_COLUMNS: list[str] = [

@@ -224,8 +224,8 @@ def test_performance_profile_and_headline():
     assert wide[0.0] == 1.0 and wide[0.5] == 1.0 and wide[1.0] == 0.0
 
 
-def test_scaling_view_uses_the_shared_attribute():
-    agg = pd.DataFrame(
+def _iqm_rows() -> pd.DataFrame:
+    return pd.DataFrame(
         {
             "arm": ["a", "b"],
             "role": ["pretrained"] * 2,
@@ -237,11 +237,22 @@ def test_scaling_view_uses_the_shared_attribute():
             "high": [0.6, 0.8],
         }
     )
+
+
+def test_scaling_view_uses_the_shared_attribute():
+    agg = _iqm_rows()
     arms = pd.DataFrame({"arm": ["a", "b"], "role": ["pretrained"] * 2, "params": [1e6, 1e8]})
     view = scaling_view(agg, arms)
     assert view["attribute"].iloc[0] == "params" and view["attribute_value"].tolist() == [1e6, 1e8]
     with pytest.raises(InvalidInput, match="not a number carried by two arms"):
         scaling_view(agg, arms, "depth")
+
+
+def test_scaling_view_takes_an_attribute_named_like_an_aggregate_column():
+    arms = pd.DataFrame({"arm": ["a", "b"], "role": ["pretrained"] * 2, "estimate": [1e6, 1e8]})
+    view = scaling_view(_iqm_rows(), arms, "estimate")
+    assert view["attribute_value"].tolist() == [1e6, 1e8]
+    assert view["estimate"].tolist() == [0.5, 0.7]  # the scores, not the attribute
 
 
 @pytest.mark.parametrize(

@@ -247,12 +247,12 @@ class LedgerReads(LedgerConnection):
             ).all()
             frame = pd.DataFrame(
                 [
-                    {
+                    {  # the arm's own columns win over an attribute of the same name
+                        **json.loads(r[4]),
                         "arm": r[0],
                         "role": r[1],
                         "checkpoint": r[2],
                         "zero_shot": bool(r[3]),
-                        **json.loads(r[4]),
                     }
                     for r in rows
                 ]

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from fewshot.errors import InvalidInput
+from fewshot.schema import ARM_COLUMNS
 from fewshot.stats.curves import CurveSettings
 from fewshot.stats.progress import advance
 from fewshot.stats.resample import CurveResampler, interval
@@ -138,7 +139,7 @@ def scaling_view(
     at least two arms carry is used. Columns: arm, role, attribute, attribute_value, size, estimate,
     low, high.
     """
-    skip = {"arm", "role", "checkpoint", "zero_shot"}
+    skip = set(ARM_COLUMNS)
     numeric = [
         c
         for c in arms.columns
@@ -155,8 +156,10 @@ def scaling_view(
             f"attribute {attribute!r} is not a number carried by two arms or more. Usable: {', '.join(numeric) or 'none'}."
         )
     agg = aggregate[(aggregate["aggregate"] == statistic) & aggregate["group"].isna()]
-    joined = agg.merge(arms[["arm", attribute]].dropna(), on="arm")
-    out = joined.rename(columns={attribute: "attribute_value"}).assign(attribute=attribute)
+    # renamed before the merge, so an attribute named like a column of the aggregate (size, ...)
+    # cannot collide with it
+    values = arms[["arm", attribute]].dropna().rename(columns={attribute: "attribute_value"})
+    out = agg.merge(values, on="arm").assign(attribute=attribute)
     return (
         out[["arm", "role", "attribute", "attribute_value", "size", "estimate", "low", "high"]]
         .sort_values(["size", "attribute_value"])

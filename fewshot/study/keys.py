@@ -80,7 +80,7 @@ KEYS: tuple[StudyKey, ...] = (
     _k("arms", "role", "str", REQUIRED, "", "`pretrained` or `baseline`"),
     _k("arms", "checkpoint", "str", None, "none", "the arm's starting weights, given to the trainer as `FEWSHOT_CHECKPOINT`"),
     _k("arms", "zero_shot", "bool", COMPUTED, "true for `pretrained`, false for `baseline`", "whether size 0 is planned for the arm"),
-    _k("arms", "attributes", "table", {}, "{}", "numbers or text, e.g. `{ params = 1e6, recipe = \"mixed\" }`; given to the trainer as `FEWSHOT_ATTRIBUTES`"),
+    _k("arms", "attributes", "table", {}, "{}", "numbers or text, e.g. `{ params = 1e6, recipe = \"mixed\" }`; given to the trainer as `FEWSHOT_ATTRIBUTES`; not named arm, role, checkpoint or zero_shot"),
     _k("tasks", "name", "str", REQUIRED, "", "the task's name (the same rule as the study's)"),
     _k("tasks", "pool", "str", REQUIRED, "", "the pool file (CSV, JSONL or Parquet; relative to the study file)"),
     _k("tasks", "id_column", "str", "id", "`id`", "the pool column holding episode ids"),

@@ -20,6 +20,7 @@ from fewshot.errors import InvalidInput
 from fewshot.files import read_text
 from fewshot.names import check_name
 from fewshot.ranges import INT64_MAX, MAX_REPLICATES
+from fewshot.schema import ARM_COLUMNS
 from fewshot.study.keys import KIND_WORDS, keys_of
 from fewshot.study.model import Arm, Study, StudyError, Task
 
@@ -244,6 +245,14 @@ def _arm(doc: dict[str, Any], i: int, where: _Where) -> Arm:
         raise where.error(f"must be 'pretrained' or 'baseline'. Got {role!r}.", "role", "arms", i)
     attrs = _get(doc, "attributes", "table", where, "arms", i, default={})
     for k, v in attrs.items():
+        if k in ARM_COLUMNS:
+            raise where.error(
+                f"attribute {k!r} would shadow the arm's own {k!r}; attributes may not be named "
+                f"{', '.join(ARM_COLUMNS)}. Rename it, e.g. {k + '_label'!r}.",
+                "attributes",
+                "arms",
+                i,
+            )
         if isinstance(v, str):
             continue
         if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
