@@ -105,6 +105,21 @@ def test_pull_script_is_capped_and_submitted(tmp_path: Path, ledger: str, fake_p
     assert " work --worker " in text and "--study mini" in text
 
 
+def test_a_pinned_submission_says_its_runs_stay_open(tmp_path: Path, ledger: str, fake_path: Path):
+    _fake(fake_path, "sbatch", 'echo "4343;cluster"')
+    args = ["slurm", "--pinned", "--ledger", ledger, "--", sys.executable, "train.py"]
+    res = runner.invoke(app, args)
+    assert res.exit_code == 0, res.output
+    assert "submitted job 4343" in res.output
+    from fewshot.ledger import Ledger
+
+    with Ledger.open(ledger) as led:
+        planned = int((led.runs()["status"] == "planned").sum())
+    assert planned > 0  # the runs are not claimed in the ledger, and the note says so
+    assert f"note: the {planned} run(s) of this submission stay open in the ledger" in res.output
+    assert "would train them a second time" in res.output
+
+
 def test_bad_input_exits_2_submits_nothing_and_changes_nothing(
     tmp_path: Path, ledger: str, fake_path: Path, dump
 ):

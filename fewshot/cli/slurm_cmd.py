@@ -185,6 +185,11 @@ def slurm(
     out.print(f"follow it: squeue -j {job}   logs: {folder / 'logs'}")
     at = "" if ledger is None else f" --ledger {ledger}"
     if pinned:
+        err.print(
+            f"note: the {len(runs or [])} run(s) of this submission stay open in the ledger until "
+            "their exit records are ingested: `fewshot work` or `fewshot jobs` on this study "
+            "meanwhile would train them a second time"
+        )
         out.print(f"afterwards: fewshot ingest {results}{at} --study {name}")
         out.print(
             f"or let SLURM do it: sbatch --dependency=afterany:{job} --wrap "
