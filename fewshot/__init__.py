@@ -66,6 +66,7 @@ _EXPORTS = {
     "analyse_study": "fewshot.analysis",
     "Findings": "fewshot.analysis",
     "summarise_study": "fewshot.analysis",
+    "compare_findings": "fewshot.analysis",
     "curves_json": "fewshot.analysis",
     "compare_json": "fewshot.analysis",
     "seeds_json": "fewshot.analysis",
@@ -100,10 +101,12 @@ if TYPE_CHECKING:  # for type checkers and editors
     from fewshot.analysis import (
         CompareReport,
         CurveReport,
+        Findings,
         SeedsReport,
         StudyData,
         StudyReports,
         analyse_study,
+        compare_findings,
         compare_json,
         compare_report,
         curve_report,
@@ -113,6 +116,7 @@ if TYPE_CHECKING:  # for type checkers and editors
         read_study,
         seeds_json,
         seeds_needed_report,
+        summarise_study,
     )
     from fewshot.errors import (
         DrawError,

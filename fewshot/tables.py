@@ -21,7 +21,20 @@ __all__ = [
     "bound",
     "flagged",
     "latex_table",
+    "UNFINISHED_MARK",
+    "UNFINISHED_COLUMN",
+    "unfinished",
 ]
+
+#: Marks a value that includes results of runs not yet done (read with ``include_running``);
+#: :mod:`fewshot.analysis.qualify` counts those runs per row in :data:`UNFINISHED_COLUMN`.
+UNFINISHED_MARK = "*"
+UNFINISHED_COLUMN = "unfinished_runs"
+
+
+def unfinished(row: pd.Series | dict) -> str:  # type: ignore[type-arg]
+    """`` *`` when ``row``'s value includes results of runs not yet done, else nothing."""
+    return f" {UNFINISHED_MARK}" if (row.get(UNFINISHED_COLUMN, 0) or 0) > 0 else ""
 
 
 def number(x: float | None, digits: int = 3) -> str:
@@ -116,7 +129,7 @@ def transfer_rows(table: pd.DataFrame) -> list[dict[str, str]]:
                 "size": str(r["size"]),
                 **({"unit": str(r["unit"])} if mixed else {}),
                 "difference": flagged(with_interval(r["difference"], r["low"], r["high"]), n)
-                + (" *" if r.get("unfinished_runs", 0) > 0 else ""),  # includes runs not done
+                + unfinished(r),
                 "P(improvement)": flagged(
                     with_interval(r.get("probability"), r.get("p_low"), r.get("p_high")),
                     r.get("p_seeds", n),

@@ -142,7 +142,8 @@ def test_baseline_missing_a_size_is_named(tmp_path: Path, study_file):
         run("compare", "--ledger", ledger, "--resamples", "300", "--format", "json").stdout
     )
     assert any(
-        "baseline 'scratch' has no runs at size(s) 3 on task 'reach'" in n for n in data["notes"]
+        "baseline 'scratch' has no scored runs at size(s) 3 on task 'reach'" in n
+        for n in data["notes"]
     )
     assert 3 not in {r["size"] for r in data["rows"]}
 

@@ -80,6 +80,6 @@ def test_baseline_with_one_size_on_one_task(tmp_path, study_file, cli):
     assert row["effective"] is None and row["multiplier"] is None  # no baseline curve yet
     notes = " ".join(data["notes"])
     assert "fewer than two sizes >= 1 on reach" in notes
-    assert "no runs at size(s) 3, 10" in notes
+    assert "no scored runs at size(s) 3, 10" in notes
     text = cli("compare", "--ledger", url, "--resamples", "300")
     assert "difference" in text.output and "no effective data" in text.output

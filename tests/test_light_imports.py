@@ -33,6 +33,7 @@ COMMAND_MODULES = [
     "fewshot.cli.demo_cmd",
     "fewshot.cli.stats_cmd",
     "fewshot.cli.compare_cmd",
+    "fewshot.cli.seeds_cmd",
 ]
 
 

@@ -51,7 +51,7 @@ from fewshot.analysis.shapes import (
     json_records,
     seeds_json,
 )
-from fewshot.analysis.study_report import StudyReports, analyse_study
+from fewshot.analysis.study_report import StudyReports, analyse_study, compare_findings
 from fewshot.analysis.transfer import CompareReport, compare_report, compare_scores
 
 __all__ = [
@@ -70,6 +70,7 @@ __all__ = [
     "StudyReports",
     "StudyScores",
     "analyse_study",
+    "compare_findings",
     "caveats",
     "compare_figure",
     "compare_json",

@@ -15,8 +15,14 @@ from typing import TYPE_CHECKING, Any
 import pandas as pd
 
 from fewshot.analysis.finding import Finding, Findings
-from fewshot.analysis.qualify import UNFINISHED_COLUMN, UNFINISHED_MARK
-from fewshot.tables import bound, number, threshold_cell
+from fewshot.tables import (
+    UNFINISHED_COLUMN,
+    UNFINISHED_MARK,
+    bound,
+    number,
+    threshold_cell,
+    unfinished,
+)
 
 if TYPE_CHECKING:
     from fewshot.analysis.curves import CurveReport
@@ -42,11 +48,6 @@ def _iv(est: float, low: float, high: float, *, signed: bool = False) -> str:
     if pd.isna(low) or pd.isna(high):
         return f"{e} (no interval)"
     return f"{e} [{number(low)}, {number(high)}]"
-
-
-def _late(row: pd.Series) -> str:
-    """A mark on a sentence whose row includes results of runs not yet done."""
-    return f" {UNFINISHED_MARK}" if row.get(UNFINISHED_COLUMN, 0) > 0 else ""
 
 
 def _behind(n_seeds: int, tasks: tuple[str, ...]) -> str:
@@ -118,7 +119,7 @@ def _zero_shot(arm, scope, where, tasks, aggregate) -> list[Finding]:  # type: i
             arm,
             "zero-shot",
             f"Zero-shot (no episodes), {where}: interquartile mean of the normalised score "
-            f"{_iv(r['estimate'], r['low'], r['high'])}{same} {_behind(n, tasks)}.{_late(r)}",
+            f"{_iv(r['estimate'], r['low'], r['high'])}{same} {_behind(n, tasks)}.{unfinished(r)}",
             "aggregate.table",
             "all",
             0,
@@ -145,7 +146,7 @@ def _ahead(arm, scope, where, tasks, table, compare, unit) -> list[Finding]:  # 
         return Finding(
             arm,
             kind,
-            text + _late(r),
+            text + unfinished(r),
             "compare.table",
             scope,
             int(r["size"]),
@@ -301,7 +302,7 @@ def _best(aggregate: CurveReport, arms: list[str], confidence: float) -> list[Fi
         else:
             kind = "best"
             text = f"{head}, its interval above every other arm's {behind}."
-        text += _late(r)
+        text += unfinished(r)
         found.append(
             Finding(
                 "across arms",

@@ -41,6 +41,7 @@ import numpy as np
 import pandas as pd
 
 from fewshot.analysis.data import StudyData, read_study
+from fewshot.tables import UNFINISHED_COLUMN, UNFINISHED_MARK
 
 if TYPE_CHECKING:
     from fewshot.analysis.curves import CurveReport
@@ -59,8 +60,6 @@ __all__ = [
     "clipped_count",
 ]
 
-UNFINISHED_MARK = "*"
-UNFINISHED_COLUMN = "unfinished_runs"
 CLIPPED_COLUMN = "clipped"
 RUN_IDS = ["arm", "task", "size", "seed", "replicate"]
 
@@ -107,7 +106,7 @@ def _mark_note(n: int) -> str:
     return (
         f"{n} value(s) marked {UNFINISHED_MARK} include results of runs not yet done (running, "
         "claimed, failed or planned): they may change or vanish when those runs finish, fail or "
-        "are retried; without include_running only done runs count"
+        "are retried; without `include_running` only done runs count"
     )
 
 

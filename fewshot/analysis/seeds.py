@@ -7,7 +7,8 @@ from typing import TYPE_CHECKING
 
 import pandas as pd
 
-from fewshot.analysis.data import StudyData, StudyScores, as_study_data, study_scores
+from fewshot.analysis.data import StudyData, StudyScores, study_scores
+from fewshot.analysis.qualify import study_data
 from fewshot.errors import InvalidInput
 
 if TYPE_CHECKING:
@@ -52,13 +53,16 @@ def seeds_needed_report(
     alpha: float = 0.05,
     baseline: str | None = None,
     select: str = "final",
+    include_running: bool = False,
 ) -> SeedsReport:
     """Seeds each comparison with ``baseline`` (the study's by default) needs to detect ``effect``
     (a normalised difference) by a one-sided Welch t test of level ``alpha`` with ``power``.
 
-    ``source`` is a ledger (read once) or a study already read by :func:`read_study`.
+    ``source`` is a ledger (read once: done runs only, or every run's results with
+    ``include_running``, for a pilot still under way; a note then counts the unfinished runs) or a
+    study already read by :func:`read_study`.
     """
-    data = as_study_data(source)
+    data = study_data(source, include_running=include_running)
     sc = study_scores(data, select=select)
     base = baseline or data.study["baseline"]
     table, notes = seeds_report(sc, base, effect=effect, power=power, alpha=alpha)
@@ -70,6 +74,14 @@ def seeds_needed_report(
         f"a pilot of {int(table['pilot_seeds'].min())} seed(s) underestimates the spread more often "
         "than not; treat these counts as a floor"
     )
+    res = data.results
+    if "run_status" in res:
+        late = res.loc[res["run_status"] != "done", "run"].nunique()
+        if late:
+            notes.append(
+                f"{late} run(s) not yet done are included (`include_running`): their results may "
+                "change or vanish when they finish, fail or are retried, and the spreads with them"
+            )
     return SeedsReport(table, base, effect, power, alpha, "normalised", sc.rule, notes)
 
 

@@ -7,7 +7,8 @@ from typing import TYPE_CHECKING
 
 from fewshot.analysis.curves import CurveReport, caveats, curve_scores, in_study_order
 from fewshot.analysis.data import StudyData, StudyScores, study_scores
-from fewshot.analysis.qualify import qualify_study, study_data
+from fewshot.analysis.findings import Findings, findings
+from fewshot.analysis.qualify import qualify_curves, qualify_study, study_data
 from fewshot.analysis.transfer import CompareReport, compare_scores
 from fewshot.errors import InvalidInput
 from fewshot.stats import CurveSettings, aggregate_curves
@@ -16,7 +17,7 @@ from fewshot.stats.progress import advance
 if TYPE_CHECKING:
     from fewshot.ledger import Ledger
 
-__all__ = ["StudyReports", "analyse_study"]
+__all__ = ["StudyReports", "analyse_study", "compare_findings"]
 
 
 @dataclass(frozen=True)
@@ -117,3 +118,15 @@ def _iqm_over_tasks(sc: StudyScores, settings: CurveSettings, arms: list[str]) -
     report = CurveReport(in_study_order(table, arms), "across-tasks", "normalised", settings, sc)
     report.notes.extend(caveats(report))
     return report
+
+
+def compare_findings(compare: CompareReport, data: StudyData) -> Findings:
+    """The findings summary of one comparison (what ``fewshot compare`` prints above its tables):
+    ``compare`` read with the across-task IQM, the only aggregate the findings quote, computed
+    when the comparison is of normalised scores over two tasks or more. ``data`` is the study
+    ``compare`` was computed from (its bounds, unfinished runs and arm order)."""
+    aggregate = None
+    if compare.value == "normalised" and len(compare.over_tasks) > 1:
+        iqm = _iqm_over_tasks(compare.scores, compare.settings, data.arm_order)
+        aggregate = qualify_curves(iqm, data)
+    return findings(compare, aggregate, arm_order=data.arm_order)

@@ -215,8 +215,9 @@ def compare_scores(
             missing = sorted(s for s in held.get((arm, task), set()) - b_sizes if s > 0)
             if missing:
                 notes.append(
-                    f"baseline {base!r} has no runs at size(s) {', '.join(map(str, missing))} on task "
-                    f"{task!r}: no comparison with {arm!r} there"
+                    f"baseline {base!r} has no scored runs at size(s) {', '.join(map(str, missing))} "
+                    f"on task {task!r} (none done there yet, or none planned): no comparison "
+                    f"with {arm!r} there"
                 )
     if not chosen:
         notes.append(

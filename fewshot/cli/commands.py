@@ -14,6 +14,7 @@ from fewshot.cli import (
     repair_cmd,
     results_cmd,
     runs_cmd,
+    seeds_cmd,
     stats_cmd,
     study_cmd,
     summary_cmd,
@@ -81,7 +82,7 @@ app.command("compare")(compare_cmd.compare)
 app.command("plot")(stats_cmd.plot)
 app.command("report")(stats_cmd.report)
 app.command("demo")(demo_cmd.demo)
-app.command("seeds-needed")(compare_cmd.seeds_needed_cmd)
+app.command("seeds-needed")(seeds_cmd.seeds_needed_cmd)
 app.command("summary")(summary_cmd.summary)
 
 

@@ -8,7 +8,7 @@ import os
 import re
 import sys
 import warnings
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterable, Iterator, Mapping
 from contextlib import contextmanager
 from enum import StrEnum
 from typing import Annotated, Any
@@ -147,9 +147,18 @@ def int_list(text: str, *, option: str) -> tuple[int, ...]:
     return tuple(values)
 
 
-def print_json(data: Any) -> None:
-    """Write ``data`` as indented JSON to stdout, with no markup or wrapping."""
+def print_json(data: Any, flags: Mapping[str, str] | None = None) -> None:
+    """Write ``data`` as indented JSON to stdout, with no markup or wrapping; the parameters its
+    ``notes`` name become the command's ``flags``."""
+    if flags is not None and isinstance(data, dict) and isinstance(data.get("notes"), list):
+        data = {**data, "notes": [as_flags(str(n), flags) for n in data["notes"]]}
     sys.stdout.write(json.dumps(data, indent=2) + "\n")
+
+
+def print_notes(notes: Iterable[str], flags: Mapping[str, str]) -> None:
+    """The library's notes on stderr, once each, the parameters they name as the command's flags."""
+    for note in dict.fromkeys(notes):
+        err.print(f"note: {as_flags(note, flags)}")
 
 
 def progress() -> Progress:

@@ -1,4 +1,4 @@
-"""``fewshot compare`` and ``fewshot seeds-needed``: what pretraining is worth, and how many seeds to show it."""
+"""``fewshot compare``: what pretraining is worth, and how sure the study is of it."""
 
 from __future__ import annotations
 
@@ -13,19 +13,17 @@ from fewshot.cli.common import (
     LedgerOpt,
     PagerOpt,
     StudyOpt,
-    TableJsonCsv,
-    err,
     open_ledger,
     out,
     paged,
     print_json,
+    print_notes,
     reporting,
 )
 from fewshot.cli.fit import fits, fitted_tables, make_table
 from fewshot.cli.options import (
     STATS_FLAGS,
     BaselineOpt,
-    SelectOpt,
     StatsOptions,
     ThresholdOpt,
     statistics_options,
@@ -66,14 +64,7 @@ def compare(
     stats: StatsOptions,
 ) -> None:
     """Arms against a baseline: paired differences, P(improvement), effective data, episodes to a threshold."""
-    from fewshot.analysis import (
-        compare_json,
-        compare_report,
-        curve_scores,
-        findings,
-        qualify_curves,
-        study_data,
-    )
+    from fewshot.analysis import compare_findings, compare_json, compare_report, study_data
     from fewshot.cli.stats_progress import statistics_progress
     from fewshot.tables import latex_table, transfer_rows
 
@@ -95,7 +86,7 @@ def compare(
         finally:
             led.close()
     if fmt is CompareFormat.json:
-        print_json(compare_json(rep))
+        print_json(compare_json(rep), STATS_FLAGS)
         return
     if fmt is CompareFormat.csv:
         typer.echo(rep.table.to_csv(index=False), nl=False)
@@ -104,14 +95,10 @@ def compare(
         rows = transfer_rows(rep.table)
         typer.echo(latex_table(rows, _caption(rep)), nl=False)
         return
-    aggregate = None
-    if rep.value == "normalised" and len(rep.over_tasks) > 1:
-        with reporting(STATS_FLAGS), statistics_progress():
-            aggregate = qualify_curves(
-                curve_scores(rep.scores, settings, across_tasks=True, arms=data.arm_order), data
-            )
+    with reporting(STATS_FLAGS), statistics_progress():
+        found = compare_findings(rep, data)
     with paged(pager):
-        print_findings(findings(rep, aggregate, arm_order=data.arm_order))
+        print_findings(found)
         print_transfer(rep)
 
 
@@ -152,7 +139,14 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
     import pandas as pd
 
     from fewshot.stats.curves import FEW_SEEDS
-    from fewshot.tables import flagged, number, threshold_cell, transfer_rows, with_interval
+    from fewshot.tables import (
+        flagged,
+        number,
+        threshold_cell,
+        transfer_rows,
+        unfinished,
+        with_interval,
+    )
 
     rows = transfer_rows(rep.table)
     title = f"against {rep.baseline}: {_unit(rep)} difference, P(improvement), effective data"
@@ -174,7 +168,7 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
             t2.add_row(
                 Text(str(r["arm"])),
                 Text(str(r["task"])),
-                _flag(flagged(threshold_cell(r), r["n_seeds"])),
+                _flag(flagged(threshold_cell(r), r["n_seeds"]) + unfinished(r)),
                 str(r["n_seeds"]),
             )
         out.print(t2)
@@ -190,7 +184,10 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
                 str(r["arm"]),
                 str(r["task"]),
                 str(r["sizes"]),
-                _flag(flagged(with_interval(r["auc"], r["low"], r["high"]), r["n_seeds"])),
+                _flag(
+                    flagged(with_interval(r["auc"], r["low"], r["high"]), r["n_seeds"])
+                    + unfinished(r)
+                ),
                 str(r["n_seeds"]),
             )
         out.print(t5)
@@ -239,8 +236,7 @@ def print_transfer(rep) -> None:  # type: ignore[no-untyped-def]
             )
         out.print(t4)
     out.print(f"[dim]\\[low, high] = interval; ! = fewer than {FEW_SEEDS} seeds[/]", markup=True)
-    for note in rep.notes:
-        err.print(f"note: {note}")
+    print_notes(rep.notes, STATS_FLAGS)
 
 
 def _measure_tables(rep) -> list[Table]:  # type: ignore[no-untyped-def]
@@ -249,7 +245,7 @@ def _measure_tables(rep) -> list[Table]:  # type: ignore[no-untyped-def]
     import pandas as pd
 
     from fewshot.stats.curves import FEW_SEEDS
-    from fewshot.tables import bound, number
+    from fewshot.tables import bound, number, unfinished
 
     def iv(low: object, high: object, n: object, size_bound: bool = False) -> Text:
         if low is None or pd.isna(low) or pd.isna(high):
@@ -264,7 +260,12 @@ def _measure_tables(rep) -> list[Table]:  # type: ignore[no-untyped-def]
         [str(r["arm"]), str(r["task"]), str(r["size"])] for _, r in t.iterrows()
     ]
     diff: list[list[str | Text]] = [
-        [*k, number(r["difference"]), iv(r["low"], r["high"], r["n_seeds"]), str(r["n_seeds"])]
+        [
+            *k,
+            number(r["difference"]) + unfinished(r),  # the mark the wide table puts there too
+            iv(r["low"], r["high"], r["n_seeds"]),
+            str(r["n_seeds"]),
+        ]
         for k, (_, r) in zip(keys, t.iterrows(), strict=True)
     ]
     prob: list[list[str | Text]] = [
@@ -311,73 +312,3 @@ def _measure_tables(rep) -> list[Table]:  # type: ignore[no-untyped-def]
             w,
         )
     return tables
-
-
-def seeds_needed_cmd(
-    *,
-    effect: Annotated[
-        float, typer.Option("--effect", help="Difference to detect, in normalised score.")
-    ] = 0.1,
-    power: Annotated[float, typer.Option("--power", help="Wanted power of the test.")] = 0.8,
-    alpha: Annotated[float, typer.Option("--alpha", help="One-sided significance level.")] = 0.05,
-    baseline: BaselineOpt = None,
-    select: SelectOpt = "final",
-    fmt: Annotated[
-        TableJsonCsv, typer.Option("--format", help="table, csv or json.")
-    ] = TableJsonCsv.table,
-    ledger: LedgerOpt = None,
-    study: StudyOpt = None,
-) -> None:
-    """Seeds each comparison needs to detect --effect, by Welch's t power, from the spread seen so far."""
-    from fewshot.analysis import seeds_json, seeds_needed_report
-
-    with reporting(STATS_FLAGS):
-        led = open_ledger(ledger, study)
-        try:
-            rep = seeds_needed_report(
-                led, effect=effect, power=power, alpha=alpha, baseline=baseline, select=select
-            )
-        finally:
-            led.close()
-    table, base, value = rep.table, rep.baseline, rep.value
-    if fmt is TableJsonCsv.json:
-        print_json(seeds_json(rep))
-        return
-    if fmt is TableJsonCsv.csv:
-        typer.echo(table.to_csv(index=False), nl=False)
-        return
-    t = Table(
-        title=f"seeds per arm to detect +{effect:g} ({value}) against {base}, power {power:g}, "
-        f"one-sided alpha {alpha:g} (Welch)",
-        title_justify="left",
-    )
-    for c in (
-        "arm",
-        "task",
-        "size",
-        "pilot seeds",
-        "sd arm",
-        "sd baseline",
-        "power now",
-        "seeds needed",
-    ):
-        t.add_column(c, justify="left" if c in ("arm", "task") else "right")
-    for _, r in table.iterrows():
-        needed = (
-            "> 10000"
-            if r["seeds_needed"] is None or r["seeds_needed"] != r["seeds_needed"]
-            else str(int(r["seeds_needed"]))
-        )
-        t.add_row(
-            r["arm"],
-            r["task"],
-            str(r["size"]),
-            str(r["pilot_seeds"]),
-            f"{r['sd_arm']:.3g}",
-            f"{r['sd_baseline']:.3g}",
-            f"{r['power_now']:.2f}",
-            needed,
-        )
-    out.print(t)
-    for note in rep.notes:
-        err.print(f"note: {note}")

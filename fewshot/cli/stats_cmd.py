@@ -14,11 +14,11 @@ from fewshot.cli.common import (
     LedgerOpt,
     PagerOpt,
     StudyOpt,
-    err,
     open_ledger,
     out,
     paged,
     print_json,
+    print_notes,
     reporting,
     styled,
 )
@@ -56,17 +56,11 @@ def _fmt(x: float) -> str:
     return number(x)
 
 
-def _late(row: pd.Series) -> str:
-    """`` *`` when the value includes results of runs not yet done (``--include-running``)."""
-    from fewshot.analysis.qualify import UNFINISHED_COLUMN, UNFINISHED_MARK
-
-    return f" {UNFINISHED_MARK}" if row.get(UNFINISHED_COLUMN, 0) > 0 else ""
-
-
 def _cell(row: pd.Series, show_n: bool) -> str:
     from fewshot.stats.curves import FEW_SEEDS
+    from fewshot.tables import unfinished
 
-    flag = (" [red]![/]" if row["n_seeds"] < FEW_SEEDS else "") + _late(row)
+    flag = (" [red]![/]" if row["n_seeds"] < FEW_SEEDS else "") + unfinished(row)
     n = f" n{row['n_seeds']}" if show_n else ""
     if math.isnan(row["low"]):
         return f"{_fmt(row['estimate'])}[dim]{n}[/]{flag}"
@@ -98,6 +92,7 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
     """The curves as a rich table: rows arm × task (or aggregate), columns sizes."""
     from fewshot.report.methods import resampling
     from fewshot.stats.curves import FEW_SEEDS
+    from fewshot.tables import unfinished
 
     t = report.table
     sizes = sorted(set(t["size"]))
@@ -131,7 +126,7 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
         for _, r in t.iterrows():
             low = "" if math.isnan(r["low"]) else _fmt(r["low"])
             est, interval = split_interval(_fmt(r["estimate"]), low, _fmt(r["high"]))
-            flag = (" !" if r["n_seeds"] < FEW_SEEDS else "") + _late(r)
+            flag = (" !" if r["n_seeds"] < FEW_SEEDS else "") + unfinished(r)
             long_rows.append(
                 [
                     *[str(r[k]) if r[k] is not None else "-" for k in firsts],
@@ -159,9 +154,10 @@ def print_curve_table(report) -> None:  # type: ignore[no-untyped-def]
             FEW_SEEDS,
         )
     )
-    for note in dict.fromkeys(report.notes):
-        if not note.startswith("seeds behind each interval"):  # the line above says it
-            err.print(f"note: {note}")
+    # the line above says how many seeds are behind each interval
+    print_notes(
+        (n for n in report.notes if not n.startswith("seeds behind each interval")), STATS_FLAGS
+    )
 
 
 @statistics_options()
@@ -206,12 +202,12 @@ def curves_cmd(
         finally:
             led.close()
     if fmt == "json":
-        print_json(curves_json(report))
+        print_json(curves_json(report), STATS_FLAGS)
     elif fmt == "csv":
         typer.echo(curves_table(report).to_csv(index=False), nl=False)
     elif fmt == "latex":
         from fewshot.report.methods import resampling
-        from fewshot.tables import latex_table, with_interval
+        from fewshot.tables import latex_table, unfinished, with_interval
 
         name = "task" if report.kind == "per-task" else "aggregate"
         rows = [
@@ -219,7 +215,8 @@ def curves_cmd(
                 "arm": str(r["arm"]),
                 name: str(r[name]),
                 "size": str(r["size"]),
-                "estimate [interval]": with_interval(r["estimate"], r["low"], r["high"]) + _late(r),
+                "estimate [interval]": with_interval(r["estimate"], r["low"], r["high"])
+                + unfinished(r),
                 "seeds": str(r["n_seeds"]),
             }
             for _, r in report.table.iterrows()

@@ -10,6 +10,7 @@ from __future__ import annotations
 import base64
 import html
 import io
+import re
 from collections.abc import Iterable, Sequence
 from datetime import UTC, datetime
 
@@ -38,6 +39,8 @@ img, table { max-width: 100%; } table { display: block; overflow-x: auto; }
 
 
 PNG_COLOURS = 64  # a palette PNG: a figure's lines, bands and text need far fewer colours
+
+_CODE = re.compile(r"`([^`<>]+)`")  # after escaping: `name` -> <code>name</code>
 
 
 def figure_uri(fig, dpi: int = 150) -> str:  # type: ignore[no-untyped-def]
@@ -108,7 +111,8 @@ def paragraph(text: str) -> str:
 
 
 def bullet_list(items: Iterable[str], cls: str = "") -> str:
-    lis = "".join(f"<li>{_e(i)}</li>" for i in items)
+    # a parameter a note names in backticks is set as code
+    lis = "".join("<li>" + _CODE.sub(r"<code>\1</code>", _e(i)) + "</li>" for i in items)
     return f'<ul class="{cls}">{lis}</ul>' if lis else "<p><em>none</em></p>"
 
 
