@@ -11,12 +11,14 @@ import warnings
 from collections.abc import Iterable, Iterator, Mapping
 from contextlib import contextmanager
 from enum import StrEnum
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
-from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.text import Span, Text
+
+if TYPE_CHECKING:  # loaded when a bar is made, not for --help
+    from rich.progress import Progress
 
 from fewshot.errors import FewshotError, InvalidInput
 from fewshot.masking import mask_secrets
@@ -163,6 +165,8 @@ def print_notes(notes: Iterable[str], flags: Mapping[str, str]) -> None:
 
 def progress() -> Progress:
     """A progress bar on stderr that shows only on a terminal."""
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
     return Progress(
         TextColumn("{task.description}", markup=False),
         BarColumn(),

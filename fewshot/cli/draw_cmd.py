@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from enum import StrEnum
 from pathlib import Path
-from typing import Annotated, Any, cast
+from typing import TYPE_CHECKING, Annotated, Any, cast
 
 import typer
 from rich.table import Table
@@ -20,15 +20,9 @@ from fewshot.cli.common import (
     styled,
 )
 from fewshot.errors import RedrawRefused
-from fewshot.sampling.draw_folder import write_draw
-from fewshot.sampling.manifest import (
-    load_manifest,
-    pool_matches,
-    subset_path,
-    verify_subset,
-)
-from fewshot.sampling.pools import read_id_list
-from fewshot.sampling.task import DrawSpec, TaskDraw, draw_task
+
+if TYPE_CHECKING:  # the draw code loads numpy: imported where a command runs, not for --help
+    from fewshot.sampling.task import TaskDraw
 
 # The library's parameter names that `fewshot draw` spells as flags, for its messages.
 DRAW_FLAGS = {
@@ -100,6 +94,9 @@ def draw(
     ),
 ) -> None:
     """Draw nested subsets of a pool for every seed and write a manifest and id files."""
+    from fewshot.sampling.draw_folder import write_draw
+    from fewshot.sampling.task import DrawSpec, draw_task
+
     with reporting(DRAW_FLAGS, bare=True):
         spec = DrawSpec(
             task=task,
@@ -130,6 +127,8 @@ def draw(
 
 
 def _summary(result: TaskDraw, out_dir: Path, target: Path) -> dict[str, Any]:
+    from fewshot.sampling.manifest import subset_path
+
     rows = []
     for d in result.draws:
         for n in d.sizes:
@@ -188,6 +187,9 @@ def verify(
     ] = None,
 ) -> None:
     """Check that an id file holds exactly one recorded subset (exit 0), or show how it differs (exit 1)."""
+    from fewshot.sampling.manifest import load_manifest, pool_matches, verify_subset
+    from fewshot.sampling.pools import read_id_list
+
     with reporting():
         m = load_manifest(manifest)
         result = verify_subset(m, read_id_list(ids_file, what="id file"), seed, size)

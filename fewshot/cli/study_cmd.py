@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from contextlib import nullcontext
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 from rich.table import Table
@@ -19,8 +19,9 @@ from fewshot.cli.common import (
     reporting,
     styled,
 )
-from fewshot.sampling.draw_folder import check_draw_target
-from fewshot.study import PlanCounts, Study, check_study, load_study
+
+if TYPE_CHECKING:  # the study model loads the draw code (numpy): imported when a command runs
+    from fewshot.study import PlanCounts, Study
 
 
 def _plan_table(study: Study, plan: PlanCounts) -> Table:
@@ -43,6 +44,8 @@ def check(
     ] = TableOrJson.table,
 ) -> None:
     """Validate a study file (and draw its subsets in memory), then print its plan. Touches no ledger."""
+    from fewshot.study import check_study
+
     with reporting():
         study = check_study(study_file)
     if fmt is TableOrJson.json:
@@ -66,6 +69,9 @@ def init(
     ledger: Annotated[str | None, typer.Option("--ledger", help=LEDGER_HELP)] = None,
 ) -> None:
     """Create or upgrade the ledger, draw every task's subsets, and plan every run not yet planned."""
+    from fewshot.sampling.draw_folder import check_draw_target
+    from fewshot.study import load_study
+
     with reporting():
         study = load_study(study_file)
         for task in study.tasks:  # refuse before the ledger is created

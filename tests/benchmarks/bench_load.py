@@ -21,8 +21,19 @@ sys.path.insert(0, str(ROOT))
 
 from fewshot.ledger import Ledger  # noqa: E402
 from fewshot.study import load_study  # noqa: E402
-from tests.support import reset_pg  # noqa: E402
-from tests.test_reliability import WORKER, _study  # noqa: E402
+from tests.support import reset_pg, study_toml, write_study  # noqa: E402
+from tests.test_reliability import WORKER  # noqa: E402
+
+
+def _study(folder: Path, seeds: int) -> Path:
+    """The study tests/test_reliability.py plans (its ``_study``), written without pytest."""
+    text = study_toml(
+        sizes=[1, 2, 3, 4],
+        seeds=list(range(seeds)),
+        arms={"wide": {"zero_shot": False}},
+        metrics=["success"],
+    )
+    return write_study(folder, text)
 
 
 def run(url: str, folder: Path, seeds: int, workers: int) -> None:

@@ -26,6 +26,11 @@ from fewshot.ledger import Ledger, resolve_url  # noqa: E402
 from fewshot.study import load_study  # noqa: E402
 from tests.support import reset_pg, study_toml, write_study  # noqa: E402
 
+REPORT = (
+    'printf \'{"run": "%s", "metric": "return", "value": 1, "final": true}\\n\' "$FEWSHOT_RUN" '
+    '> "$FEWSHOT_RESULTS"'
+)
+
 
 def _ledger(folder: Path, backend: str, pg: str | None, seeds: int) -> str:
     text = study_toml(sizes=[1, 2, 3, 4], seeds=list(range(seeds)))
@@ -72,8 +77,11 @@ def main() -> None:
     parser.add_argument("--runs", type=int, default=400, help="runs per no-op measurement")
     parser.add_argument("--pg", default=os.environ.get("FEWSHOT_TEST_PG"))
     args = parser.parse_args()
-    noop = [shutil.which("true") or "/bin/true"]
-    sleep1 = [shutil.which("sleep") or "/bin/sleep", "1"]
+    # the lightest trainer the loop accepts: it writes the run's final result and ends (a run
+    # whose trainer reports nothing fails, so a bare `true` would measure failures)
+    sh = shutil.which("sh") or "/bin/sh"
+    noop = [sh, "-c", REPORT]
+    sleep1 = [sh, "-c", "sleep 1; " + REPORT]
     backends = ["sqlite"] + (["postgresql"] if args.pg else [])
     seeds = max(1, -(-args.runs // 7))  # 7 runs a seed (2 arms x 4 sizes, 1 excluded)
     with tempfile.TemporaryDirectory() as tmp:
@@ -83,10 +91,16 @@ def main() -> None:
             for loops in (1, 2, 4, 8):
                 url = _ledger(folder, backend, args.pg, seeds)
                 wall, n, _ = _time(url, loops, noop)
+                if n == 0:
+                    raise SystemExit(
+                        f"{backend}: no run was marked done; the trainer command failed"
+                    )
                 print(f"{backend:<11} {loops:>5} {n:>5} {wall:>8.2f} {n / wall:>9.1f}")
         for backend in backends:
             url = _ledger(folder, backend, args.pg, 6)  # 42 runs: 5 or 6 a loop at 8 loops
             wall, n, in_loop = _time(url, 8, sleep1)
+            if n == 0:
+                raise SystemExit(f"{backend}: no run was marked done; the trainer command failed")
             per_run = wall * 8 / n  # loop time per run, the trainer taking 1 s of it
             print(
                 f"{backend}: 8 loops, {n} runs of a 1 s trainer in {wall:.2f} s: overhead "
