@@ -99,7 +99,7 @@ class ResultLine:
     @property
     def at(self) -> str:
         """``"<where>: "`` for messages, or nothing for a direct call."""
-        return "" if self.where == "call" else f"{self.where}: "
+        return _at(self.where)
 
 
 def _finite(x: object, what: str, where: str) -> float:
@@ -124,6 +124,11 @@ def _finite_number(x: float) -> bool:
         return False
 
 
+def _at(where: str) -> str:
+    """The prefix of a message about the line at ``where`` (nothing for a call)."""
+    return "" if where == "call" else f"{where}: "
+
+
 def check_line(
     run: object,
     metric: object,
@@ -142,46 +147,47 @@ def check_line(
     Every result is either an evaluation at a training ``step`` or the run's final evaluation,
     marked ``final=True`` (with no step); a result with neither is refused, so that a stray
     number can never pass for a run's score."""
-    at = "" if where == "call" else f"{where}: "
     if type(value) is float and math.isfinite(value):  # the common case, without a call
         v = value
     else:
         v = _finite(value, f"value of {metric!r}", where)
     if not isinstance(run, str) or not run or "\x00" in run:
-        raise ResultRefused(f"{at}'run' must be a run key such as 'arm/task/n10/s0'. Got {run!r}.")
+        raise ResultRefused(
+            f"{_at(where)}'run' must be a run key such as 'arm/task/n10/s0'. Got {run!r}."
+        )
     if not isinstance(metric, str) or not metric.strip() or len(metric) > 200 or "\x00" in metric:
-        raise ResultRefused(f"{at}'metric' must be a non-empty name. Got {metric!r}.")
+        raise ResultRefused(f"{_at(where)}'metric' must be a non-empty name. Got {metric!r}.")
     if step is not None and (
         isinstance(step, bool) or not isinstance(step, int) or not 0 <= step <= INT64_MAX
     ):
         raise ResultRefused(
-            f"{at}'step' must be a whole number from 0 to 2**63-1 (what the ledger's column "
+            f"{_at(where)}'step' must be a whole number from 0 to 2**63-1 (what the ledger's column "
             f"holds), or null. Got {step!r}."
         )
     if not isinstance(final, bool):
-        raise ResultRefused(f"{at}'final' must be true or false. Got {final!r}.")
+        raise ResultRefused(f"{_at(where)}'final' must be true or false. Got {final!r}.")
     if step is None and not final:
         raise ResultRefused(
-            f"{at}{metric!r} = {v!r} has no step and is not marked final. Give the training "
+            f"{_at(where)}{metric!r} = {v!r} has no step and is not marked final. Give the training "
             "step of this evaluation (`step`), or mark the run's final evaluation with "
             '`final` ("final": true in a results file).'
         )
     if step is not None and final:
         raise ResultRefused(
-            f"{at}{metric!r} is marked `final` and also has `step` {step!r}: the final "
+            f"{_at(where)}{metric!r} is marked `final` and also has `step` {step!r}: the final "
             "evaluation has no step. Drop one of them."
         )
     if attempt is not None and (
         isinstance(attempt, bool) or not isinstance(attempt, int) or not 1 <= attempt <= INT64_MAX
     ):
         raise ResultRefused(
-            f"{at}'attempt' must be a whole number of 1 or more (the claim's FEWSHOT_ATTEMPT). "
+            f"{_at(where)}'attempt' must be a whole number of 1 or more (the claim's FEWSHOT_ATTEMPT). "
             f"Got {attempt!r}."
         )
     vals: tuple[float, ...] = ()
     if values is not None:
         if not isinstance(values, list | tuple):
-            raise ResultRefused(f"{at}'values' must be a list of numbers. Got {values!r}.")
+            raise ResultRefused(f"{_at(where)}'values' must be a list of numbers. Got {values!r}.")
         vals = tuple(_finite(x, f"values[{k}]", where) for k, x in enumerate(values))
     if subset_digest is not None and (
         not isinstance(subset_digest, str)
@@ -189,7 +195,7 @@ def check_line(
         or any(c not in "0123456789abcdef" for c in subset_digest)
     ):
         raise ResultRefused(
-            f"{at}'subset_digest' must be 64 lowercase hex digits (SHA-256). Got {subset_digest!r}."
+            f"{_at(where)}'subset_digest' must be 64 lowercase hex digits (SHA-256). Got {subset_digest!r}."
         )
     if budget is not None:
         if not isinstance(budget, dict) or not all(
@@ -199,7 +205,9 @@ def check_line(
             and _finite_number(b)
             for k, b in budget.items()
         ):
-            raise ResultRefused(f"{at}'budget' must map names to finite numbers. Got {budget!r}.")
+            raise ResultRefused(
+                f"{_at(where)}'budget' must map names to finite numbers. Got {budget!r}."
+            )
     return ResultLine(run, metric, v, step, vals, subset_digest, budget, where, attempt)  # type: ignore[arg-type]
 
 
@@ -214,19 +222,24 @@ def parse_result_file(path: Path, data: bytes) -> list[ResultLine]:
     return _parse_jsonl(path, text)
 
 
+# One decoder for every line (json.loads with a hook would build a new one per line).
+_DECODER = json.JSONDecoder(object_pairs_hook=unique_keys)
+
+
 def _parse_jsonl(path: Path, text: str) -> list[ResultLine]:
     out = []
     lines = text.split("\n")
+    name = str(path)
     for n, line in enumerate(lines, 1):
         if not line.strip():
             continue
-        where = f"{path}, line {n}"
+        where = f"{name}, line {n}"
         if len(line) > MAX_LINE:
             raise ResultFileError(
                 f"{where}: the line is {len(line)} characters long; results lines are short. The file is damaged."
             )
         try:
-            obj = json.loads(line, object_pairs_hook=unique_keys)
+            obj = _DECODER.decode(line)
         except DuplicateKey as exc:
             raise ResultFileError(
                 f"{where}: the field {exc.key!r} is given more than once; keep one."

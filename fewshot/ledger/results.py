@@ -297,6 +297,22 @@ def _check_metrics(
     )
 
 
+# The columns _insert_fresh writes to the result table, in the order of its row tuples.
+_RESULT_COLUMNS = (
+    "run_id",
+    "metric",
+    "step",
+    "value",
+    "n_values",
+    "subset_digest",
+    "budget_json",
+    "recorded_at",
+    "source",
+    "attempt",
+    "forced",
+)
+
+
 def _insert_fresh(
     conn: Connection,
     fresh: dict[tuple[int, str, int], ResultLine],
@@ -307,20 +323,21 @@ def _insert_fresh(
 ) -> None:
     if not fresh:
         return
+    # one tuple per row, in _RESULT_COLUMNS' order
     rows = [
-        {
-            "run_id": rid,
-            "metric": metric,
-            "step": step,
-            "value": ln.value,
-            "n_values": len(ln.values),
-            "subset_digest": ln.subset_digest,
-            "budget_json": _budget(ln.budget),
-            "recorded_at": now,
-            "source": source,
-            "attempt": attempt,
-            "forced": rid in by_hand,
-        }
+        (
+            rid,
+            metric,
+            step,
+            ln.value,
+            len(ln.values),
+            ln.subset_digest,
+            _budget(ln.budget),
+            now,
+            source,
+            attempt,
+            rid in by_hand,
+        )
         for (rid, metric, step), ln in fresh.items()
     ]
     plain = [row for row, ln in zip(rows, fresh.values(), strict=True) if not ln.values]
@@ -328,10 +345,14 @@ def _insert_fresh(
         # The bulk of a large ingest: straight to the driver's executemany (the ORM and Core
         # per-row parameter processing would double the cost; see tests/benchmarks/bench_ingest.py).
         mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-        cols = list(plain[0])
-        sql = f"INSERT INTO result ({', '.join(cols)}) VALUES ({', '.join([mark] * len(cols))})"
-        conn.exec_driver_sql(sql, [tuple(r[c] for c in cols) for r in plain])
-    with_values = [(row, ln) for row, ln in zip(rows, fresh.values(), strict=True) if ln.values]
+        cols = ", ".join(_RESULT_COLUMNS)
+        sql = f"INSERT INTO result ({cols}) VALUES ({', '.join([mark] * len(_RESULT_COLUMNS))})"
+        conn.exec_driver_sql(sql, plain)
+    with_values = [
+        (dict(zip(_RESULT_COLUMNS, row, strict=True)), ln)
+        for row, ln in zip(rows, fresh.values(), strict=True)
+        if ln.values
+    ]
     if not with_values:
         return
     ids = (
