@@ -5,9 +5,9 @@ fraction of runs whose normalised score exceeds τ (``over="runs"``), or the fra
 tasks whose estimate does (``over="tasks"``). Fractions of runs get a score interval over the
 tasks' counts (:func:`stratified_score`): in simulation (``tests/benchmarks/coverage.py
 --printed``) the percentile interval of a stratified resample it replaced held the truth only
-60-82% of the time at 3-10 seeds, 18-41% of them a single value (all of a task's few runs on one
-side of τ), while the score interval is never a single value. Fractions of tasks get none (:data:`NO_TASK_INTERVAL` says
-why): the truth is a count over the study's few fixed tasks, with one more possible value than
+59-86% of the time at 3-10 seeds, 18-42% of them a single value (all of a task's few runs on one
+side of τ); the score interval covered 95-97% and is never a single value. Fractions of tasks
+get none (:data:`NO_TASK_INTERVAL` says why): the truth is a count over the study's few fixed tasks, with one more possible value than
 there are tasks, and in simulation (``tests/benchmarks/coverage.py --printed``) a resampled
 interval of it held the truth 98.6-99.9% of the time at 3-10 seeds, 64-78% of them a single
 value, so its nominal 95% meant nothing; each task's uncertainty is in its episodes to the
