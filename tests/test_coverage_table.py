@@ -66,6 +66,14 @@ def test_printed_table_covers_every_quantity_and_kind():
         if (INFINITE_TRUTH[q]["normal"][5] or 0) > 0:
             five = FINITE_COVERAGE[q]["normal"][5]
         assert five is not None and 0.93 <= five <= 0.97, (q, five)
+    # the profile's band: never a single value, in any column, and at least 90% on every noise
+    # at 3-10 seeds (its lowest in the run the README quotes)
+    from fewshot.stats.coverage_printed import DEGENERATE
+
+    band = "fraction of runs above"
+    for noise in ("normal", "lognormal", "two-mode"):
+        for n in (3, 5, 10):
+            assert DEGENERATE[band][noise][n] == 0 and (PRINTED[band][noise][n] or 0) >= 0.90
 
 
 def test_readme_table_is_the_generated_one():

@@ -16,9 +16,8 @@ from fewshot.stats.bootstrap import bootstrap_cells
 from fewshot.stats.curves import _cells
 from fewshot.stats.estimators import _sorted_nanmedian, nan_estimates
 from fewshot.stats.intervals import rescaled_strata
-from fewshot.stats.profiles import performance_profile
 from fewshot.stats.progress import progress_callback
-from fewshot.stats.resample import CurveResampler, interval
+from fewshot.stats.resample import CurveResampler
 
 
 def _with_gaps(rng: np.random.Generator, shape: tuple[int, int], share: float) -> np.ndarray:
@@ -44,40 +43,6 @@ def test_shared_sort_equals_numpy_and_scipy(share):
     for row, got in zip(x[1:], iqm[1:], strict=True):
         assert got == pytest.approx(stats.trim_mean(row[~np.isnan(row)], 0.25), rel=1e-12)
     assert np.isnan(iqm[0]) and np.isnan(median[0]) and np.isnan(mean[0])
-
-
-def test_profile_over_runs_equals_the_broadcast_comparison():
-    # each resample's fraction above τ, counted by comparing every drawn run with every τ
-    rng = np.random.default_rng(4)
-    rows = [
-        {"arm": a, "task": t, "size": s, "seed": k, "normalised": float(rng.normal(0.6, 0.4))}
-        for a in ("x", "y")
-        for t in ("t1", "t2", "t3")
-        for s in (1, 8)
-        for k in range(5)
-        if not (t == "t2" and k == 4 and a == "y")  # a missing run
-    ]
-    scores = pd.DataFrame(rows)
-    settings = CurveSettings(resamples=400)
-    taus = np.array([0.9, 0.1, 0.5, 0.5, 1.2])  # unsorted, tied
-    got = performance_profile(scores, settings, taus=taus).set_index(["arm", "size", "tau"])
-    rs = CurveResampler(scores, "normalised", settings)
-    for arm in ("x", "y"):
-        for size in (1, 8):
-            sz = np.array([size])
-            boot = np.concatenate(
-                [rs.matrix(arm, t, sz)[0][rs.index[t]] for t in ("t1", "t2", "t3")], axis=1
-            )
-            valid = np.isfinite(boot)
-            with np.errstate(invalid="ignore"):
-                above = ((boot[:, None, :] > taus[None, :, None]) & valid[:, None, :]).sum(axis=2)
-            frac_b = above / valid.sum(axis=1, keepdims=True)
-            n = 4 if arm == "y" else 5
-            for j, tau in enumerate(taus):
-                lo, hi = interval(frac_b[:, j], settings.confidence, n)
-                row = got.loc[(arm, size, tau)]
-                row = row.iloc[0] if isinstance(row, pd.DataFrame) else row
-                assert (row["low"], row["high"]) == (lo, hi)
 
 
 def test_rescaled_strata_equal_rescaling_every_draw():

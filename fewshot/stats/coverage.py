@@ -98,6 +98,8 @@ KINDS: dict[str, tuple[str, ...]] = {
     "effective data, D_T and multiplier (test inversion)": ("effective data",),
     "episodes to the threshold (test inversion)": ("episodes to threshold",),
     "areas under the curve (t over seeds)": ("area under curve",),
+    "fractions of runs above a threshold, the performance profile's band (stratified score "
+    "interval)": ("fraction of runs above",),
 }
 
 

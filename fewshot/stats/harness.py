@@ -28,7 +28,7 @@ from fewshot.stats.transfer import (
     threshold_sizes,
 )
 
-__all__ = ["QUANTITIES", "WITHOUT_INTERVAL", "study_intervals", "coverage_table"]
+__all__ = ["PROFILE_TAUS", "QUANTITIES", "WITHOUT_INTERVAL", "study_intervals", "coverage_table"]
 
 QUANTITIES = (
     "cell mean",
@@ -49,7 +49,11 @@ QUANTITIES = (
     "episodes to threshold",
     "area under curve",
     "fraction of tasks above",
+    "fraction of runs above",
 )
+# the performance profile's thresholds the harness checks, at the largest size (where the report
+# and ``plot --kind profile`` draw it): from where nearly every run is above to where nearly none is
+PROFILE_TAUS = (0.6, 0.7, 0.8, 0.9, 1.0)
 # printed as an estimate only, with the reason (fewshot.stats.profiles.NO_TASK_INTERVAL)
 WITHOUT_INTERVAL = ("fraction of tasks above",)
 
@@ -172,6 +176,19 @@ def study_intervals(
                 [
                     sc.truth_fraction(a, int(n))
                     for a, n in zip(prof["arm"], prof["size"], strict=True)
+                ],
+            )
+        )
+        largest = scores[scores["size"] == scores["size"].max()]
+        runs = performance_profile(largest, settings, taus=np.array(PROFILE_TAUS), over="runs")
+        parts.append(
+            _rows(
+                "fraction of runs above",
+                runs["low"],
+                runs["high"],
+                [
+                    sc.truth_runs_above(a, int(n), float(t), noise)
+                    for a, n, t in zip(runs["arm"], runs["size"], runs["tau"], strict=True)
                 ],
             )
         )

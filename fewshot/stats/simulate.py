@@ -17,9 +17,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import special
+from scipy import special, stats
 
-__all__ = ["NOISES", "Noise", "Scenario", "default_scenario", "simulate_scores"]
+__all__ = ["NOISES", "Noise", "Scenario", "default_scenario", "exceedance", "simulate_scores"]
 
 
 @dataclass(frozen=True)
@@ -38,12 +38,17 @@ class Noise:
         return np.interp(special.ndtr(z), self.cdf, self.grid)
 
 
+# lognormal(0, 0.5) standardised: mean exp(1/8), variance (e^(1/4) - 1) e^(1/4)
+_LOG_MEAN, _LOG_SD = float(np.exp(0.125)), float(np.sqrt((np.exp(0.25) - 1) * np.exp(0.25)))
+_MIX_MEAN, _MIX_SD = 1.2, float(np.sqrt(4.36))  # 0.7 N(0, 1) + 0.3 N(4, 1)
+
+
 def _make_noise(name: str) -> Noise:
     x = np.linspace(-12, 12, 48_001)
     if name == "normal":
         pdf = np.exp(-(x**2) / 2) / np.sqrt(2 * np.pi)
     elif name == "lognormal":  # exp(0.5 Z), standardised
-        m, v = np.exp(0.125), (np.exp(0.25) - 1) * np.exp(0.25)
+        m, v = _LOG_MEAN, _LOG_SD**2
         y = m + np.sqrt(v) * x
         with np.errstate(divide="ignore", invalid="ignore"):
             dens = np.where(
@@ -54,7 +59,7 @@ def _make_noise(name: str) -> Noise:
             )
         pdf = dens * np.sqrt(v)
     elif name == "two-mode":  # 0.7 N(0,1) + 0.3 N(4,1): mean 1.2, variance 1 + 0.21 * 16
-        m, v = 1.2, 4.36
+        m, v = _MIX_MEAN, _MIX_SD**2
         y = m + np.sqrt(v) * x
         phi = lambda u: np.exp(-(u**2) / 2) / np.sqrt(2 * np.pi)  # noqa: E731
         pdf = (0.7 * phi(y) + 0.3 * phi(y - 4)) * np.sqrt(v)
@@ -66,6 +71,19 @@ def _make_noise(name: str) -> Noise:
 
 
 NOISES = ("normal", "lognormal", "two-mode")
+
+
+def exceedance(name: str, x: np.ndarray | float) -> np.ndarray:
+    """P(e > x) for the standardised noise ``name``, exactly from scipy.stats (no grid)."""
+    x = np.asarray(x, dtype=float)
+    if name == "normal":
+        return np.asarray(stats.norm.sf(x))
+    if name == "lognormal":  # e > x  <=>  exp(0.5 Z) > mean + sd x  (always, when that is <= 0)
+        return np.asarray(stats.lognorm.sf(_LOG_MEAN + _LOG_SD * x, s=0.5))
+    if name == "two-mode":
+        y = _MIX_MEAN + _MIX_SD * x
+        return np.asarray(0.7 * stats.norm.sf(y) + 0.3 * stats.norm.sf(y, loc=4.0))
+    raise ValueError(f"unknown noise {name!r}")
 
 
 def _curve(shape: tuple[float, float, float], n: np.ndarray, f: float) -> np.ndarray:
@@ -184,6 +202,12 @@ class Scenario:
         """Mean height of the true curve over log size, trapezoids between ladder points >= 1."""
         x = np.log(np.array(self.sizes, dtype=float))
         return float(np.trapezoid(self.mean(arm, task, np.array(self.sizes)), x) / (x[-1] - x[0]))
+
+    def truth_runs_above(self, arm: str, size: int, tau: float, noise: str) -> float:
+        """Fraction of runs above ``tau``: each task's P(mu + sigma e > tau), averaged over tasks
+        with equal weights (the profile pools every run, and every task has the same seeds)."""
+        mus = np.array([self.mean(arm, t, [size])[0] for t in self.tasks])
+        return float(np.mean(exceedance(noise, (tau - mus) / self.sigma)))
 
     def truth_fraction(self, arm: str, size: int) -> float:
         """Fraction of tasks whose true mean exceeds the threshold."""
