@@ -90,6 +90,7 @@ def profile_figure(
         )
     styles = arm_colours(arms)
     fig, ax, own = _single(ax, (COLUMN_WIDTH, 2.4))
+    fill = min(0.18, 0.4 / max(1, len(arms)))
     for arm in arms:
         rows = data[data["arm"] == arm].sort_values("tau")
         if len(rows):
@@ -105,9 +106,14 @@ def profile_figure(
                 lw=1.2,
                 label=arm,
             )
+            # where every arm's band spans the same wide range (all runs above or below tau, few
+            # runs), full-strength fills of several arms would blend into one grey block: the
+            # fills share the strength out, and each band keeps its arm's colour at its edges
             ax.fill_between(
-                rows["tau"], rows["low"], rows["high"], step="post", color=colour, alpha=0.18, lw=0
+                rows["tau"], rows["low"], rows["high"], step="post", color=colour, alpha=fill, lw=0
             )
+            for edge in ("low", "high"):
+                ax.step(rows["tau"], rows[edge], where="post", color=colour, lw=0.5, alpha=0.55)
     over = data["over"].iloc[0]
     ax.set_xlabel("normalised score τ (0 = floor, 1 = expert)")
     ax.set_ylabel(f"share of {over} scoring above τ")
