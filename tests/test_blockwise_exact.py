@@ -108,14 +108,17 @@ def test_blockwise_resamples_equal_the_whole_matrix(gaps):
             np.testing.assert_array_equal(values, getattr(np, name)(plain, axis=1))
 
 
-def test_aggregate_interval_equals_a_plain_per_cell_computation():
-    # one cell over three tasks, recomputed from the documented recipe: one index matrix per
-    # task from SeedSequence(seed).spawn, every draw rescaled, scipy's trim_mean per resample
-    rng = np.random.default_rng(24)
-    seeds = {"t1": 4, "t2": 5, "t3": 3}
-    rows = [
+def _rows(
+    rng: np.random.Generator,
+    seeds: dict[str, int],
+    arms: tuple[str, ...],
+    missing: tuple[str, str, int] | None = None,
+) -> list[dict]:
+    """Runs at size 4 of ``arms`` over ``seeds`` (task -> seed count), a random normalised score
+    each, leaving out the ``missing`` (arm, task, seed) run (drawn for no value)."""
+    return [
         {
-            "arm": "a",
+            "arm": arm,
             "role": "pretrained",
             "group": None,
             "task": t,
@@ -123,9 +126,18 @@ def test_aggregate_interval_equals_a_plain_per_cell_computation():
             "seed": k,
             "normalised": float(np.round(rng.normal(0.5, 0.3), 3)),
         }
+        for arm in arms
         for t, n in seeds.items()
         for k in range(n)
+        if (arm, t, k) != missing
     ]
+
+
+def test_aggregate_interval_equals_a_plain_per_cell_computation():
+    # one cell over three tasks, recomputed from the documented recipe: one index matrix per
+    # task from SeedSequence(seed).spawn, every draw rescaled, scipy's trim_mean per resample
+    seeds = {"t1": 4, "t2": 5, "t3": 3}
+    rows = _rows(np.random.default_rng(24), seeds, ("a",))
     settings = CurveSettings(resamples=3 * BLOCK // 2, seed=5)
     got = aggregate_curves(pd.DataFrame(rows), settings).set_index("aggregate")
     strata = [np.array([r["normalised"] for r in rows if r["task"] == t]) for t in seeds]
@@ -201,23 +213,8 @@ def test_aggregate_with_a_missing_seed_equals_a_plain_per_cell_computation():
     # arm "a" lacks seed 2 of task t2 (arm "b" has it, so t2 has 5 seeds): the documented recipe
     # with pandas' reindex over each task's seeds as the reference placement, numpy's nanmedian
     # per resample (exact) and scipy's trim_mean of the present runs (to rounding)
-    rng = np.random.default_rng(26)
     seeds = {"t1": 4, "t2": 5, "t3": 3}
-    rows = [
-        {
-            "arm": arm,
-            "role": "pretrained",
-            "group": None,
-            "task": t,
-            "size": 4,
-            "seed": k,
-            "normalised": float(np.round(rng.normal(0.5, 0.3), 3)),
-        }
-        for arm in ("a", "b")
-        for t, n in seeds.items()
-        for k in range(n)
-        if not (arm == "a" and t == "t2" and k == 2)
-    ]
+    rows = _rows(np.random.default_rng(26), seeds, ("a", "b"), missing=("a", "t2", 2))
     scores = pd.DataFrame(rows)
     settings = CurveSettings(resamples=BLOCK + 100, seed=8)
     got = aggregate_curves(scores, settings)

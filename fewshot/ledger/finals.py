@@ -13,23 +13,18 @@ from typing import Any
 from sqlalchemy import Connection, insert, select
 
 from fewshot.errors import FewshotError
-from fewshot.ledger.models import FINAL_STEP, ResultRow, ResultValueRow, StudyRow
+from fewshot.ledger.models import (
+    FINAL_STEP,
+    RESULT_WRITE_COLUMNS,
+    ResultRow,
+    ResultValueRow,
+    StudyRow,
+)
 
 __all__ = ["Incomplete", "ensure_final", "primary_metric"]
 
-# what a final taken from a step keeps of that step's result
-COPIED = (
-    "run_id",
-    "metric",
-    "value",
-    "n_values",
-    "subset_digest",
-    "budget_json",
-    "recorded_at",
-    "source",
-    "attempt",
-    "forced",
-)
+# what a final taken from a step keeps of that step's result: every written column but the step
+COPIED = tuple(c for c in RESULT_WRITE_COLUMNS if c != "step")
 
 
 class Incomplete(FewshotError, ValueError):

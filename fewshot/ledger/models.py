@@ -175,3 +175,20 @@ class IngestedFileRow(Base):
     path: Mapped[str] = mapped_column(Text)
     rows: Mapped[int] = mapped_column(BigInteger)
     ingested_at: Mapped[float] = mapped_column(Float)
+
+
+# The columns a stored result writes to the result table, in the order in which
+# results._insert_fresh builds its row tuples (a final taken from a step copies all but the step).
+RESULT_WRITE_COLUMNS = (
+    "run_id",
+    "metric",
+    "step",
+    "value",
+    "n_values",
+    "subset_digest",
+    "budget_json",
+    "recorded_at",
+    "source",
+    "attempt",
+    "forced",
+)

@@ -25,6 +25,7 @@ from sqlalchemy import Connection, delete, insert, select, update
 from fewshot.errors import FewshotError
 from fewshot.ledger.models import (
     FINAL_STEP,
+    RESULT_WRITE_COLUMNS,
     ResultRow,
     ResultValueRow,
     RunRow,
@@ -297,22 +298,6 @@ def _check_metrics(
     )
 
 
-# The columns _insert_fresh writes to the result table, in the order of its row tuples.
-_RESULT_COLUMNS = (
-    "run_id",
-    "metric",
-    "step",
-    "value",
-    "n_values",
-    "subset_digest",
-    "budget_json",
-    "recorded_at",
-    "source",
-    "attempt",
-    "forced",
-)
-
-
 def _insert_fresh(
     conn: Connection,
     fresh: dict[tuple[int, str, int], ResultLine],
@@ -323,7 +308,7 @@ def _insert_fresh(
 ) -> None:
     if not fresh:
         return
-    # one tuple per row, in _RESULT_COLUMNS' order
+    # one tuple per row, in RESULT_WRITE_COLUMNS' order
     rows = [
         (
             rid,
@@ -345,11 +330,13 @@ def _insert_fresh(
         # The bulk of a large ingest: straight to the driver's executemany (the ORM and Core
         # per-row parameter processing would double the cost; see tests/benchmarks/bench_ingest.py).
         mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-        cols = ", ".join(_RESULT_COLUMNS)
-        sql = f"INSERT INTO result ({cols}) VALUES ({', '.join([mark] * len(_RESULT_COLUMNS))})"
+        cols = ", ".join(RESULT_WRITE_COLUMNS)
+        sql = (
+            f"INSERT INTO result ({cols}) VALUES ({', '.join([mark] * len(RESULT_WRITE_COLUMNS))})"
+        )
         conn.exec_driver_sql(sql, plain)
     with_values = [
-        (dict(zip(_RESULT_COLUMNS, row, strict=True)), ln)
+        (dict(zip(RESULT_WRITE_COLUMNS, row, strict=True)), ln)
         for row, ln in zip(rows, fresh.values(), strict=True)
         if ln.values
     ]
