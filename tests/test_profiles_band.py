@@ -9,12 +9,14 @@ tasks), and the exact coverage summed over every outcome with scipy.stats.binom'
 from __future__ import annotations
 
 import itertools
+import re
 
 import numpy as np
 import pandas as pd
 import pytest
 from scipy import optimize, special, stats
 
+from fewshot.errors import InvalidInput
 from fewshot.stats import CurveSettings
 from fewshot.stats.profiles import performance_profile, stratified_score
 
@@ -165,3 +167,18 @@ def test_the_band_is_never_a_single_value():
     assert high_tau["high"] == pytest.approx(
         stats.norm.ppf(0.975) ** 2 / (9 + stats.norm.ppf(0.975) ** 2)
     )
+
+
+@pytest.mark.parametrize(
+    ("k", "n", "confidence", "fragment"),
+    [
+        ([[1, 2]], [[3, 3]], 95, "`confidence` must lie between 0 and 1"),
+        ([[5]], [[3]], 0.95, "0 <= `k` <= `n`"),
+        ([[0, 0]], [[0, 0]], 0.95, "at least one run"),
+        ([1, 2], [3, 3], 0.95, "cases × strata"),
+        ([[1, 2]], [[3, 3, 3]], 0.95, "cases × strata"),
+    ],
+)
+def test_bad_counts_are_refused_with_a_message(k, n, confidence, fragment):
+    with pytest.raises(InvalidInput, match=re.escape(fragment)):
+        stratified_score(np.array(k), np.array(n), confidence)

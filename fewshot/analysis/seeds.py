@@ -8,7 +8,7 @@ from typing import TYPE_CHECKING
 import pandas as pd
 
 from fewshot.analysis.data import StudyData, StudyScores, study_scores
-from fewshot.analysis.qualify import study_data
+from fewshot.analysis.qualify import RUN_IDS, _unfinished, study_data
 from fewshot.errors import InvalidInput
 
 if TYPE_CHECKING:
@@ -74,9 +74,9 @@ def seeds_needed_report(
         f"a pilot of {int(table['pilot_seeds'].min())} seed(s) underestimates the spread more often "
         "than not; treat these counts as a floor"
     )
-    res = data.results
-    if "run_status" in res:
-        late = res.loc[res["run_status"] != "done", "run"].nunique()
+    unfinished = _unfinished(data, sc.scores)  # the score rows of runs not done (None: no such)
+    if unfinished is not None:
+        late = len(unfinished.drop_duplicates(RUN_IDS))
         if late:
             notes.append(
                 f"{late} run(s) not yet done are included (`include_running`): their results may "

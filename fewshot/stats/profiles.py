@@ -142,6 +142,16 @@ def stratified_score(
     restriction, p̃_t(μ) is a closed form and θ(μ) decreases, so each end is one bisection in μ.
     """
     k, n = np.asarray(k, dtype=float), np.asarray(n, dtype=float)
+    if k.ndim != 2 or k.shape != n.shape:
+        raise InvalidInput(
+            f"`k` and `n` must be cases × strata arrays of one shape. Got {k.shape} and {n.shape}."
+        )
+    if not (np.isfinite(n).all() and np.isfinite(k).all() and (k >= 0).all() and (k <= n).all()):
+        raise InvalidInput("counts must be finite with 0 <= `k` <= `n` in every stratum.")
+    if (n.sum(axis=-1) <= 0).any():
+        raise InvalidInput("every case needs at least one run (`n` sums to 0 in a case).")
+    if not 0 < confidence < 1:
+        raise InvalidInput(f"`confidence` must lie between 0 and 1, e.g. 0.95. Got {confidence!r}.")
     total = n.sum(axis=-1)
     q = np.divide(k, n, out=np.zeros_like(k), where=n > 0)
     p_hat = k.sum(axis=-1) / total
